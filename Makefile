@@ -1,0 +1,42 @@
+# The few commands people need. `make demo` and `make test` work on a fresh machine.
+PYTHON ?= python3.11
+VENV := .venv
+BIN := $(VENV)/bin
+HOST ?= 127.0.0.1:8000
+
+.PHONY: venv demo test lint format migrations-check bench clean
+
+$(BIN)/activate: pyproject.toml
+	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/pip install --quiet --upgrade pip
+	$(BIN)/pip install --quiet -e '.[dev]'
+	touch $(BIN)/activate
+
+venv: $(BIN)/activate
+
+## Install, migrate the embedded SQLite database, load the invented demo sites, serve on 127.0.0.1:8000.
+demo: venv
+	$(BIN)/python manage.py migrate --noinput
+	$(BIN)/python manage.py load_demo
+	$(BIN)/python manage.py runserver $(HOST)
+
+## Install and run the tests (the database is DATABASE_URL's, SQLite when unset).
+test: venv
+	$(BIN)/pytest $(PYTEST_ARGS)
+
+lint: venv
+	$(BIN)/ruff check .
+	$(BIN)/ruff format --check .
+
+format: venv
+	$(BIN)/ruff format .
+	$(BIN)/ruff check --fix .
+
+migrations-check: venv
+	$(BIN)/python manage.py makemigrations --check --dry-run
+
+bench: venv
+	$(BIN)/python -m analysis.engine.bench
+
+clean:
+	rm -rf $(VENV) var .pytest_cache .ruff_cache .hypothesis

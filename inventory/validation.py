@@ -1,0 +1,44 @@
+"""Small value checks shared by model validation and the site-file validator. Each returns
+``None`` when the value is good, or a message saying what is wrong."""
+
+from __future__ import annotations
+
+import math
+import re
+from typing import Any
+
+RATIO_RE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*[:/]\s*(1|5)\s*$")
+
+
+def ratio_setting_error(text: Any) -> str | None:
+    """A device ratio setting is ``N:5`` or ``N:1`` (``N/5`` accepted) with N > 0."""
+    if not isinstance(text, str) or not RATIO_RE.match(text):
+        return f"ratio setting must look like '400:5' or '1000:1', got {text!r}"
+    if float(RATIO_RE.match(text).group(1)) <= 0:
+        return f"ratio setting must have a positive primary current, got {text!r}"
+    return None
+
+
+def excitation_error(points: Any) -> str | None:
+    """An excitation curve is a list of at least two ``[exciting current A, secondary V]``
+    pairs, positive and strictly increasing in both."""
+    if not isinstance(points, list) or len(points) < 2:
+        return "excitation curve needs at least two [exciting current A, secondary V] points"
+    previous: tuple[float, float] | None = None
+    for index, point in enumerate(points):
+        if (
+            not isinstance(point, list | tuple)
+            or len(point) != 2
+            or not all(isinstance(v, int | float) and not isinstance(v, bool) for v in point)
+        ):
+            return f"point {index} must be a pair of numbers [A, V], got {point!r}"
+        current_a, volts = float(point[0]), float(point[1])
+        if not (math.isfinite(current_a) and math.isfinite(volts)) or current_a <= 0 or volts <= 0:
+            return f"point {index} must be positive, got {list(point)!r}"
+        if previous and (current_a <= previous[0] or volts <= previous[1]):
+            return (
+                f"points must increase in both current and voltage; point {index} "
+                f"{list(point)!r} does not exceed point {index - 1} {list(previous)!r}"
+            )
+        previous = (current_a, volts)
+    return None

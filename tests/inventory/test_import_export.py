@@ -1,0 +1,154 @@
+"""Site file import/export through the database: round trip, upsert in place, tap change
+events, atomicity of failed imports (a failed re-import leaves the site exactly as it was)."""
+
+from __future__ import annotations
+
+import copy
+import io
+import json
+
+import pytest
+from django.core.management import call_command
+from django.core.management.base import CommandError
+
+from inventory import models
+from inventory.selectors import site_document
+from inventory.services import SiteImportError, site_import
+from tests.inventory.docs import small_site
+
+pytestmark = pytest.mark.django_db
+
+
+def export(code: str = "TST") -> dict:
+    return site_document(models.Site.objects.get(code=code))
+
+
+def history_rows() -> int:
+    return sum(
+        m.history.model.objects.count()
+        for m in (models.Site, models.CurrentTransformer, models.Terminal, models.Wire,
+                  models.Device, models.DeviceInput, models.Switch, models.TapChange)
+    )
+
+
+def test_export_import_export_is_identical():
+    site_import(doc=small_site())
+    first = export()
+    result = site_import(doc=copy.deepcopy(first))
+    assert not result.changed
+    assert export() == first
+    assert json.dumps(export(), indent=2) == json.dumps(first, indent=2)
+
+
+def test_export_keeps_what_was_imported():
+    doc = small_site()
+    site_import(doc=doc)
+    out = export()
+    assert out["cts"][0]["terminals"] == {"X1": 0, "X2": 100, "X3": 150, "X4": 400, "X5": 600}
+    assert out["cts"][0]["in_use"] == ["X1", "X4"]
+    assert out["devices"][0]["inputs"][3]["burden_ohm"] == [0.05, 0.01]
+    assert {"from": "R-1:IN2", "to": "TB-1:N", "size": "12AWG", "length_ft": 6.5} in out["wires"]
+    assert out["switches"][0]["normal"] == "closed"
+    assert out["procedures"][0]["steps"] == doc["procedures"][0]["steps"]
+
+
+def test_reimport_updates_in_place_and_records_tap_change():
+    site_import(doc=small_site())
+    ct_pk = models.CurrentTransformer.objects.get(code="CB-1-A").pk
+    wire_pks = set(models.Wire.objects.values_list("pk", flat=True))
+    revision = models.Site.objects.get(code="TST").revision
+    doc = export()
+    doc["cts"][0]["in_use"] = ["X2", "X4"]
+    doc["wires"][0]["length_m"] = 95
+    result = site_import(doc=doc)
+    assert result.tap_changes == ["CB-1-A: X1-X4 -> X2-X4"]
+    assert models.CurrentTransformer.objects.get(code="CB-1-A").pk == ct_pk
+    assert set(models.Wire.objects.values_list("pk", flat=True)) == wire_pks
+    change = models.TapChange.objects.get(ct_id=ct_pk)
+    assert (change.from_tap, change.to_tap) == (["X1", "X4"], ["X2", "X4"])
+    assert models.Site.objects.get(code="TST").revision == revision + 1
+    out = export()
+    assert out["cts"][0]["in_use"] == ["X2", "X4"]
+    assert out["cts"][0]["tap_changes"][0]["from"] == ["X1", "X4"]
+    # The exported history re-imports without a second event.
+    assert not site_import(doc=out).changed
+    assert models.TapChange.objects.filter(ct_id=ct_pk).count() == 1
+
+
+def test_removed_objects_are_deleted():
+    site_import(doc=small_site())
+    doc = export()
+    doc["procedures"] = []
+    doc["switches"] = [s for s in doc["switches"] if s["code"] != "TS-1/T1"]
+    doc["wires"] = [w for w in doc["wires"] if "TS-1:T1R" not in (w["from"], w["to"])]
+    doc["links"] = [pair for pair in doc["links"] if "TS-1:T1L" not in pair]
+    site_import(doc=doc)
+    assert not models.Procedure.objects.exists()
+    assert not models.Switch.objects.filter(code="TS-1/T1").exists()
+    assert not models.Terminal.objects.filter(owner="TS-1", name="T1L").exists()
+
+
+def test_dry_run_writes_nothing():
+    result = site_import(doc=small_site(), dry_run=True)
+    assert result.created["current transformers"] == 3
+    assert not models.Site.objects.exists()
+    assert history_rows() == 0
+
+
+BAD_EDITS = [
+    # (edit, expected error lines) — each a record that must never be half-written.
+    (lambda d: d["cts"][0].update(in_use=["X1", "X9"]),
+     ["/cts/0/in_use/1: the CT has no terminal 'X9' (it has X1, X2, X3, X4, X5)"]),
+    (lambda d: d["wires"][0].update(length_m=-5),
+     ["/wires/0/length_m: must be greater than 0, got -5"]),
+    (lambda d: d["cts"][1].update(equipment="CB-9"),
+     ["/cts/1/equipment: unknown equipment 'CB-9'"]),
+]
+
+
+@pytest.mark.parametrize(("edit", "expected"), BAD_EDITS)
+def test_failed_reimport_leaves_site_exactly_as_it_was(edit, expected):
+    site_import(doc=small_site())
+    before, rows = export(), history_rows()
+    doc = copy.deepcopy(before)
+    doc["cts"][0]["in_use"] = ["X1", "X5"]  # a good change alongside the bad one
+    edit(doc)
+    with pytest.raises(SiteImportError) as info:
+        site_import(doc=doc)
+    assert info.value.errors == expected
+    assert export() == before
+    assert history_rows() == rows
+    assert not models.TapChange.objects.exists()
+
+
+def test_import_command_lists_every_error_and_exits_non_zero(tmp_path):
+    doc = small_site()
+    doc["wires"][0]["length_m"] = -5
+    doc["cts"][1]["equipment"] = "CB-9"
+    path = tmp_path / "bad.json"
+    path.write_text(json.dumps(doc))
+    err = io.StringIO()
+    with pytest.raises(CommandError, match="2 error"):
+        call_command("import_site", str(path), stderr=err)
+    assert err.getvalue().splitlines() == [
+        "/cts/1/equipment: unknown equipment 'CB-9'",
+        "/wires/0/length_m: must be greater than 0, got -5",
+    ]
+    assert not models.Site.objects.exists()
+
+
+def test_import_command_reports_malformed_json(tmp_path):
+    path = tmp_path / "broken.json"
+    path.write_text('{"format": "loopkeep.site/1", "site": {')
+    with pytest.raises(CommandError, match="line 1"):
+        call_command("import_site", str(path))
+    assert not models.Site.objects.exists()
+
+
+def test_export_command_prints_the_site_file(tmp_path):
+    site_import(doc=small_site())
+    out = io.StringIO()
+    call_command("export_site", "TST", stdout=out)
+    assert json.loads(out.getvalue()) == export()
+    with pytest.raises(CommandError, match="no site with code 'NOPE'"):
+        call_command("export_site", "NOPE")
