@@ -581,9 +581,13 @@ def _upsert(doc: dict, result: ImportResult, user: Any) -> None:
 
 
 def site_record_change(*, site_id: int) -> None:
-    """Mark a site's circuits as changed: its revision goes up in the same transaction, so every
-    result computed from the old revision is stale from the moment this commits."""
+    """Mark a site's circuits as changed, inside the caller's transaction: its revision goes
+    up (every result computed from the old revision is stale from the moment this commits) and
+    a recompute is requested (an outbox row, and the job scheduled on commit)."""
+    from analysis.services import recompute_request
+
     models.Site.objects.filter(pk=site_id).update(revision=F("revision") + 1)
+    recompute_request(site_id=site_id)
 
 
 @transaction.atomic

@@ -24,7 +24,7 @@ def excitation_error(points: Any) -> str | None:
     pairs, positive and strictly increasing in both."""
     if not isinstance(points, list) or len(points) < 2:
         return "excitation curve needs at least two [exciting current A, secondary V] points"
-    previous: tuple[float, float] | None = None
+    previous: list | None = None
     for index, point in enumerate(points):
         if (
             not isinstance(point, list | tuple)
@@ -40,5 +40,5 @@ def excitation_error(points: Any) -> str | None:
                 f"points must increase in both current and voltage; point {index} "
                 f"{list(point)!r} does not exceed point {index - 1} {list(previous)!r}"
             )
-        previous = (current_a, volts)
+        previous = list(point)
     return None

@@ -80,6 +80,7 @@ DATABASES = {
     )
 }
 if DATABASES["default"]["ENGINE"] == "django.db.backends.sqlite3":
+    VAR_DIR.mkdir(parents=True, exist_ok=True)
     # SQLite is the embedded default; WAL lets the in-process jobs read while a write commits.
     DATABASES["default"]["CONN_MAX_AGE"] = 0
     DATABASES["default"].setdefault("OPTIONS", {})

@@ -26,8 +26,16 @@ def export(code: str = "TST") -> dict:
 def history_rows() -> int:
     return sum(
         m.history.model.objects.count()
-        for m in (models.Site, models.CurrentTransformer, models.Terminal, models.Wire,
-                  models.Device, models.DeviceInput, models.Switch, models.TapChange)
+        for m in (
+            models.Site,
+            models.CurrentTransformer,
+            models.Terminal,
+            models.Wire,
+            models.Device,
+            models.DeviceInput,
+            models.Switch,
+            models.TapChange,
+        )
     )
 
 
@@ -97,12 +105,18 @@ def test_dry_run_writes_nothing():
 
 BAD_EDITS = [
     # (edit, expected error lines) — each a record that must never be half-written.
-    (lambda d: d["cts"][0].update(in_use=["X1", "X9"]),
-     ["/cts/0/in_use/1: the CT has no terminal 'X9' (it has X1, X2, X3, X4, X5)"]),
-    (lambda d: d["wires"][0].update(length_m=-5),
-     ["/wires/0/length_m: must be greater than 0, got -5"]),
-    (lambda d: d["cts"][1].update(equipment="CB-9"),
-     ["/cts/1/equipment: unknown equipment 'CB-9'"]),
+    (
+        lambda d: d["cts"][0].update(in_use=["X1", "X9"]),
+        ["/cts/0/in_use/1: the CT has no terminal 'X9' (it has X1, X2, X3, X4, X5)"],
+    ),
+    (
+        lambda d: d["wires"][0].update(length_m=-5),
+        ["/wires/0/length_m: must be greater than 0, got -5"],
+    ),
+    (
+        lambda d: d["cts"][1].update(equipment="CB-9"),
+        ["/cts/1/equipment: unknown equipment 'CB-9'"],
+    ),
 ]
 
 

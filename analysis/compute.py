@@ -1,0 +1,153 @@
+"""From site documents to result rows: the one place where the circuit engine and the ratings
+meet. Plain Python (no ORM); the jobs read documents with ``inventory.selectors.site_documents``
+and write what this returns.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from dataclasses import dataclass, field
+from typing import Any
+
+from analysis import engine
+from analysis.engine import ratings
+from analysis.engine.findings import Finding
+
+CASES = ("ground_fault", "phase_fault")
+
+
+@dataclass
+class SiteResults:
+    """Everything computed for one site, as plain rows (see the result models)."""
+
+    circuits: list[dict[str, Any]] = field(default_factory=list)
+    ct_cases: list[dict[str, Any]] = field(default_factory=list)
+    ct_reports: list[dict[str, Any]] = field(default_factory=list)
+    findings: list[dict[str, Any]] = field(default_factory=list)
+    verdicts: list[dict[str, Any]] = field(default_factory=list)
+
+
+def _finding_row(
+    f: Finding | dict, *, procedure: str | None = None, step: int | None = None
+) -> dict[str, Any]:
+    if isinstance(f, Finding):
+        row = f.to_json()
+        row["numbers"] = dict(f.numbers)
+    else:
+        row = {
+            k: f.get(k) for k in ("code", "severity", "ct", "device", "input", "circuit", "message")
+        }
+        row["numbers"] = dict(f.get("numbers") or {})
+    row.pop("phase", None)
+    row["procedure"] = procedure
+    row["step"] = step
+    return row
+
+
+def devices_fed_by(feeds: dict[str, set[str]]) -> dict[str, list[str]]:
+    """Invert device → CTs into CT → devices."""
+    fed: dict[str, list[str]] = {}
+    for device, cts in feeds.items():
+        for ct in cts:
+            fed.setdefault(ct, []).append(device)
+    return fed
+
+
+def ct_report(doc: dict, ct_code: str) -> dict[str, Any]:
+    """The CT report JSON of design.md for one CT of a site document (burdens from the nodal
+    solve of the site's circuits)."""
+    netlist = engine.build_netlist(doc)
+    if ct_code not in netlist.cts:
+        raise KeyError(f"no CT {ct_code!r} at site {doc['site']['code']}")
+    burdens = engine.ct_burdens(netlist)
+    fed = devices_fed_by(engine.input_feeds(netlist))
+    b = burdens[ct_code]
+    return ratings.build_ct_report(
+        doc,
+        ct_code,
+        burdens={"ground_fault": b.ground_fault, "phase_fault": b.phase_fault},
+        devices_fed=fed.get(ct_code, []),
+    )
+
+
+def compute_site(doc: dict) -> SiteResults:
+    """Burdens, ratings, static and normal-state findings, circuits and procedure verdicts of
+    one site document."""
+    out = SiteResults()
+    netlist = engine.build_netlist(doc)
+    analysis = engine.analyze_site(netlist)
+    burdens = {
+        code: {"ground_fault": b.ground_fault, "phase_fault": b.phase_fault}
+        for code, b in analysis.burdens.items()
+    }
+    feeds = analysis.feeds
+    fed = devices_fed_by(feeds)
+    for circuit in analysis.circuits:
+        devices = sorted({d for d, _ in circuit.device_inputs})
+        out.circuits.append(
+            {
+                "key": circuit.id,
+                "cts": list(circuit.cts),
+                "devices": devices,
+                "ground_points": len(circuit.ground_points),
+            }
+        )
+    for ct_code in netlist.cts:
+        report = ratings.build_ct_report(
+            doc,
+            ct_code,
+            burdens=burdens.get(ct_code, {}),
+            devices_fed=fed.get(ct_code, []),
+        )
+        out.ct_reports.append({"ct": ct_code, "report": report})
+        for case in CASES:
+            values = report["cases"].get(case) or {}
+            burden = values.get("burden_ohm") or {}
+            out.ct_cases.append(
+                {
+                    "ct": ct_code,
+                    "case": case,
+                    "burden_r_ohm": burden.get("r"),
+                    "burden_x_ohm": burden.get("x"),
+                    "burden_z_ohm": burden.get("z"),
+                    **{
+                        k: values.get(k)
+                        for k in (
+                            "fault_a",
+                            "secondary_fault_a",
+                            "x_over_r",
+                            "vx_required_v",
+                            "vx_available_v",
+                            "c37_110_index",
+                            "time_to_saturate_ms",
+                        )
+                    },
+                }
+            )
+    for f in ratings.site_static_findings(doc, burdens=burdens, feeds=feeds):
+        out.findings.append(_finding_row(f))
+    for f in analysis.normal_findings:
+        out.findings.append(_finding_row(f))
+    site_code = doc["site"]["code"]
+    for code, verdict in analysis.verdicts.items():
+        body = verdict.to_json(site_code) if hasattr(verdict, "to_json") else verdict
+        out.verdicts.append(
+            {
+                "procedure": code,
+                "safe": body["safe"],
+                "first_danger": body["first_danger"],
+                "verdict": body,
+            }
+        )
+        for step in body["steps"]:
+            if step["step"] == 0:
+                continue  # the initial state's findings are the normal-state ones above
+            for f in step["findings"]:
+                out.findings.append(_finding_row(f, procedure=code, step=step["step"]))
+    return out
+
+
+def compute_sites(docs: dict[int, dict] | Iterable[tuple[int, dict]]) -> dict[int, SiteResults]:
+    """``compute_site`` for many documents, keyed as given."""
+    items = docs.items() if isinstance(docs, dict) else docs
+    return {key: compute_site(doc) for key, doc in items}

@@ -1,0 +1,137 @@
+"""Plain-text renderings of the JSON bodies for the terminal (the ``--json`` form is the API's
+body, exactly). Text keeps the cautions: a crew may read this, not the JSON."""
+
+from __future__ import annotations
+
+import json
+from typing import Any
+
+
+def op_text(op: dict[str, Any] | None) -> str:
+    """One operation as a planner writes it: ``set TS-101/1 to open``."""
+    if op is None:
+        return "(initial state)"
+    if "set" in op:
+        return f"set {op['set']} to {op['to']}"
+    if "add_jumper" in op:
+        a, b = op["add_jumper"]
+        return f"add jumper {op.get('id', '')} {a} – {b}".replace("  ", " ")
+    if "note" in op:
+        return f"note: {op['note']}"
+    (name, value), *_ = op.items()
+    if isinstance(value, list):
+        value = " – ".join(value)
+    return f"{name.replace('_', ' ')} {value}"
+
+
+def _wrap(text: str, indent: str, width: int = 100) -> list[str]:
+    words, lines, line = text.split(), [], indent
+    for word in words:
+        if len(line) + len(word) + 1 > width and line.strip():
+            lines.append(line.rstrip())
+            line = indent
+        line += word + " "
+    if line.strip():
+        lines.append(line.rstrip())
+    return lines
+
+
+def findings_lines(findings: list[dict[str, Any]], indent: str = "      ") -> list[str]:
+    lines = []
+    for f in findings:
+        phase = f" [{f['phase']}]" if f.get("phase") else ""
+        lines.extend(_wrap(f"{f['severity'].upper()} {f['code']}{phase}: {f['message']}", indent))
+    return lines
+
+
+def cautions_lines(cautions: list[str]) -> list[str]:
+    lines = ["", "CAUTIONS"]
+    for caution in cautions:
+        lines.extend(_wrap("- " + caution, "  "))
+    return lines
+
+
+def verdict_text(verdict: dict[str, Any]) -> str:
+    """A procedure verdict as a step table."""
+    state = "SAFE" if verdict["safe"] else "UNSAFE"
+    lines = [f"Procedure {verdict['procedure']} at {verdict['site']}: {state}"]
+    danger = verdict.get("first_danger")
+    if danger:
+        lines.append(
+            f"first danger: step {danger['step']} ({danger['phase']}): {danger['code']}"
+            + (f" on {danger['ct']}" if danger.get("ct") else "")
+            + (f" / {danger['device']}" if danger.get("device") else "")
+        )
+    lines.append("")
+    lines.append(f"{'step':>4}  operation")
+    for step in verdict["steps"]:
+        mark = "!!" if any(f["severity"] == "danger" for f in step["findings"]) else "  "
+        lines.append(f"{step['step']:>4}{mark}{op_text(step['op'])}")
+        lines.extend(findings_lines(step["findings"]))
+    lines.extend(cautions_lines(verdict["cautions"]))
+    return "\n".join(lines)
+
+
+def plan_text(plan: dict[str, Any]) -> str:
+    """An isolation plan: isolate steps, restore steps, who else is affected."""
+    lines = [
+        f"Isolation plan for {plan['device']} at {plan['site']}: "
+        + ("possible" if plan["possible"] else "NOT POSSIBLE with the recorded provisions")
+    ]
+    if plan.get("reason"):
+        lines.extend(_wrap(str(plan["reason"]), "  "))
+    for key, title in (("isolate", "Isolate"), ("restore", "Restore")):
+        if plan.get(key):
+            lines.append("")
+            lines.append(f"{title}:")
+            for n, op in enumerate(plan[key], start=1):
+                lines.append(f"  {n:>2}. {op_text(op)}")
+    if plan.get("affected"):
+        lines.append("")
+        lines.append("Also affected:")
+        for item in plan["affected"]:
+            lines.extend(_wrap(item if isinstance(item, str) else json.dumps(item), "  - "))
+    for key in ("jumper_points", "needs_jumpers"):
+        if plan.get(key):
+            lines.append("")
+            lines.append("Temporary jumpers would be needed at:")
+            for item in plan[key]:
+                lines.append(f"  - {item if isinstance(item, str) else json.dumps(item)}")
+    if plan.get("verdict"):
+        lines.append("")
+        lines.append(
+            "Check of isolate + restore: " + ("safe" if plan["verdict"]["safe"] else "UNSAFE")
+        )
+    lines.extend(cautions_lines(plan["cautions"]))
+    return "\n".join(lines)
+
+
+def report_text(report: dict[str, Any]) -> str:
+    """A CT report."""
+    acc = report.get("accuracy") or {}
+    knee = report.get("knee_point_v") or {}
+    lines = [
+        f"CT {report['ct']} at {report['site']}",
+        f"  tap in use       {'-'.join(str(t) for t in report['tap'])}  ratio {report['ratio']}"
+        f"  turns {report['turns']}",
+        f"  winding at tap   {report.get('winding_ohm_at_tap')} Ω",
+        f"  accuracy         {acc.get('class')}: {acc.get('voltage_at_tap_v')} V at the tap,"
+        f" standard burden {acc.get('standard_burden_ohm_at_tap')} Ω",
+        f"  knee point       IEEE {knee.get('ieee')} V, IEC {knee.get('iec')} V",
+    ]
+    for case, values in (report.get("cases") or {}).items():
+        burden = values.get("burden_ohm") or {}
+        lines.append(f"  {case.replace('_', ' ')}:")
+        lines.append(
+            f"    burden {burden.get('z')} Ω (R {burden.get('r')}, X {burden.get('x')});"
+            f" fault {values.get('fault_a')} A primary, {values.get('secondary_fault_a')} A"
+            f" secondary, X/R {values.get('x_over_r')}"
+        )
+        lines.append(
+            f"    C37.110 index {values.get('c37_110_index')} (limit 20); Vx required"
+            f" {values.get('vx_required_v')} V, available {values.get('vx_available_v')} V;"
+            f" time to saturate {values.get('time_to_saturate_ms')} ms"
+        )
+    lines.append("  findings:")
+    lines.extend(findings_lines(report.get("findings") or [], indent="    ") or ["    none"])
+    return "\n".join(lines)
