@@ -7,6 +7,7 @@ transaction, so the results computed from the old record become stale and are re
 
 from __future__ import annotations
 
+from django import forms
 from django.contrib import admin
 from simple_history.admin import SimpleHistoryAdmin
 
@@ -84,6 +85,7 @@ class CTTerminalInline(admin.TabularInline):
     model = models.Terminal
     fk_name = "ct"
     fields = ("name", "position_a", "tap_role")
+    readonly_fields = ("tap_role",)  # changed through the tap fields, which record the event
     extra = 0
     verbose_name = "terminal (position on the winding)"
     verbose_name_plural = "terminals and tap in use"
@@ -96,8 +98,35 @@ class TapChangeInline(admin.TabularInline):
     ordering = ("changed_at",)
 
 
+class CurrentTransformerForm(forms.ModelForm):
+    """The CT form with the tap in use as two terminal names; a change is saved through
+    ``services.ct_change_tap`` so it is recorded as a tap change event."""
+
+    tap_first = forms.CharField(
+        required=False, max_length=30, help_text="first terminal in use (current leaves it)"
+    )
+    tap_second = forms.CharField(required=False, max_length=30)
+    tap_reason = forms.CharField(
+        required=False, max_length=200, help_text="work order or reason for a tap change"
+    )
+
+    class Meta:
+        model = models.CurrentTransformer
+        fields = "__all__"
+
+    def __init__(self, *args, **kwargs):
+        super().__init__(*args, **kwargs)
+        if self.instance.pk:
+            roles = dict(
+                self.instance.ct_terminals.exclude(tap_role="").values_list("tap_role", "name")
+            )
+            self.fields["tap_first"].initial = roles.get("first", "")
+            self.fields["tap_second"].initial = roles.get("second", "")
+
+
 @admin.register(models.CurrentTransformer)
 class CurrentTransformerAdmin(RecordAdmin):
+    form = CurrentTransformerForm
     list_display = ("code", "site", "equipment", "phase", "set_name", "secondary_a", "accuracy")
     list_filter = ("site", "phase", "secondary_a", "accuracy")
     search_fields = ("code", "set_name", "equipment__code", "site__code", "nameplate")
@@ -119,8 +148,27 @@ class CurrentTransformerAdmin(RecordAdmin):
                 )
             },
         ),
+        ("Tap in use", {"fields": ("tap_first", "tap_second", "tap_reason")}),
         ("Nameplate", {"fields": ("nameplate",)}),
     )
+
+    def save_related(self, request, form, formsets, change) -> None:
+        super().save_related(request, form, formsets, change)
+        first, second = form.cleaned_data.get("tap_first"), form.cleaned_data.get("tap_second")
+        if (
+            first
+            and second
+            and (
+                first != form.fields["tap_first"].initial
+                or second != form.fields["tap_second"].initial
+            )
+        ):
+            services.ct_change_tap(
+                ct=form.instance,
+                to=(first, second),
+                by=request.user.get_username(),
+                reason=form.cleaned_data.get("tap_reason") or "edited in the admin",
+            )
 
     def save_formset(self, request, form, formset, change) -> None:
         if formset.model is not models.Terminal:
