@@ -112,7 +112,21 @@ class CurrentTransformerForm(forms.ModelForm):
 
     class Meta:
         model = models.CurrentTransformer
-        fields = "__all__"
+        fields = (
+            "site",
+            "code",
+            "equipment",
+            "phase",
+            "set_name",
+            "secondary_a",
+            "accuracy",
+            "rated_burden_va",
+            "knee_v",
+            "winding_ohm",
+            "rating_factor",
+            "excitation",
+            "nameplate",
+        )
 
     def __init__(self, *args, **kwargs):
         super().__init__(*args, **kwargs)
