@@ -6,6 +6,7 @@ from __future__ import annotations
 import copy
 import io
 import json
+from pathlib import Path
 
 import pytest
 from django.core.management import call_command
@@ -14,6 +15,7 @@ from django.core.management.base import CommandError
 from inventory import models
 from inventory.selectors import site_document
 from inventory.services import SiteImportError, site_import
+from inventory.sitefile.validate import load_site_file
 from tests.inventory.docs import small_site
 
 pytestmark = pytest.mark.django_db
@@ -46,6 +48,24 @@ def test_export_import_export_is_identical():
     assert not result.changed
     assert export() == first
     assert json.dumps(export(), indent=2) == json.dumps(first, indent=2)
+
+
+DEMO_FILES = sorted((Path(__file__).resolve().parents[2] / "fixtures" / "demo").glob("*.json"))
+
+
+@pytest.mark.parametrize("path", DEMO_FILES, ids=lambda p: p.stem)
+def test_demo_site_round_trip_is_identical(path):
+    assert DEMO_FILES, "the demo sites are missing"
+    result = site_import(doc=load_site_file(path))
+    first = export(result.site)
+    assert not site_import(doc=copy.deepcopy(first)).changed
+    assert json.dumps(export(result.site), indent=2) == json.dumps(first, indent=2)
+    shipped = load_site_file(path)
+    assert len(first["cts"]) == len(shipped["cts"])
+    assert len(first["wires"]) == len(shipped["wires"])
+    assert sorted(p["code"] for p in first["procedures"]) == sorted(
+        p["code"] for p in shipped["procedures"]
+    )
 
 
 def test_export_keeps_what_was_imported():
