@@ -151,3 +151,26 @@ def compute_sites(docs: dict[int, dict] | Iterable[tuple[int, dict]]) -> dict[in
     """``compute_site`` for many documents, keyed as given."""
     items = docs.items() if isinstance(docs, dict) else docs
     return {key: compute_site(doc) for key, doc in items}
+
+
+def ct_plots(doc: dict, ct_code: str, fmt: str = "png") -> dict[str, bytes]:
+    """The CT's plots as image bytes: ``excitation`` (when it has a curve) and ``burden``."""
+    from analysis import plots
+
+    netlist = engine.build_netlist(doc)
+    if ct_code not in netlist.cts:
+        raise KeyError(f"no CT {ct_code!r} at site {doc['site']['code']}")
+    b = engine.ct_burdens(netlist)[ct_code]
+    burdens = {"ground_fault": b.ground_fault, "phase_fault": b.phase_fault}
+    report = ratings.build_ct_report(doc, ct_code, burdens=burdens, devices_fed=[])
+    out: dict[str, bytes] = {}
+    inputs = ratings.excitation_plot_inputs(doc, ct_code, burdens=burdens)
+    if inputs is not None:
+        out["excitation"] = plots.excitation_plot(inputs, fmt)
+    out["burden"] = plots.burden_plot(
+        [(e.label, e.kind, e.z_ohm) for e in b.elements],
+        report["winding_ohm_at_tap"],
+        fmt,
+        title=f"{doc['site']['code']} {ct_code}: burden by element (ground-fault case)",
+    )
+    return out

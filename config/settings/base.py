@@ -8,6 +8,7 @@ import os
 from pathlib import Path
 
 import dj_database_url
+from celery.schedules import crontab
 
 BASE_DIR = Path(__file__).resolve().parent.parent.parent
 VAR_DIR = Path(os.environ.get("LOOPKEEP_VAR_DIR", BASE_DIR / "var"))
@@ -122,13 +123,36 @@ SPECTACULAR_SETTINGS = {
 CELERY_BROKER_URL = os.environ.get("CELERY_BROKER_URL", "")
 CELERY_TASK_ALWAYS_EAGER = not CELERY_BROKER_URL
 CELERY_TASK_EAGER_PROPAGATES = True
+# A task is acknowledged when it ends, one message at a time per worker process, and requeued
+# if its process dies: every task is idempotent, so a redelivery only repeats work.
 CELERY_TASK_ACKS_LATE = True
+CELERY_TASK_REJECT_ON_WORKER_LOST = True
 CELERY_WORKER_PREFETCH_MULTIPLIER = 1
 CELERY_TASK_TIME_LIMIT = 30 * 60
 CELERY_TASK_SOFT_TIME_LIMIT = 25 * 60
 CELERY_RESULT_BACKEND = os.environ.get("CELERY_RESULT_BACKEND") or None
+CELERY_TASK_IGNORE_RESULT = not CELERY_RESULT_BACKEND
 CELERY_BROKER_CONNECTION_RETRY_ON_STARTUP = True
+CELERY_BROKER_CONNECTION_TIMEOUT = 4
+# The visibility timeout must exceed the longest task (an unacked message comes back after it).
 CELERY_BROKER_TRANSPORT_OPTIONS = {"visibility_timeout": 3600}
+# A send during a broker outage gives up after about a second: the outbox row stays pending and
+# the sweep sends it again, so the edit that asked for it is not held up.
+CELERY_TASK_PUBLISH_RETRY_POLICY = {
+    "max_retries": 2,
+    "interval_start": 0,
+    "interval_step": 0.5,
+    "interval_max": 0.5,
+}
+CELERY_WORKER_MAX_MEMORY_PER_CHILD = int(os.environ.get("CELERY_WORKER_MAX_MEMORY_KB", "1000000"))
+CELERY_BEAT_SCHEDULE = {
+    "send-pending-recompute-requests": {"task": "analysis.sweep_requests", "schedule": 60.0},
+    "recompute-fleet-nightly": {
+        "task": "analysis.recompute_fleet",
+        "schedule": crontab(hour=2, minute=15),
+    },
+}
+LOOPKEEP_RECOMPUTE_CHUNK_SITES = int(os.environ.get("LOOPKEEP_RECOMPUTE_CHUNK_SITES", "10"))
 
 LOGGING = {
     "version": 1,

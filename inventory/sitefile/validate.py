@@ -732,7 +732,6 @@ class _SenseChecker:
                 else:
                     last_at = (index, moment)
 
-
     def check_devices(self) -> None:
         for index, device in _items(self.doc, "devices"):
             where = ("devices", index)
