@@ -76,10 +76,7 @@ def compute_site(doc: dict) -> SiteResults:
     out = SiteResults()
     netlist = engine.build_netlist(doc)
     analysis = engine.analyze_site(netlist)
-    burdens = {
-        code: {"ground_fault": b.ground_fault, "phase_fault": b.phase_fault}
-        for code, b in analysis.burdens.items()
-    }
+    burdens = analysis.burden_map()
     feeds = analysis.feeds
     fed = devices_fed_by(feeds)
     for circuit in analysis.circuits:
@@ -126,8 +123,24 @@ def compute_site(doc: dict) -> SiteResults:
             )
     for f in ratings.site_static_findings(doc, burdens=burdens, feeds=feeds):
         out.findings.append(_finding_row(f))
-    for f in analysis.normal_findings:
+    for f in analysis.findings:
         out.findings.append(_finding_row(f))
+    for code, error in analysis.procedure_errors.items():
+        # A stored procedure that cannot be simulated is never shown as safe.
+        out.findings.append(
+            {
+                "code": "missing_data",
+                "severity": "notice",
+                "ct": None,
+                "device": None,
+                "input": None,
+                "circuit": None,
+                "procedure": code,
+                "step": None,
+                "message": f"procedure {code} could not be checked: {error}",
+                "numbers": {},
+            }
+        )
     site_code = doc["site"]["code"]
     for code, verdict in analysis.verdicts.items():
         body = verdict.to_json(site_code) if hasattr(verdict, "to_json") else verdict
