@@ -77,8 +77,7 @@ def compute_site(doc: dict) -> SiteResults:
     netlist = engine.build_netlist(doc)
     analysis = engine.analyze_site(netlist)
     burdens = analysis.burden_map()
-    feeds = analysis.feeds
-    fed = devices_fed_by(feeds)
+    rated = ratings.site_ratings(doc, burdens=burdens, feeds=analysis.feeds)
     for circuit in analysis.circuits:
         devices = sorted({d for d, _ in circuit.device_inputs})
         out.circuits.append(
@@ -89,13 +88,7 @@ def compute_site(doc: dict) -> SiteResults:
                 "ground_points": len(circuit.ground_points),
             }
         )
-    for ct_code in netlist.cts:
-        report = ratings.build_ct_report(
-            doc,
-            ct_code,
-            burdens=burdens.get(ct_code, {}),
-            devices_fed=fed.get(ct_code, []),
-        )
+    for ct_code, report in rated.reports.items():
         out.ct_reports.append({"ct": ct_code, "report": report})
         for case in CASES:
             values = report["cases"].get(case) or {}
@@ -121,7 +114,7 @@ def compute_site(doc: dict) -> SiteResults:
                     },
                 }
             )
-    for f in ratings.site_static_findings(doc, burdens=burdens, feeds=feeds):
+    for f in rated.findings:
         out.findings.append(_finding_row(f))
     for f in analysis.findings:
         out.findings.append(_finding_row(f))

@@ -24,8 +24,10 @@ def op_text(op: dict[str, Any] | None) -> str:
     return f"{name.replace('_', ' ')} {value}"
 
 
-def _wrap(text: str, indent: str, width: int = 100) -> list[str]:
-    words, lines, line = text.split(), [], indent
+def _wrap(text: str, indent: str, width: int = 100, *, first: str | None = None) -> list[str]:
+    """Word-wrap ``text``; the first line starts with ``first`` (default: ``indent``)."""
+    words, lines = text.split(), []
+    line = indent if first is None else first
     for word in words:
         if len(line) + len(word) + 1 > width and line.strip():
             lines.append(line.rstrip())
@@ -47,7 +49,7 @@ def findings_lines(findings: list[dict[str, Any]], indent: str = "      ") -> li
 def cautions_lines(cautions: list[str]) -> list[str]:
     lines = ["", "CAUTIONS"]
     for caution in cautions:
-        lines.extend(_wrap("- " + caution, "  "))
+        lines.extend(_wrap(caution, "    ", first="  - "))
     return lines
 
 
@@ -90,7 +92,8 @@ def plan_text(plan: dict[str, Any]) -> str:
         lines.append("")
         lines.append("Also affected:")
         for item in plan["affected"]:
-            lines.extend(_wrap(item if isinstance(item, str) else json.dumps(item), "  - "))
+            text = item.get("message") or json.dumps(item) if isinstance(item, dict) else item
+            lines.extend(_wrap(str(text), "    ", first="  - "))
     for key in ("jumper_points", "needs_jumpers"):
         if plan.get(key):
             lines.append("")
@@ -130,7 +133,11 @@ def report_text(report: dict[str, Any]) -> str:
         lines.append(
             f"    C37.110 index {values.get('c37_110_index')} (limit 20); Vx required"
             f" {values.get('vx_required_v')} V, available {values.get('vx_available_v')} V;"
-            f" time to saturate {values.get('time_to_saturate_ms')} ms"
+            + (
+                f" time to saturate {values['time_to_saturate_ms']} ms"
+                if values.get("time_to_saturate_ms") is not None
+                else " no saturation expected"
+            )
         )
     lines.append("  findings:")
     lines.extend(findings_lines(report.get("findings") or [], indent="    ") or ["    none"])

@@ -16,6 +16,7 @@ from analysis.engine.nodal import (
     CTBurden,
     burden_map,
     ct_burdens,
+    ct_burdens_many,
     find_circuits,
     input_feeds,
 )
@@ -46,6 +47,7 @@ __all__ = [
     "check_operations",
     "check_procedure",
     "ct_burdens",
+    "ct_burdens_many",
     "find_circuits",
     "input_feeds",
     "normal_findings",

@@ -48,8 +48,14 @@ SEVERITY: dict[str, str] = {
 # Findings that belong to a circuit state (checked in every step of a procedure); the others
 # are static (settings and ratings) and belong to the CT report and the findings list.
 STATE_CODES = frozenset(
-    {OPEN_SECONDARY, TRIP_NOT_ISOLATED, INPUT_BYPASSED, PARTIAL_WINDING_SHORT, NO_GROUND,
-     MULTIPLE_GROUNDS}
+    {
+        OPEN_SECONDARY,
+        TRIP_NOT_ISOLATED,
+        INPUT_BYPASSED,
+        PARTIAL_WINDING_SHORT,
+        NO_GROUND,
+        MULTIPLE_GROUNDS,
+    }
 )
 
 

@@ -864,11 +864,6 @@ DEMO_VERDICTS = [
         "orrinvale.json",
         "P-L2-OUTAGE",
         None,
-        marks=pytest.mark.xfail(
-            reason="engine reads the load current that returns on 'energize' as a false "
-            "operating quantity (trip_not_isolated); reported to the engine owner",
-            strict=False,
-        ),
     ),
 ]
 

@@ -1,0 +1,583 @@
+"""The netlist of one site: the ``loopkeep.site/1`` dict turned into indexed elements.
+
+Every terminal ``OWNER:NAME`` gets an integer index. Elements keep their terminals as indices
+so that the topology and the nodal solve (``topology.py``, ``nodal.py``) work on numpy arrays:
+
+- zero-impedance elements: links (liftable), switch contacts (closed in some positions),
+  procedure jumpers (added in a state);
+- impedance branches: wires (resistance from ``r_ohm`` or from the conductor table at the site's
+  design temperature) and device current inputs (``burden_va`` at ``rated_a`` with ``pf``, i.e.
+  |Z| = VA / I² at the angle acos(pf), or ``burden_ohm: [R, X]``);
+- CTs: ideal current sources between their first and second terminal in use (the current
+  leaves the first), with every terminal position of the winding present as a node;
+- grounds: terminals bonded to station ground.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field
+from functools import cached_property
+from typing import Any
+
+import numpy as np
+
+FT_TO_M = 0.3048
+# A branch whose impedance is below this is a zero-impedance connection (merged, not solved).
+ZERO_OHM = 1e-9
+# An input without a usable burden still has to carry a computable current, so it gets a small
+# resistive burden (the ratings engineer reports the missing value as missing_data).
+MIN_INPUT_OHM = 1e-4
+DEFAULT_DESIGN_TEMP_C = 75.0
+
+PHASE_ANGLE_DEG: dict[str, float] = {"A": 0.0, "B": -120.0, "C": 120.0}
+
+
+@dataclass(slots=True, eq=False)
+class Link:
+    """A zero-impedance connection (jumper bar, shorting bar) that a procedure may lift."""
+
+    index: int
+    a: int
+    b: int
+    ends: tuple[str, str]
+
+
+@dataclass(slots=True, eq=False)
+class Wire:
+    """One conductor run between two terminals."""
+
+    index: int
+    a: int
+    b: int
+    r_ohm: float
+    ends: tuple[str, str]
+
+    @property
+    def label(self) -> str:
+        return f"lead {self.ends[0]}–{self.ends[1]}"
+
+
+@dataclass(slots=True, eq=False)
+class Contact:
+    """One contact of a switch: joins two terminals in the positions of ``closed_in``."""
+
+    index: int  # global contact index
+    a: int
+    b: int
+    closed_in: frozenset[str]
+
+
+@dataclass(slots=True, eq=False)
+class Switch:
+    """An isolation or shorting provision with ordered positions."""
+
+    code: str
+    kind: str
+    positions: tuple[str, ...]
+    normal: str
+    transition: str
+    contacts: tuple[Contact, ...]
+    _closed: dict[str, frozenset[int]] = field(default_factory=dict, repr=False)
+
+    def closed(self, position: str) -> frozenset[int]:
+        """Global indices of the contacts closed in ``position``."""
+        hit = self._closed.get(position)
+        if hit is None:
+            hit = self._closed[position] = frozenset(
+                c.index for c in self.contacts if position in c.closed_in
+            )
+        return hit
+
+
+@dataclass(slots=True, eq=False)
+class DeviceInput:
+    """A current input of a device; ``index`` is its position in ``Netlist.inputs``."""
+
+    index: int
+    device: str
+    name: str
+    a: int
+    b: int
+    z_ohm: complex
+    rated_a: float | None
+
+    @property
+    def label(self) -> str:
+        return f"{self.device} {self.name}"
+
+
+@dataclass(slots=True, eq=False)
+class DeviceOutput:
+    """A trip/close output and the target terminal it operates."""
+
+    index: int
+    device: str
+    name: str
+    terminal: int
+    target: int
+
+
+@dataclass(slots=True, eq=False)
+class Device:
+    """A relay, meter, transducer or recorder."""
+
+    code: str
+    kind: str
+    functions: tuple[str, ...]
+    ratio_setting: str | None
+    inputs: tuple[DeviceInput, ...]
+    outputs: tuple[DeviceOutput, ...]
+
+    @property
+    def differential(self) -> bool:
+        return any(str(f).upper().startswith("87") for f in self.functions)
+
+    @property
+    def is_relay(self) -> bool:
+        return self.kind == "relay"
+
+
+@dataclass(slots=True, eq=False)
+class CT:
+    """A CT winding. ``load_secondary_a`` is the secondary current at the equipment's maximum
+    load through the tap in use (1 A where the load or the ratio is unknown)."""
+
+    index: int
+    code: str
+    equipment: str | None
+    phase: str | None
+    set_name: str | None
+    secondary_a: float
+    positions: dict[str, float]
+    terminals: dict[str, int]
+    in_use: tuple[str, str]
+    first: int
+    second: int
+    tap_primary_a: float
+    load_secondary_a: float
+
+    @property
+    def angle_deg(self) -> float:
+        return PHASE_ANGLE_DEG.get((self.phase or "A").upper(), 0.0)
+
+    @property
+    def phasor(self) -> complex:
+        """Unit phasor of the CT's phase (A 0°, B -120°, C +120°; others 0°)."""
+        rad = math.radians(self.angle_deg)
+        return complex(math.cos(rad), math.sin(rad))
+
+    @property
+    def ratio_text(self) -> str:
+        return f"{self.tap_primary_a:g}:{self.secondary_a:g}"
+
+
+@dataclass(slots=True, eq=False)
+class Equipment:
+    """Primary equipment; its CTs are live while it is energized."""
+
+    code: str
+    kind: str
+    in_service: bool
+    max_load_a: float | None
+
+
+@dataclass(slots=True, eq=False)
+class Procedure:
+    """A stored procedure: its operations and the devices the work is for."""
+
+    code: str
+    title: str
+    author: str | None
+    devices: tuple[str, ...]
+    steps: tuple[dict[str, Any], ...]
+
+
+@dataclass(eq=False)
+class Netlist:
+    """One site (or one region of it) as indexed elements. Build it with ``build_netlist``."""
+
+    site_code: str
+    design_temp_c: float
+    terminals: list[str]
+    index: dict[str, int]
+    links: tuple[Link, ...]
+    wires: tuple[Wire, ...]
+    switches: dict[str, Switch]
+    devices: dict[str, Device]
+    inputs: tuple[DeviceInput, ...]
+    outputs: tuple[DeviceOutput, ...]
+    cts: dict[str, CT]
+    equipment: dict[str, Equipment]
+    grounds: tuple[int, ...]
+    procedures: dict[str, Procedure]
+    terminal_blocks: frozenset[str] = frozenset()
+    doc: dict[str, Any] | None = field(default=None, repr=False)
+    cache: dict[str, Any] = field(default_factory=dict, repr=False)
+
+    @property
+    def n_terminals(self) -> int:
+        return len(self.terminals)
+
+    @cached_property
+    def ct_list(self) -> tuple[CT, ...]:
+        return tuple(self.cts.values())
+
+    @cached_property
+    def input_keys(self) -> list[tuple[str, str]]:
+        """(device, input name) of every input, in ``inputs`` order."""
+        return [(i.device, i.name) for i in self.inputs]
+
+    @cached_property
+    def contacts(self) -> tuple[Contact, ...]:
+        return tuple(c for s in self.switches.values() for c in s.contacts)
+
+    @cached_property
+    def arrays(self) -> NetArrays:
+        return NetArrays.of(self)
+
+    def owner(self, terminal: int) -> str:
+        return self.terminals[terminal].split(":", 1)[0]
+
+
+@dataclass(frozen=True, eq=False)
+class NetArrays:
+    """numpy views of a netlist, shared by every solve."""
+
+    link_a: np.ndarray
+    link_b: np.ndarray
+    contact_a: np.ndarray
+    contact_b: np.ndarray
+    # branches: the wires first, then the device inputs
+    br_a: np.ndarray
+    br_b: np.ndarray
+    br_z: np.ndarray
+    br_zero: np.ndarray
+    n_wires: int
+    ct_first: np.ndarray
+    ct_second: np.ndarray
+    ct_load: np.ndarray  # complex secondary load phasor of each CT
+    ct_phasor: np.ndarray
+    wind_a: np.ndarray  # winding edges between consecutive terminal positions
+    wind_b: np.ndarray
+    grounds: np.ndarray
+    ct_set: np.ndarray  # index of each CT's three-phase set (-1: none, or a neutral CT)
+    n_sets: int
+    input_a: np.ndarray
+    out_terminal: np.ndarray
+    out_target: np.ndarray
+
+    @classmethod
+    def of(cls, nl: Netlist) -> NetArrays:
+        def arr(values: list[int]) -> np.ndarray:
+            return np.asarray(values, dtype=np.int64)
+
+        n_ct = len(nl.ct_list)
+        angle = np.fromiter(
+            (PHASE_ANGLE_DEG.get((c.phase or "A").upper(), 0.0) for c in nl.ct_list),
+            dtype=np.float64,
+            count=n_ct,
+        )
+        ct_phasor = np.exp(1j * np.radians(angle))
+        set_ids: dict[str, int] = {}
+        ct_set = np.fromiter(
+            (
+                set_ids.setdefault(c.set_name, len(set_ids))
+                if c.set_name is not None and (c.phase or "") != "N"
+                else -1
+                for c in nl.ct_list
+            ),
+            dtype=np.int64,
+            count=n_ct,
+        )
+        zs = [w.r_ohm + 0j for w in nl.wires] + [i.z_ohm for i in nl.inputs]
+        br_z = np.asarray(zs, dtype=np.complex128)
+        wa: list[int] = []
+        wb: list[int] = []
+        for ct in nl.ct_list:
+            order = sorted(ct.terminals, key=lambda n: (ct.positions[n], n))
+            for p, q in itertools.pairwise(order):
+                wa.append(ct.terminals[p])
+                wb.append(ct.terminals[q])
+            if len(order) < 2:
+                wa.append(ct.first)
+                wb.append(ct.second)
+        return cls(
+            link_a=arr([k.a for k in nl.links]),
+            link_b=arr([k.b for k in nl.links]),
+            contact_a=arr([c.a for c in nl.contacts]),
+            contact_b=arr([c.b for c in nl.contacts]),
+            br_a=arr([w.a for w in nl.wires] + [i.a for i in nl.inputs]),
+            br_b=arr([w.b for w in nl.wires] + [i.b for i in nl.inputs]),
+            br_z=br_z,
+            br_zero=np.abs(br_z) < ZERO_OHM,
+            n_wires=len(nl.wires),
+            ct_first=arr([c.first for c in nl.ct_list]),
+            ct_second=arr([c.second for c in nl.ct_list]),
+            ct_load=ct_phasor
+            * np.fromiter((c.load_secondary_a for c in nl.ct_list), dtype=np.float64, count=n_ct),
+            ct_phasor=ct_phasor,
+            wind_a=arr(wa),
+            wind_b=arr(wb),
+            grounds=arr(list(nl.grounds)),
+            ct_set=ct_set,
+            n_sets=len(set_ids),
+            input_a=arr([i.a for i in nl.inputs]),
+            out_terminal=arr([o.terminal for o in nl.outputs]),
+            out_target=arr([o.target for o in nl.outputs]),
+        )
+
+
+def _input_z_ohm(spec: dict[str, Any]) -> complex:
+    """Device input impedance from ``burden_ohm`` [R, X] or ``burden_va`` at ``rated_a``, ``pf``.
+
+    |Z| = S / I² (S in VA at the rated current I), R = |Z|·pf, X = |Z|·sin(acos pf), the usual
+    conversion of a burden stated in VA (IEEE C57.13 burdens are stated this way).
+    """
+    if spec.get("burden_ohm") is not None:
+        r, x = spec["burden_ohm"]
+        z = complex(float(r), float(x))
+    elif spec.get("burden_va") is not None:
+        rated_a = float(spec.get("rated_a") or 5.0)
+        pf = float(spec.get("pf", 1.0) if spec.get("pf") is not None else 1.0)
+        pf = min(max(pf, 0.0), 1.0)
+        mag = float(spec["burden_va"]) / (rated_a * rated_a)
+        z = complex(mag * pf, mag * math.sqrt(max(0.0, 1.0 - pf * pf)))
+    else:
+        z = complex(MIN_INPUT_OHM, 0.0)
+    if abs(z) < MIN_INPUT_OHM:
+        z = complex(MIN_INPUT_OHM, 0.0)
+    return z
+
+
+def _wire_r_ohm(spec: dict[str, Any], temp_c: float, where: str) -> float:
+    if spec.get("r_ohm") is not None:
+        return float(spec["r_ohm"])
+    if spec.get("length_m") is not None:
+        length_m = float(spec["length_m"])
+    elif spec.get("length_ft") is not None:
+        length_m = float(spec["length_ft"]) * FT_TO_M
+    else:
+        raise ValueError(f"{where}: wire needs r_ohm, or size with length_m or length_ft")
+    if not spec.get("size"):
+        raise ValueError(f"{where}: wire has a length but no size")
+    # Imported here: the conductor table is a separate module and only needed for sized wires.
+    from analysis.engine.conductors import wire_resistance_ohm
+
+    return float(
+        wire_resistance_ohm(
+            size=str(spec["size"]),
+            length_m=length_m,
+            material=str(spec.get("material") or "cu"),
+            temp_c=temp_c,
+        )
+    )
+
+
+def build_netlist(doc: dict[str, Any]) -> Netlist:
+    """Turn a ``loopkeep.site/1`` dict into a ``Netlist``.
+
+    Terminals are created as they are referenced. Wire resistances come from ``r_ohm`` or from
+    ``conductors.wire_resistance_ohm`` at the site's ``design_temp_c`` (``length_ft`` × 0.3048).
+    Raises ``ValueError`` naming the JSON pointer of an element that cannot be built.
+    """
+    site = doc.get("site") or {}
+    temp_c = float(site.get("design_temp_c") or DEFAULT_DESIGN_TEMP_C)
+    terminals: list[str] = []
+    index: dict[str, int] = {}
+
+    def term(name: Any, where: str) -> int:
+        if not isinstance(name, str) or ":" not in name:
+            raise ValueError(f"{where}: terminal {name!r} is not of the form OWNER:NAME")
+        i = index.get(name)
+        if i is None:
+            i = index[name] = len(terminals)
+            terminals.append(name)
+        return i
+
+    equipment: dict[str, Equipment] = {}
+    for e in doc.get("equipment") or []:
+        code = str(e["code"])
+        load = e.get("max_load_a")
+        equipment[code] = Equipment(
+            code=code,
+            kind=str(e.get("kind") or "other"),
+            in_service=bool(e.get("in_service", True)),
+            max_load_a=float(load) if load is not None else None,
+        )
+
+    cts: dict[str, CT] = {}
+    for k, c in enumerate(doc.get("cts") or []):
+        where = f"/cts/{k}"
+        code = str(c["code"])
+        positions = {str(n): float(p) for n, p in (c.get("terminals") or {}).items()}
+        in_use_raw = c.get("in_use") or list(positions)[:2]
+        if len(in_use_raw) != 2:
+            raise ValueError(f"{where}/in_use: needs exactly two terminals")
+        in_use = (str(in_use_raw[0]), str(in_use_raw[1]))
+        for n in in_use:
+            if n not in positions:
+                positions[n] = 0.0 if not positions else max(positions.values())
+        tidx = {n: term(f"{code}:{n}", f"{where}/terminals/{n}") for n in positions}
+        secondary_a = float(c.get("secondary_a") or 5.0)
+        tap_a = abs(positions[in_use[0]] - positions[in_use[1]])
+        eq = equipment.get(str(c.get("equipment"))) if c.get("equipment") else None
+        if eq is not None and eq.max_load_a is not None and tap_a > 0:
+            load_a = eq.max_load_a * secondary_a / tap_a
+        else:
+            load_a = 1.0
+        cts[code] = CT(
+            index=len(cts),
+            code=code,
+            equipment=str(c["equipment"]) if c.get("equipment") else None,
+            phase=str(c["phase"]).upper() if c.get("phase") else None,
+            set_name=str(c["set"]) if c.get("set") else None,
+            secondary_a=secondary_a,
+            positions=positions,
+            terminals=tidx,
+            in_use=in_use,
+            first=tidx[in_use[0]],
+            second=tidx[in_use[1]],
+            tap_primary_a=tap_a,
+            load_secondary_a=load_a,
+        )
+
+    devices: dict[str, Device] = {}
+    inputs: list[DeviceInput] = []
+    outputs: list[DeviceOutput] = []
+    for k, d in enumerate(doc.get("devices") or []):
+        where = f"/devices/{k}"
+        code = str(d["code"])
+        dins: list[DeviceInput] = []
+        for m, spec in enumerate(d.get("inputs") or []):
+            w = f"{where}/inputs/{m}"
+            rated = spec.get("rated_a")
+            di = DeviceInput(
+                index=len(inputs),
+                device=code,
+                name=str(spec.get("name") or f"I{m + 1}"),
+                a=term(spec.get("from"), f"{w}/from"),
+                b=term(spec.get("to"), f"{w}/to"),
+                z_ohm=_input_z_ohm(spec),
+                rated_a=float(rated) if rated is not None else None,
+            )
+            inputs.append(di)
+            dins.append(di)
+        douts: list[DeviceOutput] = []
+        for m, spec in enumerate(d.get("outputs") or []):
+            w = f"{where}/outputs/{m}"
+            do = DeviceOutput(
+                index=len(outputs),
+                device=code,
+                name=str(spec.get("name") or f"OUT{m + 1}"),
+                terminal=term(spec.get("terminal"), f"{w}/terminal"),
+                target=term(spec.get("target"), f"{w}/target"),
+            )
+            outputs.append(do)
+            douts.append(do)
+        devices[code] = Device(
+            code=code,
+            kind=str(d.get("kind") or "other"),
+            functions=tuple(str(f) for f in d.get("functions") or ()),
+            ratio_setting=d.get("ratio_setting"),
+            inputs=tuple(dins),
+            outputs=tuple(douts),
+        )
+
+    wires: list[Wire] = []
+    for k, w in enumerate(doc.get("wires") or []):
+        where = f"/wires/{k}"
+        a = term(w.get("from"), f"{where}/from")
+        b = term(w.get("to"), f"{where}/to")
+        wires.append(
+            Wire(
+                index=k,
+                a=a,
+                b=b,
+                r_ohm=_wire_r_ohm(w, temp_c, where),
+                ends=(terminals[a], terminals[b]),
+            )
+        )
+
+    links: list[Link] = []
+    for k, pair in enumerate(doc.get("links") or []):
+        where = f"/links/{k}"
+        if isinstance(pair, dict):
+            pair = pair.get("between") or [pair.get("from"), pair.get("to")]
+        if len(pair) != 2:
+            raise ValueError(f"{where}: a link joins exactly two terminals")
+        a = term(pair[0], f"{where}/0")
+        b = term(pair[1], f"{where}/1")
+        links.append(Link(index=k, a=a, b=b, ends=(terminals[a], terminals[b])))
+
+    grounds = tuple(
+        dict.fromkeys(term(g, f"/grounds/{k}") for k, g in enumerate(doc.get("grounds") or []))
+    )
+
+    switches: dict[str, Switch] = {}
+    n_contacts = 0
+    for k, s in enumerate(doc.get("switches") or []):
+        where = f"/switches/{k}"
+        code = str(s["code"])
+        positions = tuple(str(p) for p in s.get("positions") or ("closed", "open"))
+        normal = str(s.get("normal") or positions[0])
+        if normal not in positions:
+            raise ValueError(f"{where}/normal: {normal!r} is not one of {list(positions)}")
+        contacts = []
+        for m, c in enumerate(s.get("contacts") or []):
+            between = c.get("between") or []
+            if len(between) != 2:
+                raise ValueError(f"{where}/contacts/{m}/between: needs two terminals")
+            closed_in = frozenset(str(p) for p in c.get("closed_in") or ())
+            unknown = sorted(closed_in - set(positions))
+            if unknown:
+                raise ValueError(f"{where}/contacts/{m}/closed_in: unknown positions {unknown}")
+            contacts.append(
+                Contact(
+                    index=n_contacts,
+                    a=term(between[0], f"{where}/contacts/{m}/between/0"),
+                    b=term(between[1], f"{where}/contacts/{m}/between/1"),
+                    closed_in=closed_in,
+                )
+            )
+            n_contacts += 1
+        switches[code] = Switch(
+            code=code,
+            kind=str(s.get("kind") or "other"),
+            positions=positions,
+            normal=normal,
+            transition=str(s.get("transition") or "break_before_make"),
+            contacts=tuple(contacts),
+        )
+
+    procedures: dict[str, Procedure] = {}
+    for p in doc.get("procedures") or []:
+        code = str(p["code"])
+        procedures[code] = Procedure(
+            code=code,
+            title=str(p.get("title") or ""),
+            author=p.get("author"),
+            devices=tuple(str(d) for d in p.get("devices") or ()),
+            steps=tuple(p.get("steps") or ()),
+        )
+
+    blocks = frozenset(str(b["code"]) for b in doc.get("terminal_blocks") or [])
+    return Netlist(
+        site_code=str(site.get("code") or ""),
+        design_temp_c=temp_c,
+        terminals=terminals,
+        index=index,
+        links=tuple(links),
+        wires=tuple(wires),
+        switches=switches,
+        devices=devices,
+        inputs=tuple(inputs),
+        outputs=tuple(outputs),
+        cts=cts,
+        equipment=equipment,
+        grounds=grounds,
+        procedures=procedures,
+        terminal_blocks=blocks,
+        doc=doc,
+    )

@@ -1,0 +1,317 @@
+"""Step-by-step check of an isolation procedure.
+
+Every state the procedure passes through is solved (``state.evaluate_states``, one batch for
+the whole procedure) and checked for every state finding of the design's table. Reporting:
+``open_secondary`` and ``trip_not_isolated`` are reported in every state where they hold; the
+others only in the state where they first appear (not already present in the state before the
+step, nor in the step's own transition). Step 0 lists the findings of the starting state.
+
+Only the part of the site the procedure can affect is simulated: the connected parts (over
+every link, contact, wire, input and winding, whatever its state) that hold a terminal the
+procedure touches or a terminal of a device the work is for, plus the trip paths of the
+devices found there.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from analysis.engine import findings as fc
+from analysis.engine.cautions import cautions
+from analysis.engine.findings import Finding
+from analysis.engine.netlist import Netlist, build_netlist
+from analysis.engine.state import (
+    ProcedureError,
+    State,
+    StateEval,
+    apply_op,
+    evaluate_states,
+    normal_state,
+    op_kind,
+    state_findings,
+    validate_op,
+)
+from analysis.engine.topology import components
+
+
+@dataclass(frozen=True, slots=True)
+class StepResult:
+    """The findings of one step (step 0: the starting state, ``op`` None)."""
+
+    step: int
+    op: dict[str, Any] | None
+    findings: tuple[Finding, ...]
+
+    def to_json(self) -> dict[str, Any]:
+        """The step as the verdict JSON shows it."""
+        return {"step": self.step, "op": self.op, "findings": [f.to_json() for f in self.findings]}
+
+
+@dataclass(frozen=True, eq=False)
+class ProcedureVerdict:
+    """The verdict of a procedure (design.md, "Procedure verdict JSON")."""
+
+    site: str
+    procedure: str | None
+    devices: tuple[str, ...]
+    steps: tuple[StepResult, ...]
+
+    @property
+    def findings(self) -> list[tuple[int, Finding]]:
+        return [(s.step, f) for s in self.steps for f in s.findings]
+
+    @property
+    def first_danger(self) -> dict[str, Any] | None:
+        for step, f in self.findings:
+            if f.severity == fc.DANGER:
+                return {"step": step, "phase": f.phase, "code": f.code, "ct": f.ct}
+        return None
+
+    @property
+    def safe(self) -> bool:
+        return self.first_danger is None
+
+    def to_json(self, site: str | None = None) -> dict[str, Any]:
+        """design.md's procedure verdict JSON, with the safety cautions."""
+        return {
+            "site": site if site is not None else self.site,
+            "procedure": self.procedure,
+            "safe": self.safe,
+            "first_danger": self.first_danger,
+            "steps": [s.to_json() for s in self.steps],
+            "cautions": cautions(),
+        }
+
+
+# ---------------------------------------------------------------------------------------------
+# region
+
+
+def _union_labels(nl: Netlist) -> np.ndarray:
+    hit = nl.cache.get("union_labels")
+    if hit is None:
+        ar = nl.arrays
+        a = np.concatenate([ar.link_a, ar.contact_a, ar.br_a, ar.wind_a])
+        b = np.concatenate([ar.link_b, ar.contact_b, ar.br_b, ar.wind_b])
+        hit = nl.cache["union_labels"] = components(nl.n_terminals, a, b)
+    return hit
+
+
+def _device_terminals(nl: Netlist, code: str) -> list[int]:
+    dev = nl.devices[code]
+    return [t for i in dev.inputs for t in (i.a, i.b)] + [
+        t for o in dev.outputs for t in (o.terminal, o.target)
+    ]
+
+
+def touched_terminals(
+    nl: Netlist, ops: list[dict[str, Any]], devices: tuple[str, ...]
+) -> tuple[set[int], list[tuple[int, int]]]:
+    """Terminals the operations act on, and the jumpers they add."""
+    seeds: set[int] = set()
+    jumps: list[tuple[int, int]] = []
+    for d in devices:
+        seeds.update(_device_terminals(nl, d))
+    for op in ops:
+        kind = op_kind(op)
+        if kind == "set":
+            for c in nl.switches[str(op["set"])].contacts:
+                seeds.update((c.a, c.b))
+        elif kind == "add_jumper":
+            a, b = nl.index[op["add_jumper"][0]], nl.index[op["add_jumper"][1]]
+            seeds.update((a, b))
+            jumps.append((a, b))
+        elif kind in ("lift", "land"):
+            seeds.update(nl.index[t] for t in op[kind])
+        elif kind in ("remove_device", "insert_device"):
+            seeds.update(_device_terminals(nl, str(op[kind])))
+        elif kind in ("deenergize", "energize"):
+            for ct in nl.ct_list:
+                if ct.equipment == str(op[kind]):
+                    seeds.update(ct.terminals.values())
+    return seeds, jumps
+
+
+def region_mask(nl: Netlist, seeds: set[int], jumps: list[tuple[int, int]]) -> np.ndarray:
+    """Terminals of the connected parts holding a seed (jumpers join parts), plus the trip
+    paths of every device with a terminal there."""
+    lab = _union_labels(nl)
+    parent: dict[int, int] = {}
+
+    def find(x: int) -> int:
+        while parent.get(x, x) != x:
+            x = parent[x]
+        return x
+
+    for a, b in jumps:
+        ra, rb = find(int(lab[a])), find(int(lab[b]))
+        if ra != rb:
+            parent[ra] = rb
+    chosen = {find(int(lab[t])) for t in seeds}
+    changed = True
+    while changed:
+        changed = False
+        for dev in nl.devices.values():
+            terms = [t for i in dev.inputs for t in (i.a, i.b)]
+            if any(find(int(lab[t])) in chosen for t in terms):
+                for o in dev.outputs:
+                    for t in (o.terminal, o.target):
+                        r = find(int(lab[t]))
+                        if r not in chosen:
+                            chosen.add(r)
+                            changed = True
+    members = set(chosen) | {x for x in parent if find(x) in chosen}
+    return np.isin(lab, np.asarray(sorted(members), dtype=np.int64))
+
+
+def subnet(nl: Netlist, mask: np.ndarray) -> Netlist:
+    """The netlist of the terminals in ``mask`` (elements outside it left out)."""
+    if mask.all() or nl.doc is None:
+        return nl
+    key = ("subnet", mask.tobytes())
+    hit = nl.cache.get(key)
+    if hit is not None:
+        return hit
+    doc = nl.doc
+
+    def inside(name: Any) -> bool:
+        i = nl.index.get(name) if isinstance(name, str) else None
+        return i is not None and bool(mask[i])
+
+    def link_end(pair: Any) -> Any:
+        if isinstance(pair, dict):
+            pair = pair.get("between") or [pair.get("from")]
+        return pair[0]
+
+    cts = []
+    for c in doc.get("cts") or []:
+        ct = nl.cts[str(c["code"])]
+        if mask[ct.first]:
+            cts.append(c)
+    devices = []
+    for d in doc.get("devices") or []:
+        ins = [i for i in d.get("inputs") or [] if inside(i.get("from"))]
+        outs = [o for o in d.get("outputs") or [] if inside(o.get("terminal"))]
+        if ins or outs:
+            devices.append({**d, "inputs": ins, "outputs": outs})
+    switches = []
+    for s in doc.get("switches") or []:
+        contacts = [c for c in s.get("contacts") or [] if inside(c["between"][0])]
+        if contacts:
+            switches.append({**s, "contacts": contacts})
+    sub = {
+        **doc,
+        "cts": cts,
+        "devices": devices,
+        "wires": [w for w in doc.get("wires") or [] if inside(w.get("from"))],
+        "links": [k for k in doc.get("links") or [] if inside(link_end(k))],
+        "grounds": [g for g in doc.get("grounds") or [] if inside(g)],
+        "switches": switches,
+    }
+    out = build_netlist(sub)
+    nl.cache[key] = out
+    return out
+
+
+# ---------------------------------------------------------------------------------------------
+# simulation
+
+
+def simulate(
+    nl: Netlist, ops: list[dict[str, Any]], start: State | None = None
+) -> list[tuple[State | None, State]]:
+    """(transition, after) of every operation, from ``start`` (the normal state)."""
+    st = start if start is not None else normal_state(nl)
+    out = []
+    for n, op in enumerate(ops, start=1):
+        trans, st = apply_op(nl, st, op, n)
+        out.append((trans, st))
+    return out
+
+
+def verdict_from_evals(
+    nl: Netlist,
+    ops: list[dict[str, Any]],
+    work: frozenset[str],
+    init: StateEval,
+    steps: list[tuple[StateEval | None, StateEval]],
+    *,
+    code: str | None,
+) -> ProcedureVerdict:
+    """Apply the reporting rule to solved states."""
+    keys0: set[tuple[Any, ...]] = set()
+    raw0 = state_findings(nl, init, init, init, work, "before", None, keys0)
+    results = [StepResult(0, None, tuple(raw0))]
+    before_ev, before_keys = init, keys0
+    for n, (op, (tev, aev)) in enumerate(zip(ops, steps, strict=True), start=1):
+        kept: list[Finding] = []
+        trans_keys: set[tuple[Any, ...]] = set()
+        if tev is not None:
+            kept += state_findings(
+                nl, init, before_ev, tev, work, "transition", before_keys, trans_keys
+            )
+        after_keys: set[tuple[Any, ...]] = set()
+        kept += state_findings(
+            nl, init, before_ev, aev, work, "after", before_keys | trans_keys, after_keys
+        )
+        results.append(StepResult(n, op, tuple(kept)))
+        before_ev, before_keys = aev, after_keys
+    return ProcedureVerdict(
+        site=nl.site_code, procedure=code, devices=tuple(sorted(work)), steps=tuple(results)
+    )
+
+
+def check_operations(
+    netlist: Netlist,
+    ops: list[dict[str, Any]],
+    devices: list[str] | tuple[str, ...] = (),
+    *,
+    code: str | None = None,
+    start: State | None = None,
+) -> ProcedureVerdict:
+    """Check a list of operations from the normal state (an unsaved procedure).
+
+    ``devices`` are the devices the work is for (rule (a) of ``trip_not_isolated``). Raises
+    ``ProcedureError`` for a step that names an unknown switch, position, jumper, terminal,
+    wire, device or equipment.
+    """
+    ops = list(ops)
+    devices = tuple(devices)
+    for d in devices:
+        if d not in netlist.devices:
+            raise ProcedureError(f"devices: unknown device {d!r}")
+    for n, op in enumerate(ops, start=1):
+        validate_op(netlist, op, n)
+    nl = netlist
+    if start is None:
+        seeds, jumps = touched_terminals(netlist, ops, devices)
+        nl = subnet(netlist, region_mask(netlist, seeds, jumps))
+    sim = simulate(nl, ops, start)
+    init_state = start if start is not None else normal_state(nl)
+    states: list[State] = [init_state]
+    for trans, after in sim:
+        if trans is not None:
+            states.append(trans)
+        states.append(after)
+    evs = evaluate_states(nl, states)
+    it = iter(evs[1:])
+    steps = []
+    for trans, _after in sim:
+        tev = next(it) if trans is not None else None
+        steps.append((tev, next(it)))
+    v = verdict_from_evals(nl, ops, frozenset(devices), evs[0], steps, code=code)
+    if v.site != netlist.site_code:
+        v = ProcedureVerdict(netlist.site_code, v.procedure, v.devices, v.steps)
+    return v
+
+
+def check_procedure(netlist: Netlist, code: str) -> ProcedureVerdict:
+    """Check the stored procedure ``code`` step by step (see the module docstring)."""
+    proc = netlist.procedures.get(code)
+    if proc is None:
+        known = ", ".join(sorted(netlist.procedures)) or "none"
+        raise ProcedureError(f"unknown procedure {code!r} (procedures: {known})")
+    return check_operations(netlist, list(proc.steps), proc.devices, code=proc.code)

@@ -1,0 +1,59 @@
+"""Everything the fleet recompute needs for one site, in one call."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+from analysis.engine.findings import Finding
+from analysis.engine.netlist import Netlist
+from analysis.engine.nodal import Circuit, CTBurden, normal_analysis
+from analysis.engine.procedure import ProcedureVerdict, check_procedure
+from analysis.engine.state import ProcedureError, evaluate_states, normal_state, state_findings
+
+
+@dataclass(eq=False)
+class SiteAnalysis:
+    """Circuits, burdens, feeds and normal-state findings of a site, and the verdict of each
+    stored procedure (or, for a procedure that cannot be simulated, the error)."""
+
+    site: str
+    circuits: list[Circuit]
+    burdens: dict[str, CTBurden]
+    feeds: dict[str, set[str]]
+    findings: list[Finding]
+    verdicts: dict[str, ProcedureVerdict] = field(default_factory=dict)
+    procedure_errors: dict[str, str] = field(default_factory=dict)
+
+    def burden_map(self) -> dict[str, dict[str, Any]]:
+        """``{ct: {"ground_fault": z, "phase_fault": z}}`` for the ratings engine."""
+        return {
+            code: {"ground_fault": b.ground_fault, "phase_fault": b.phase_fault}
+            for code, b in self.burdens.items()
+        }
+
+
+def normal_findings(netlist: Netlist) -> list[Finding]:
+    """State findings of the normal state (open secondaries, partial winding shorts, ground
+    points), as the findings list shows them (no procedure, no phase)."""
+    ev = evaluate_states(netlist, [normal_state(netlist)])[0]
+    return state_findings(netlist, ev, ev, ev, frozenset(), None)
+
+
+def analyze_site(netlist: Netlist) -> SiteAnalysis:
+    """Normal-state nodal analysis (both fault cases, every CT), circuits, feeds, state
+    findings, and every stored procedure checked step by step."""
+    na = normal_analysis(netlist)
+    out = SiteAnalysis(
+        site=netlist.site_code,
+        circuits=na.circuits,
+        burdens=na.burdens,
+        feeds=na.feeds(),
+        findings=normal_findings(netlist),
+    )
+    for code in netlist.procedures:
+        try:
+            out.verdicts[code] = check_procedure(netlist, code)
+        except ProcedureError as exc:
+            out.procedure_errors[code] = str(exc)
+    return out

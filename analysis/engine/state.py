@@ -1,0 +1,829 @@
+"""Circuit states, the operations of a procedure, and the state checks.
+
+A *state* is: switch positions, temporary jumpers, lifted wires and links, removed devices and
+energized equipment. A CT is *live* while its equipment is energized (a CT with no recorded
+equipment is taken as live). Operations (design.md): ``set``, ``add_jumper``, ``remove_jumper``,
+``lift``, ``land``, ``remove_device``, ``insert_device``, ``deenergize``, ``energize``, ``note``.
+
+A ``set`` yields a *transition* state while the switch moves: for ``make_before_break`` the
+union of the contacts closed in the old and in the new position, for ``break_before_make``
+their intersection, for ``simultaneous`` none (the new state at once).
+
+Currents in a state come from one nodal solve (``topology.solve``): each live CT injects its
+load current (equipment maximum load / ratio; 1 A where unknown) at its phase angle (A 0°,
+B −120°, C +120°). A second, *probe* column injects unit currents at unrelated angles so that
+"this input carries no current whatever the CTs do" can be told from "the load currents happen
+to cancel here" (a residual input in a balanced load). Many states are solved in one batch.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, replace
+from typing import Any
+
+import numpy as np
+
+from analysis.engine import findings as fc
+from analysis.engine.findings import Finding
+from analysis.engine.netlist import Netlist
+from analysis.engine.topology import components, solve, topology
+
+# Thresholds of the findings table (design.md), as fractions of the largest CT current of the
+# circuit.
+CHANGE_FRACTION = 0.10
+APPEAR_FROM = 0.01
+APPEAR_TO = 0.10
+BYPASS_CARRIED = 0.10
+BYPASS_NOW = 0.01
+# A probe current below this (per 1 A injected) counts as no current at all.
+PROBE_ZERO_A = 1e-6
+
+_GOLDEN_RAD = math.pi * (3.0 - math.sqrt(5.0))
+
+
+class ProcedureError(ValueError):
+    """A step names something the site does not have, or cannot be carried out."""
+
+
+@dataclass(frozen=True, slots=True)
+class State:
+    """One circuit state. ``override`` replaces the closed contacts of one switch while it is
+    in transition: (switch code, global contact indices closed)."""
+
+    positions: tuple[tuple[str, str], ...]
+    jumpers: tuple[tuple[str, int, int], ...] = ()
+    lifted_wires: frozenset[int] = frozenset()
+    lifted_links: frozenset[int] = frozenset()
+    removed: frozenset[str] = frozenset()
+    energized: frozenset[str] = frozenset()
+    override: tuple[str, frozenset[int]] | None = None
+
+    def position(self, switch: str) -> str:
+        return dict(self.positions)[switch]
+
+
+def normal_state(nl: Netlist) -> State:
+    """Every switch in its normal position, nothing lifted, removed or jumpered, equipment as
+    recorded (``in_service``)."""
+    return State(
+        positions=tuple((code, sw.normal) for code, sw in nl.switches.items()),
+        energized=frozenset(e.code for e in nl.equipment.values() if e.in_service),
+    )
+
+
+def _terminal(nl: Netlist, name: Any, step: int, what: str) -> int:
+    if not isinstance(name, str) or name not in nl.index:
+        raise ProcedureError(f"step {step}: {what}: unknown terminal {name!r}")
+    return nl.index[name]
+
+
+def _pair(op: dict[str, Any], key: str, step: int) -> tuple[str, str]:
+    pair = op.get(key)
+    if not isinstance(pair, list | tuple) or len(pair) != 2:
+        raise ProcedureError(f"step {step}: '{key}' needs a pair of terminals, got {pair!r}")
+    return str(pair[0]), str(pair[1])
+
+
+def _between(nl: Netlist, a: str, b: str) -> tuple[list[int], list[int]]:
+    ends = {(a, b), (b, a)}
+    wires = [w.index for w in nl.wires if w.ends in ends]
+    links = [k.index for k in nl.links if k.ends in ends]
+    return wires, links
+
+
+def op_kind(op: dict[str, Any]) -> str:
+    """The operation an op dict names (its key), or "" for none of design.md's."""
+    for key in (
+        "set",
+        "add_jumper",
+        "remove_jumper",
+        "lift",
+        "land",
+        "remove_device",
+        "insert_device",
+        "deenergize",
+        "energize",
+        "note",
+    ):
+        if key in op:
+            return key
+    return ""
+
+
+def validate_op(nl: Netlist, op: Any, step: int) -> None:
+    """Raise ``ProcedureError`` when ``op`` names an unknown switch, position, jumper
+    terminal, wire, device or equipment (jumper ids are checked while simulating)."""
+    if not isinstance(op, dict):
+        raise ProcedureError(f"step {step}: an operation is an object, got {op!r}")
+    kind = op_kind(op)
+    if kind == "set":
+        sw = nl.switches.get(str(op["set"]))
+        if sw is None:
+            raise ProcedureError(f"step {step}: unknown switch {op['set']!r}")
+        if op.get("to") not in sw.positions:
+            raise ProcedureError(
+                f"step {step}: switch {sw.code} has no position {op.get('to')!r} "
+                f"(positions: {', '.join(sw.positions)})"
+            )
+    elif kind == "add_jumper":
+        a, b = _pair(op, "add_jumper", step)
+        _terminal(nl, a, step, "add_jumper")
+        _terminal(nl, b, step, "add_jumper")
+    elif kind in ("lift", "land"):
+        a, b = _pair(op, kind, step)
+        wires, links = _between(nl, a, b)
+        if not wires and not links:
+            raise ProcedureError(f"step {step}: {kind}: no wire between {a} and {b}")
+    elif kind in ("remove_device", "insert_device"):
+        if str(op[kind]) not in nl.devices:
+            raise ProcedureError(f"step {step}: {kind}: unknown device {op[kind]!r}")
+    elif kind in ("deenergize", "energize"):
+        if str(op[kind]) not in nl.equipment:
+            raise ProcedureError(f"step {step}: {kind}: unknown equipment {op[kind]!r}")
+    elif kind == "":
+        raise ProcedureError(
+            f"step {step}: unknown operation {sorted(op)!r}; expected one of set, add_jumper, "
+            "remove_jumper, lift, land, remove_device, insert_device, deenergize, energize, note"
+        )
+
+
+def apply_op(
+    nl: Netlist, state: State, op: dict[str, Any], step: int
+) -> tuple[State | None, State]:
+    """Carry out one operation: (transition state or None, state after)."""
+    validate_op(nl, op, step)
+    kind = op_kind(op)
+    st = replace(state, override=None)
+    if kind == "set":
+        sw = nl.switches[str(op["set"])]
+        new_pos = str(op["to"])
+        pos = dict(st.positions)
+        old_pos = pos[sw.code]
+        pos[sw.code] = new_pos
+        after = replace(st, positions=tuple(pos.items()))
+        if old_pos == new_pos:
+            return None, after
+        old_c, new_c = sw.closed(old_pos), sw.closed(new_pos)
+        if sw.transition == "make_before_break":
+            during = old_c | new_c
+        elif sw.transition == "simultaneous":
+            return None, after
+        else:  # break_before_make, and any unknown kind (the safe reading)
+            during = old_c & new_c
+        if during == new_c:
+            return None, after
+        return replace(st, override=(sw.code, during)), after
+    if kind == "add_jumper":
+        a, b = _pair(op, "add_jumper", step)
+        jid = str(op.get("id") or f"J{step}")
+        if any(j[0] == jid for j in st.jumpers):
+            raise ProcedureError(f"step {step}: jumper {jid!r} is already in place")
+        jumpers = (*st.jumpers, (jid, nl.index[a], nl.index[b]))
+        return None, replace(st, jumpers=tuple(sorted(jumpers)))
+    if kind == "remove_jumper":
+        jid = str(op["remove_jumper"])
+        if not any(j[0] == jid for j in st.jumpers):
+            placed = ", ".join(j[0] for j in st.jumpers) or "none"
+            raise ProcedureError(
+                f"step {step}: unknown jumper {jid!r} (jumpers in place: {placed})"
+            )
+        return None, replace(st, jumpers=tuple(j for j in st.jumpers if j[0] != jid))
+    if kind in ("lift", "land"):
+        a, b = _pair(op, kind, step)
+        wires, links = _between(nl, a, b)
+        if kind == "lift":
+            return None, replace(
+                st,
+                lifted_wires=st.lifted_wires | set(wires),
+                lifted_links=st.lifted_links | set(links),
+            )
+        return None, replace(
+            st, lifted_wires=st.lifted_wires - set(wires), lifted_links=st.lifted_links - set(links)
+        )
+    if kind == "remove_device":
+        return None, replace(st, removed=st.removed | {str(op[kind])})
+    if kind == "insert_device":
+        return None, replace(st, removed=st.removed - {str(op[kind])})
+    if kind == "deenergize":
+        return None, replace(st, energized=st.energized - {str(op[kind])})
+    if kind == "energize":
+        return None, replace(st, energized=st.energized | {str(op[kind])})
+    return None, st  # note
+
+
+@dataclass(eq=False)
+class _StateBatch:
+    """Arrays of a batch of solved states, one row per state."""
+
+    nl: Netlist
+    live: np.ndarray
+    ct_open: np.ndarray
+    ct_circ: np.ndarray
+    inp_cur: np.ndarray
+    inp_probe: np.ndarray
+    inp_circ: np.ndarray
+    inp_ref_a: np.ndarray
+    out_connected: np.ndarray
+    node_circ: np.ndarray
+    gnode: np.ndarray
+    gpoint: np.ndarray
+    multi_imp: dict[str, dict[str, np.ndarray]]
+
+
+class StateEval:
+    """What the checks need to know about one solved state (row ``row`` of a batch); the
+    per-circuit views are built on first use."""
+
+    __slots__ = ("_b", "_cache", "_row", "bypass_keys", "bypass_limit", "carried", "state")
+
+    def __init__(self, batch: _StateBatch, row: int, state: State) -> None:
+        self._b = batch
+        self._row = row
+        self.state = state
+        self._cache: dict[str, Any] = {}
+        self.carried: np.ndarray | None = None  # set on a starting state by check_bypassed
+        self.bypass_limit: np.ndarray | None = None
+        self.bypass_keys: list[tuple[Any, ...]] = []
+
+    def _get(self, name: str) -> Any:
+        hit = self._cache.get(name)
+        if hit is None:
+            hit = self._cache[name] = getattr(self._b, name)[self._row].tolist()
+        return hit
+
+    @property
+    def live(self) -> list[bool]:
+        return self._get("live")
+
+    @property
+    def ct_open(self) -> list[bool]:
+        return self._get("ct_open")
+
+    @property
+    def ct_circ(self) -> list[int]:
+        return self._get("ct_circ")
+
+    @property
+    def inp_cur(self) -> list[complex]:
+        return self._get("inp_cur")
+
+    @property
+    def inp_probe(self) -> list[complex]:
+        return self._get("inp_probe")
+
+    @property
+    def inp_ref_a(self) -> list[float]:
+        return self._get("inp_ref_a")
+
+    @property
+    def inp_circ(self) -> list[int]:
+        return self._get("inp_circ")
+
+    @property
+    def out_connected(self) -> list[bool]:
+        return self._get("out_connected")
+
+    @property
+    def live_open(self) -> np.ndarray:
+        """Mask of the CTs that are live and open in this state."""
+        return self._b.live[self._row] & self._b.ct_open[self._row]
+
+    @property
+    def inp_abs(self) -> np.ndarray:
+        hit = self._cache.get("inp_abs")
+        if hit is None:
+            hit = self._cache["inp_abs"] = np.abs(self._b.inp_cur[self._row])
+        return hit
+
+    @property
+    def circ_id(self) -> dict[int, str]:
+        """Circuit label -> circuit id (named after its first CT code)."""
+        hit = self._cache.get("circ_id")
+        if hit is None:
+            cts = self._b.nl.ct_list
+            cl = self.ct_circ
+            hit = {}
+            for k in sorted(range(len(cts)), key=lambda k: cts[k].code):
+                hit.setdefault(cl[k], f"CKT-{cts[k].code}")
+            self._cache["circ_id"] = hit
+        return hit
+
+    @property
+    def circ_grounds(self) -> dict[int, list[str]]:
+        """Circuit label -> its distinct ground points (one terminal each)."""
+        hit = self._cache.get("circ_grounds")
+        if hit is None:
+            nl = self._b.nl
+            hit = {lab: [] for lab in self.circ_id}
+            seen: set[int] = set()
+            glab = self._b.node_circ[self._b.gnode[self._row]].tolist()
+            points = self._b.gpoint[self._row].tolist()
+            for g, point, lab in zip(nl.grounds, points, glab, strict=True):
+                if lab in hit and point not in seen:
+                    seen.add(point)
+                    hit[lab].append(nl.terminals[g])
+            self._cache["circ_grounds"] = hit
+        return hit
+
+    @property
+    def partial(self) -> dict[str, list[tuple[str, str]]]:
+        """Live CT -> the sections outside its tap that are shorted."""
+        hit = self._cache.get("partial")
+        if hit is None:
+            hit = {}
+            lv = self.live
+            for code, imp in self._b.multi_imp.items():
+                c = self._b.nl.cts[code]
+                if not lv[c.index]:
+                    continue
+                labels = {n: int(v[self._row]) for n, v in imp.items()}
+                distinct = len(set(labels.values()))
+                joined = labels[c.in_use[0]] == labels[c.in_use[1]]
+                if distinct == len(labels) - (1 if joined else 0):
+                    continue  # no terminal shares a conducting part with another
+                sec = _shorted_sections(c, labels)
+                if sec:
+                    hit[code] = sec
+            self._cache["partial"] = hit
+        return hit
+
+
+def _cached_row(nl: Netlist, key: tuple[Any, ...], make: Any) -> np.ndarray:
+    row = nl.cache.get(key)
+    if row is None:
+        row = make()
+        if len(nl.cache) < 50_000:
+            nl.cache[key] = row
+    return row
+
+
+def _contact_table(nl: Netlist) -> tuple[np.ndarray, np.ndarray, list[dict[str, int]]]:
+    """(switch of each contact, closed[contact, position index], position index per switch)."""
+    hit = nl.cache.get("contact_table")
+    if hit is None:
+        sws = list(nl.switches.values())
+        width = max((len(sw.positions) for sw in sws), default=1)
+        owner = np.zeros(len(nl.contacts), dtype=np.int64)
+        tab = np.zeros((len(nl.contacts), width), dtype=bool)
+        for k, sw in enumerate(sws):
+            for c in sw.contacts:
+                owner[c.index] = k
+                for m, pos in enumerate(sw.positions):
+                    tab[c.index, m] = pos in c.closed_in
+        pos_index = [{p: m for m, p in enumerate(sw.positions)} for sw in sws]
+        hit = nl.cache["contact_table"] = (owner, tab, pos_index)
+    return hit
+
+
+def _contact_row(nl: Netlist, st: State) -> np.ndarray:
+    def make() -> np.ndarray:
+        owner, tab, pos_index = _contact_table(nl)
+        pidx = np.fromiter(
+            (pos_index[k][p] for k, (_, p) in enumerate(st.positions)),
+            dtype=np.int64,
+            count=len(st.positions),
+        )
+        row = tab[np.arange(len(owner)), pidx[owner]] if len(owner) else np.zeros(0, bool)
+        if st.override is not None:
+            sw = nl.switches[st.override[0]]
+            idx = [c.index for c in sw.contacts]
+            row[idx] = [c.index in st.override[1] for c in sw.contacts]
+        return row
+
+    return _cached_row(nl, ("contacts", st.positions, st.override), make)
+
+
+def _link_row(nl: Netlist, st: State) -> np.ndarray:
+    def make() -> np.ndarray:
+        row = np.ones(len(nl.links), dtype=bool)
+        row[list(st.lifted_links)] = False
+        return row
+
+    return _cached_row(nl, ("links", st.lifted_links), make)
+
+
+def _branch_row(nl: Netlist, st: State) -> np.ndarray:
+    def make() -> np.ndarray:
+        row = np.ones(len(nl.arrays.br_z), dtype=bool)
+        row[list(st.lifted_wires)] = False
+        for code in st.removed:
+            dev = nl.devices.get(code)
+            if dev is not None:
+                row[[nl.arrays.n_wires + i.index for i in dev.inputs]] = False
+        return row
+
+    return _cached_row(nl, ("branches", st.lifted_wires, st.removed), make)
+
+
+def _live_row(nl: Netlist, st: State) -> np.ndarray:
+    def make() -> np.ndarray:
+        return np.fromiter(
+            (
+                c.equipment is None
+                or c.equipment not in nl.equipment
+                or c.equipment in st.energized
+                for c in nl.ct_list
+            ),
+            dtype=bool,
+            count=len(nl.ct_list),
+        )
+
+    return _cached_row(nl, ("live", st.energized), make)
+
+
+def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
+    """Solve every state in one batch (each state is a disjoint copy of the netlist)."""
+    if not states:
+        return []
+    n_states = len(states)
+    n_t = nl.n_terminals
+    ar = nl.arrays
+    cts = nl.ct_list
+    n_ct = len(cts)
+    offs = np.arange(n_states, dtype=np.int64) * n_t
+
+    # One row per state of: contacts closed, links in place, branches in place, CTs live,
+    # inputs in place (each row cached on the netlist by the part of the state it depends on).
+    cmask = np.stack([_contact_row(nl, st) for st in states])
+    lmask = np.stack([_link_row(nl, st) for st in states])
+    bmask = np.stack([_branch_row(nl, st) for st in states])
+    live = np.stack([_live_row(nl, st) for st in states])
+    inp_active = bmask[:, ar.n_wires :]
+    sc, cc = np.nonzero(cmask)
+    sl, lk = np.nonzero(lmask)
+    sz, zz = np.nonzero(bmask & ar.br_zero)
+    sb, br_index = np.nonzero(bmask & ~ar.br_zero)
+    jumps = [(s, j[1], j[2]) for s, st in enumerate(states) for j in st.jumpers]
+    js = np.asarray([j[0] for j in jumps], dtype=np.int64)
+    ja = np.asarray([j[1] for j in jumps], dtype=np.int64)
+    jb = np.asarray([j[2] for j in jumps], dtype=np.int64)
+    za = [
+        ar.contact_a[cc] + offs[sc],
+        ar.link_a[lk] + offs[sl],
+        ar.br_a[zz] + offs[sz],
+        ja + offs[js],
+    ]
+    zb = [
+        ar.contact_b[cc] + offs[sc],
+        ar.link_b[lk] + offs[sl],
+        ar.br_b[zz] + offs[sz],
+        jb + offs[js],
+    ]
+    ba = [ar.br_a[br_index] + offs[sb]]
+    bb = [ar.br_b[br_index] + offs[sb]]
+
+    br_y = 1.0 / ar.br_z[br_index]
+    wind_a = (ar.wind_a[None, :] + offs[:, None]).ravel()
+    wind_b = (ar.wind_b[None, :] + offs[:, None]).ravel()
+    gv = (ar.grounds[None, :] + offs[:, None]).ravel()
+    topo = topology(
+        n_states * n_t,
+        np.concatenate(za),
+        np.concatenate(zb),
+        ba[0],
+        bb[0],
+        wind_a,
+        wind_b,
+        gv,
+    )
+    tn = topo.term_node
+    f = tn[ar.ct_first[None, :] + offs[:, None]]
+    s2 = tn[ar.ct_second[None, :] + offs[:, None]]
+    ct_open = topo.node_imp[f] != topo.node_imp[s2]
+    ct_circ = topo.node_circ[f]
+    inj = live & ~ct_open
+    probe = np.exp(1j * (0.5 + _GOLDEN_RAD * np.arange(n_ct)))
+    load = np.broadcast_to(ar.ct_load, (n_states, n_ct))
+    pr = np.broadcast_to(probe, (n_states, n_ct))
+    fi, si = f[inj], s2[inj]
+    inj_node = np.concatenate([fi, si, fi, si])
+    zeros = np.zeros(len(fi), dtype=np.int64)
+    inj_col = np.concatenate([zeros, zeros, zeros + 1, zeros + 1])
+    inj_val = np.concatenate([load[inj], -load[inj], pr[inj], -pr[inj]])
+    ncols = np.zeros(topo.n_circ, dtype=np.int64)
+    ncols[ct_circ[inj]] = 2
+    sol = solve(topo, br_y, inj_node, inj_col, inj_val, ncols)
+
+    # device input currents, both columns
+    n_in = len(nl.inputs)
+    ia = tn[(np.asarray([i.a for i in nl.inputs], dtype=np.int64)[None, :] + offs[:, None])]
+    ib = tn[(np.asarray([i.b for i in nl.inputs], dtype=np.int64)[None, :] + offs[:, None])]
+    y_in = 1.0 / ar.br_z[ar.n_wires :]
+    cur = (sol.dv(ia, ib, 0) * y_in) * inp_active
+    prb = (sol.dv(ia, ib, 1) * y_in) * inp_active
+    inp_circ = topo.node_circ[ia] if n_in else np.zeros((n_states, 0), dtype=np.int64)
+
+    # trip paths: zero-impedance elements and wires (not device inputs, not ground)
+    is_wire = br_index < ar.n_wires
+    tl = components(topo.n_nodes, topo.br_na[is_wire], topo.br_nb[is_wire])
+    ot = tl[tn[ar.out_terminal[None, :] + offs[:, None]]]
+    og = tl[tn[ar.out_target[None, :] + offs[:, None]]]
+    out_conn = ot == og
+
+    # largest live CT load current of each circuit, for the thresholds of the findings table
+    ref = np.zeros(topo.n_circ + 1)
+    if n_ct:
+        np.maximum.at(ref, ct_circ[live], np.broadcast_to(np.abs(ar.ct_load), live.shape)[live])
+    batch = _StateBatch(
+        nl=nl,
+        live=live,
+        ct_open=ct_open,
+        ct_circ=ct_circ,
+        inp_cur=cur,
+        inp_probe=prb,
+        inp_circ=inp_circ,
+        inp_ref_a=ref[inp_circ],
+        out_connected=out_conn,
+        node_circ=topo.node_circ,
+        gnode=tn[gv].reshape(n_states, len(ar.grounds)),
+        gpoint=topo.term_point[gv].reshape(n_states, len(ar.grounds)),
+        multi_imp={
+            c.code: {name: topo.node_imp[tn[offs + t]] for name, t in c.terminals.items()}
+            for c in cts
+            if len(c.terminals) > 2
+        },
+    )
+    return [StateEval(batch, s, st) for s, st in enumerate(states)]
+
+
+def _shorted_sections(ct: Any, imp: dict[str, int]) -> list[tuple[str, str]]:
+    """Winding sections outside the tap in use that a conducting path joins end to end."""
+    order = sorted(ct.terminals, key=lambda n: (ct.positions[n], n))
+    lo, hi = sorted((ct.positions[ct.in_use[0]], ct.positions[ct.in_use[1]]))
+    shorted: set[int] = set()  # index i = section order[i]–order[i+1]
+    for i, p in enumerate(order):
+        for q in order[i + 1 :]:
+            if {p, q} == set(ct.in_use) or imp[p] != imp[q]:
+                continue
+            pp, pq = ct.positions[p], ct.positions[q]
+            if pp >= lo and pq <= hi:
+                continue  # inside the tap in use
+            for m in range(i, order.index(q)):
+                a, b = ct.positions[order[m]], ct.positions[order[m + 1]]
+                if b > a and (a < lo or b > hi):
+                    shorted.add(m)
+    return [(order[m], order[m + 1]) for m in sorted(shorted)]
+
+
+# ---------------------------------------------------------------------------------------------
+# checks
+
+
+def _fmt_a(x: float) -> str:
+    if x < 1e-6:
+        return "0 A"
+    return f"{x:.3g} A" if x < 0.01 else f"{x:.2f} A"
+
+
+def check_open_secondary(nl: Netlist, ev: StateEval, phase: str | None) -> list[Finding]:
+    """``open_secondary``: a live CT whose terminals in use are not joined by a closed path."""
+    out = []
+    for ct in nl.ct_list:
+        k = ct.index
+        if not (ev.live[k] and ev.ct_open[k]):
+            continue
+        eq = nl.equipment.get(ct.equipment or "")
+        load = (
+            f"{eq.max_load_a:g} A primary load"
+            if eq and eq.max_load_a is not None
+            else "load unknown, 1 A assumed"
+        )
+        out.append(
+            Finding(
+                code=fc.OPEN_SECONDARY,
+                message=(
+                    f"CT {ct.code} ({ct.ratio_text}, tap {ct.in_use[0]}-{ct.in_use[1]}) is "
+                    f"live and its secondary is open: it would be driving "
+                    f"{_fmt_a(ct.load_secondary_a)} secondary ({load}) into an open circuit"
+                ),
+                ct=ct.code,
+                circuit=ev.circ_id.get(ev.ct_circ[k]),
+                phase=phase,
+                numbers={"secondary_a": round(ct.load_secondary_a, 4)},
+            )
+        )
+    return out
+
+
+def _changed(old: complex, new: complex, ref_a: float) -> bool:
+    if ref_a <= 0:
+        return False
+    # 10 % of the input's previous current, with a floor at 1 % of the circuit's largest CT
+    # current so that numerical noise on a residual input is not a change.
+    return abs(new - old) > CHANGE_FRACTION * max(abs(old), CHANGE_FRACTION * ref_a)
+
+
+def check_trip(
+    nl: Netlist, before: StateEval, ev: StateEval, work: frozenset[str], phase: str | None
+) -> list[Finding]:
+    """``trip_not_isolated``, the three rules of the findings table, while an output of the
+    device is still connected to its target."""
+    out = []
+    for dev in nl.devices.values():
+        conn = [o for o in dev.outputs if ev.out_connected[o.index]]
+        if not conn:
+            continue
+        reason = None
+        which: str | None = None
+        numbers: dict[str, Any] = {}
+        in_work = dev.code in work
+        if in_work and dev.code in ev.state.removed:
+            reason = f"{dev.code}, a device the work is for, is removed"
+        # Energizing or de-energizing the primary changes every current for a true reason;
+        # the input-change rules are about what the secondary work does to them.
+        same_primary = before.state.energized == ev.state.energized
+        for di in dev.inputs:
+            if reason is not None or not same_primary:
+                break
+            i0, i1 = before.inp_cur[di.index], ev.inp_cur[di.index]
+            ref = max(before.inp_ref_a[di.index], ev.inp_ref_a[di.index])
+            ch = _changed(i0, i1, ref)
+            why = (
+                "a device the work is for"
+                if in_work and ch
+                else "a differential relay"
+                if dev.differential and ch
+                else None
+            )
+            if (
+                why is None
+                and dev.is_relay
+                and ref > 0
+                and abs(i0) < APPEAR_FROM * ref
+                and abs(i1) > APPEAR_TO * ref
+            ):
+                why = "a relay that sees a current appear (a false operating quantity)"
+            if why is not None:
+                which = di.name
+                pct = (abs(i1 - i0) / abs(i0) * 100) if abs(i0) > 1e-12 else float("inf")
+                reason = (
+                    f"input {di.name} current goes from {_fmt_a(abs(i0))} to "
+                    f"{_fmt_a(abs(i1))} ({'new' if math.isinf(pct) else f'{pct:.0f} %'}"
+                    f" change; {dev.code} is {why})"
+                )
+                numbers = {
+                    "from_a": round(abs(i0), 4),
+                    "to_a": round(abs(i1), 4),
+                    "circuit_max_a": round(ref, 4),
+                }
+        if reason is None:
+            continue
+        outs = ", ".join(f"{o.name} → {nl.terminals[o.target]}" for o in conn)
+        out.append(
+            Finding(
+                code=fc.TRIP_NOT_ISOLATED,
+                message=f"{dev.code} trip output still connected ({outs}) while {reason}",
+                device=dev.code,
+                input=which,
+                phase=phase,
+                numbers=numbers,
+            )
+        )
+    return out
+
+
+def check_bypassed(
+    nl: Netlist,
+    base: StateEval,
+    ev: StateEval,
+    phase: str | None,
+    skip: set[tuple[Any, ...]] | None = None,
+    keys: set[tuple[Any, ...]] | None = None,
+) -> list[Finding]:
+    """``input_bypassed``: an input that carried ≥ 10 % of its circuit's largest CT current in
+    the starting state carries under 1 % now. (``keys`` collects the key of every finding
+    that holds; no finding is built for a key in ``skip``.)"""
+    out = []
+    if base.carried is None:
+        ref_arr = np.asarray(base.inp_ref_a, dtype=np.float64)
+        base.carried = (ref_arr > 0) & (base.inp_abs >= BYPASS_CARRIED * ref_arr)
+        base.bypass_limit = BYPASS_NOW * ref_arr
+        base.bypass_keys = [
+            (fc.INPUT_BYPASSED, None, di.device, di.name, base.circ_id.get(base.inp_circ[k]))
+            for k, di in enumerate(nl.inputs)
+        ]
+    hits = np.flatnonzero(base.carried & (ev.inp_abs < base.bypass_limit)).tolist()
+    for k in hits:
+        key = base.bypass_keys[k]
+        if keys is not None:
+            keys.add(key)
+        if skip is not None and key in skip:
+            continue
+        di = nl.inputs[k]
+        i0, i1 = abs(base.inp_cur[k]), abs(ev.inp_cur[k])
+        cid = key[4]
+        dev = nl.devices[di.device]
+        funcs = "/".join(dev.functions) or dev.kind
+        how = "is removed" if di.device in ev.state.removed else "is bypassed"
+        out.append(
+            Finding(
+                code=fc.INPUT_BYPASSED,
+                message=(
+                    f"{dev.code} input {di.name} {how}: it carried {_fmt_a(i0)} and now "
+                    f"carries {_fmt_a(i1)}; functions {funcs} lose their current"
+                ),
+                device=dev.code,
+                input=di.name,
+                circuit=cid,
+                phase=phase,
+                numbers={
+                    "from_a": round(i0, 4),
+                    "to_a": round(i1, 4),
+                    "functions": list(dev.functions),
+                },
+            )
+        )
+    return out
+
+
+def check_partial(nl: Netlist, ev: StateEval, phase: str | None) -> list[Finding]:
+    """``partial_winding_short``: a section of a live CT outside the tap in use is shorted."""
+    out = []
+    for code, sections in ev.partial.items():
+        ct = nl.cts[code]
+        txt = ", ".join(f"{a}-{b} ({ct.positions[a]:g}-{ct.positions[b]:g} A)" for a, b in sections)
+        out.append(
+            Finding(
+                code=fc.PARTIAL_WINDING_SHORT,
+                message=(
+                    f"CT {code} (tap {ct.in_use[0]}-{ct.in_use[1]}) has winding section "
+                    f"{txt} outside the tap in use shorted"
+                ),
+                ct=code,
+                circuit=ev.circ_id.get(ev.ct_circ[ct.index]),
+                phase=phase,
+                numbers={"sections": [list(s) for s in sections]},
+            )
+        )
+    return out
+
+
+def check_grounds(nl: Netlist, ev: StateEval, phase: str | None) -> list[Finding]:
+    """``no_ground`` / ``multiple_grounds``: one ground point per secondary circuit."""
+    out = []
+    for lab, cid in ev.circ_id.items():
+        pts = ev.circ_grounds.get(lab, [])
+        if not pts:
+            out.append(
+                Finding(
+                    code=fc.NO_GROUND,
+                    message=f"circuit {cid} has no ground point",
+                    circuit=cid,
+                    phase=phase,
+                    numbers={"ground_points": 0},
+                )
+            )
+        elif len(pts) > 1:
+            out.append(
+                Finding(
+                    code=fc.MULTIPLE_GROUNDS,
+                    message=(
+                        f"circuit {cid} is grounded at {len(pts)} points "
+                        f"({', '.join(pts)}); it should be grounded at one"
+                    ),
+                    circuit=cid,
+                    phase=phase,
+                    numbers={"ground_points": len(pts)},
+                )
+            )
+    return out
+
+
+def state_findings(
+    nl: Netlist,
+    base: StateEval,
+    before: StateEval,
+    ev: StateEval,
+    work: frozenset[str],
+    phase: str | None,
+    skip: set[tuple[Any, ...]] | None = None,
+    keys: set[tuple[Any, ...]] | None = None,
+) -> list[Finding]:
+    """Every state check of the findings table for ``ev`` (compared with ``before`` for the
+    trip rules and with ``base``, the starting state, for bypassed inputs).
+
+    ``keys`` (if given) collects the key of every finding that holds; findings other than
+    ``open_secondary`` and ``trip_not_isolated`` whose key is in ``skip`` are left out."""
+    out = [
+        *check_open_secondary(nl, ev, phase),
+        *check_trip(nl, before, ev, work, phase),
+        *check_bypassed(nl, base, ev, phase, skip, keys),
+    ]
+    for f in (*check_partial(nl, ev, phase), *check_grounds(nl, ev, phase)):
+        key = finding_key(f)
+        if keys is not None:
+            keys.add(key)
+        if skip is None or key not in skip:
+            out.append(f)
+    if keys is not None:
+        keys.update(finding_key(f) for f in out)
+    return out
+
+
+ALWAYS_REPORTED = frozenset({fc.OPEN_SECONDARY, fc.TRIP_NOT_ISOLATED})
+
+
+def finding_key(f: Finding) -> tuple[Any, ...]:
+    """What makes two findings of different states "the same" for the reporting rule."""
+    return (f.code, f.ct, f.device, f.input, f.circuit)

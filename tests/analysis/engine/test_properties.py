@@ -1,0 +1,175 @@
+"""Invariants of the checker and the solver, by hypothesis (style.md practice 8).
+
+- opening any series element of a live CT loop without a short gives ``open_secondary``;
+- a CT shorted at its terminals is never reported open, whatever is opened elsewhere;
+- a break-before-make operation on a CT pole with a shorting jaw always flags its transition;
+- burden never decreases when a lead gets longer (Rayleigh's monotonicity law for resistive
+  networks, from memory; for the RL panels the lead is in series with the loop);
+- every plan the planner returns passes the checker.
+"""
+
+from __future__ import annotations
+
+import random
+
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from analysis.engine import build_netlist, check_operations, ct_burdens, plan_isolation
+from tests.analysis.engine.builders import SiteBuilder, wye_panel
+from tests.analysis.engine.generators import random_mesh
+
+SETTINGS = settings(max_examples=60, deadline=None)
+
+ELEMENTS = st.lists(st.sampled_from(["wire", "input", "link", "knife"]), min_size=1, max_size=8)
+
+
+def _series_loop(kinds: list[str], values: list[float]) -> tuple[SiteBuilder, list[dict]]:
+    """CT X1 → element 1 → … → element n → X2; for each element, the operation opening it."""
+    b = SiteBuilder("SER")
+    b.equipment("CB", max_load_a=500)
+    b.ct("CT", equipment="CB")
+    b.ground("CT:X2")
+    opens: list[dict] = []
+    prev = "CT:X1"
+    for k, (kind, v) in enumerate(zip(kinds, values, strict=False)):
+        nxt = f"TB:{k}" if k < len(kinds) - 1 else "CT:X2"
+        if kind == "wire":
+            b.wire(prev, nxt, v)
+            opens.append({"lift": [prev, nxt]})
+        elif kind == "input":
+            b.device(f"D{k}", inputs=[("I", prev, nxt, complex(v, v / 2))])
+            opens.append({"remove_device": f"D{k}"})
+        elif kind == "link":
+            b.link(prev, nxt)
+            opens.append({"lift": [prev, nxt]})
+        else:
+            b.switch(f"S{k}", [(prev, nxt, ("closed",))], transition="simultaneous")
+            opens.append({"set": f"S{k}", "to": "open"})
+        prev = nxt
+    return b, opens
+
+
+@SETTINGS
+@given(
+    kinds=ELEMENTS,
+    values=st.lists(st.floats(0.01, 5.0), min_size=8, max_size=8),
+    pick=st.integers(0, 7),
+)
+def test_opening_any_series_element_of_a_live_loop_opens_the_secondary(kinds, values, pick):
+    b, opens = _series_loop(kinds, values)
+    nl = build_netlist(b.build())
+    op = opens[pick % len(opens)]
+    v = check_operations(nl, [op])
+    assert [f.ct for f in v.steps[1].findings if f.code == "open_secondary"] == ["CT"]
+    assert v.steps[0].findings == ()
+
+
+@SETTINGS
+@given(seed=st.integers(0, 10_000), lifts=st.lists(st.integers(0, 200), max_size=6))
+def test_a_ct_shorted_at_its_terminals_is_never_open(seed, lifts):
+    doc = random_mesh(random.Random(seed), seed)
+    nl = build_netlist(doc)
+    ct = doc["cts"][0]["code"]
+    ops: list[dict] = [{"add_jumper": [f"{ct}:X1", f"{ct}:X2"], "id": "JS"}]
+    for k in lifts:
+        w = doc["wires"][k % len(doc["wires"])]
+        ops.append({"lift": [w["from"], w["to"]]})
+    v = check_operations(nl, ops)
+    for step in v.steps[1:]:
+        assert ct not in [f.ct for f in step.findings if f.code == "open_secondary"]
+
+
+@SETTINGS
+@given(
+    phase=st.sampled_from(["A", "B", "C"]),
+    load=st.floats(10, 3000),
+    residual=st.booleans(),
+    closing=st.booleans(),
+)
+def test_break_before_make_on_a_shorting_pole_flags_its_transition(phase, load, residual, closing):
+    nl = build_netlist(
+        wye_panel(
+            test_switch=True,
+            transition="break_before_make",
+            max_load_a=load,
+            z_residual_ohm=0.2 if residual else None,
+        ).build()
+    )
+    pole = f"TS-1/{phase}"
+    ops = [{"set": pole, "to": "open"}]
+    if closing:
+        ops.append({"set": pole, "to": "closed"})
+    v = check_operations(nl, ops)
+    step = v.steps[-1]
+    opened = [(f.phase, f.ct) for f in step.findings if f.code == "open_secondary"]
+    assert opened == [("transition", f"CB-1-{phase}")]
+    # the current the open CT would drive: load / (400/5) (design.md, state currents)
+    assert f"{load * 5 / 400:.2f} A secondary" in step.findings[0].message
+
+
+@SETTINGS
+@given(seed=st.integers(0, 10_000), which=st.integers(0, 100), extra_m=st.floats(0.0, 500.0))
+def test_burden_never_decreases_when_a_lead_gets_longer_resistive_mesh(seed, which, extra_m):
+    rng = random.Random(seed)
+    doc = random_mesh(rng, seed)
+    for d in doc["devices"]:
+        for i in d["inputs"]:
+            i["burden_ohm"] = [i["burden_ohm"][0], 0.0]
+    w = doc["wires"][which % len(doc["wires"])]
+    w.pop("r_ohm")
+    w.update(size="12AWG", length_m=rng.uniform(1, 300))
+    before = ct_burdens(build_netlist(doc))
+    w["length_m"] += extra_m
+    after = ct_burdens(build_netlist(doc))
+    for ct, b in before.items():
+        if b.ground_fault is None:
+            continue
+        # the CT alone sees a driving-point resistance, to which Rayleigh's law applies (the
+        # phase-fault case has other sources injecting and is no driving-point quantity)
+        assert after[ct].ground_fault.real >= b.ground_fault.real - 1e-12
+
+
+@SETTINGS
+@given(
+    r_lead=st.floats(0.01, 3),
+    extra=st.floats(0, 3),
+    z=st.complex_numbers(max_magnitude=3).filter(lambda c: c.real > 0.01 and c.imag >= 0),
+)
+def test_burden_magnitude_grows_with_the_lead_in_a_wye_panel(r_lead, extra, z):
+    short = ct_burdens(build_netlist(wye_panel(r_lead_ohm=r_lead, z_relay_ohm=z).build()))
+    long = ct_burdens(build_netlist(wye_panel(r_lead_ohm=r_lead + extra, z_relay_ohm=z).build()))
+    for ct in short:
+        assert abs(long[ct].ground_fault) >= abs(short[ct].ground_fault) - 1e-12
+        assert abs(long[ct].phase_fault) >= abs(short[ct].phase_fault) - 1e-12
+
+
+@settings(max_examples=50, deadline=None)
+@given(
+    test_switch=st.booleans(),
+    draw_out=st.booleans(),
+    trip=st.booleans(),
+    transition=st.sampled_from(["make_before_break", "break_before_make", "simultaneous"]),
+    residual=st.booleans(),
+    load=st.one_of(st.none(), st.floats(5, 2000)),
+)
+def test_every_plan_the_planner_returns_passes_the_checker(
+    test_switch, draw_out, trip, transition, residual, load
+):
+    nl = build_netlist(
+        wye_panel(
+            test_switch=test_switch,
+            draw_out=draw_out,
+            trip=trip,
+            transition=transition,
+            max_load_a=load,
+            z_residual_ohm=0.2 if residual else None,
+        ).build()
+    )
+    plan = plan_isolation(nl, "R-1")
+    if not plan.possible:
+        assert plan.isolate == () and plan.jumpers_needed
+        return
+    verdict = check_operations(nl, [*plan.isolate, *plan.restore], ["R-1"])
+    assert verdict.safe, verdict.first_danger
+    assert plan.verdict is not None and plan.verdict.safe

@@ -1,0 +1,36 @@
+"""analyze_site: everything the fleet recompute stores, in one call; and the bench runs."""
+
+from __future__ import annotations
+
+import pytest
+
+from analysis.engine import analyze_site, bench, build_netlist
+from tests.analysis.engine.builders import wye_panel
+
+
+def test_analyze_site_gives_circuits_burdens_findings_and_verdicts():
+    b = wye_panel(test_switch=True, trip=True, ground=False, code="AS1")
+    b.procedure(
+        "P-OK", [{"set": "TS-1/T1", "to": "open"}, {"set": "TS-1/A", "to": "open"}], ("R-1",)
+    )
+    b.procedure("P-BAD", [{"set": "TS-1/A", "to": "open"}], ("R-1",))
+    b.procedure("P-TYPO", [{"set": "TS-1/Z", "to": "open"}], ("R-1",))
+    result = analyze_site(build_netlist(b.build()))
+    assert result.site == "AS1"
+    assert [c.id for c in result.circuits] == ["CKT-CB-1-A"]
+    # reference.md case 6 values (wye, 0.5 Ω leads, 0.1 Ω relay): 1.1 Ω and 0.6 Ω
+    assert result.burden_map()["CB-1-A"] == {
+        "ground_fault": pytest.approx(1.1),
+        "phase_fault": pytest.approx(0.6),
+    }
+    assert result.feeds == {"R-1": {"CB-1-A", "CB-1-B", "CB-1-C"}}
+    assert [(f.code, f.circuit) for f in result.findings] == [("no_ground", "CKT-CB-1-A")]
+    assert result.verdicts["P-OK"].safe
+    assert not result.verdicts["P-BAD"].safe
+    assert result.procedure_errors == {"P-TYPO": "step 1: unknown switch 'TS-1/Z'"}
+
+
+def test_bench_runs_on_a_small_fleet(capsys):
+    assert bench.main(["--circuits", "40", "--sites", "4", "--repeat", "1"]) == 0
+    out = capsys.readouterr().out
+    assert "circuits/s" in out and "30 steps" in out and "possible=True" in out
