@@ -1,0 +1,187 @@
+"""The analysis CLI contracts of design.md: ``check_procedure``, ``plan_isolation`` and
+``ct_report`` answer the design's JSON (``--json`` prints exactly the API body) for stored sites
+and for site files (``--file``), carry the safety cautions, and fail clearly on unknown names.
+
+The expectations are the rules of the trade the demo procedures were written to show (common
+practice, no source): isolate trips before shorting CTs; never open a CT pole that has no
+shorting jaw on a live circuit."""
+
+from __future__ import annotations
+
+import io
+import json
+from pathlib import Path
+
+import pytest
+from django.core.management import call_command
+from django.core.management.base import CommandError
+
+from analysis.engine.cautions import CAUTIONS
+from inventory.services import site_import
+from inventory.sitefile.validate import load_site_file
+
+DEMO = Path(__file__).resolve().parents[3] / "fixtures" / "demo"
+QUILLFEN = DEMO / "quillfen.json"
+
+VERDICT_KEYS = {"site", "procedure", "safe", "first_danger", "steps", "cautions"}
+FINDING_KEYS = {"code", "severity", "phase", "ct", "device", "input", "circuit", "message"}
+PLAN_KEYS = {"site", "device", "possible", "isolate", "restore", "affected", "verdict", "cautions"}
+REPORT_KEYS = {
+    "site",
+    "ct",
+    "tap",
+    "ratio",
+    "turns",
+    "winding_ohm_at_tap",
+    "accuracy",
+    "knee_point_v",
+    "cases",
+    "findings",
+}
+CASE_KEYS = {
+    "burden_ohm",
+    "fault_a",
+    "secondary_fault_a",
+    "x_over_r",
+    "vx_required_v",
+    "vx_available_v",
+    "c37_110_index",
+    "time_to_saturate_ms",
+}
+
+
+def run(*args: str) -> str:
+    out = io.StringIO()
+    call_command(*args, stdout=out)
+    return out.getvalue()
+
+
+@pytest.fixture
+def stored(db):
+    site_import(doc=load_site_file(QUILLFEN))
+    return "QFN"
+
+
+def test_unsafe_procedure_verdict_json(stored):
+    verdict = json.loads(run("check_procedure", stored, "P-R133-OUT-DRAFT", "--json"))
+    assert set(verdict) == VERDICT_KEYS
+    assert verdict["safe"] is False
+    danger = verdict["first_danger"]
+    assert (danger["step"], danger["phase"], danger["code"], danger["ct"]) == (
+        3,
+        "after",
+        "open_secondary",
+        "CB-133-A",
+    )
+    assert verdict["steps"][0] == {"step": 0, "op": None, "findings": []}
+    step3 = verdict["steps"][3]
+    assert step3["op"] == {"set": "TS-133/N", "to": "open"}
+    dangers = [f for f in step3["findings"] if f["severity"] == "danger"]
+    assert {f["ct"] for f in dangers} == {"CB-133-A", "CB-133-B", "CB-133-C"}
+    assert all(set(f) == FINDING_KEYS for f in step3["findings"])
+    assert all("A secondary" in f["message"] for f in dangers)
+    assert verdict["cautions"] == list(CAUTIONS)
+
+
+def test_safe_procedure_and_text_output(stored):
+    verdict = json.loads(run("check_procedure", stored, "P-R132-OUT", "--json"))
+    assert verdict["safe"] is True
+    assert verdict["first_danger"] is None
+    text = run("check_procedure", stored, "P-R132-OUT")
+    assert text.startswith("Procedure P-R132-OUT at QFN: SAFE")
+    assert "CAUTIONS" in text
+    assert "not a switching order" in text
+
+
+def test_check_procedure_on_a_site_file_matches_the_stored_site(stored):
+    from_file = json.loads(
+        run("check_procedure", "--file", str(QUILLFEN), "P-R133-OUT-DRAFT", "--json")
+    )
+    from_db = json.loads(run("check_procedure", stored, "P-R133-OUT-DRAFT", "--json"))
+    assert from_file == from_db
+
+
+def test_check_procedure_reports_unknown_names(stored):
+    with pytest.raises(CommandError, match="P-NOPE"):
+        run("check_procedure", stored, "P-NOPE")
+    with pytest.raises(CommandError, match="no site with code 'NOPE'"):
+        run("check_procedure", "NOPE", "P-1")
+
+
+def test_check_procedure_refuses_a_bad_site_file(tmp_path, db):
+    doc = load_site_file(QUILLFEN)
+    doc["wires"][0]["length_ft"] = -3
+    bad = tmp_path / "bad.json"
+    bad.write_text(json.dumps(doc))
+    with pytest.raises(CommandError, match="/wires/0/length_ft: must be greater than 0"):
+        run("check_procedure", "--file", str(bad), "P-R132-OUT")
+
+
+def test_plan_isolation_json_isolates_trips_first_and_passes_its_own_check(stored):
+    plan = json.loads(run("plan_isolation", stored, "R-132", "--json"))
+    assert set(plan) >= PLAN_KEYS
+    assert plan["possible"] is True
+    assert plan["verdict"]["safe"] is True
+    assert plan["cautions"] == list(CAUTIONS)
+    ops = [op["set"] for op in plan["isolate"]]
+    trips = [i for i, code in enumerate(ops) if "/T" in code]
+    shorts = [i for i, code in enumerate(ops) if "/T" not in code]
+    assert trips and shorts and max(trips) < min(shorts)
+    # The plan, checked as a procedure of its own, is safe in every transition.
+    doc = load_site_file(QUILLFEN)
+    doc["procedures"] = [
+        {
+            "code": "P-PLAN",
+            "title": "plan",
+            "devices": ["R-132"],
+            "steps": plan["isolate"] + plan["restore"],
+        }
+    ]
+    from analysis import engine
+
+    verdict = engine.check_procedure(engine.build_netlist(doc), "P-PLAN").to_json("QFN")
+    assert verdict["safe"] is True
+
+
+def test_plan_text_output(stored):
+    text = run("plan_isolation", stored, "R-132")
+    assert text.startswith("Isolation plan for R-132 at QFN: possible")
+    assert "Isolate:" in text and "Restore:" in text and "CAUTIONS" in text
+
+
+def test_ct_report_json_shape_and_ratio_mismatch(stored):
+    report = json.loads(run("ct_report", stored, "CB-133-A", "--json"))
+    assert set(report) == REPORT_KEYS
+    assert report["tap"] == ["X1", "X5"]
+    assert report["ratio"] == "1200:5"
+    assert report["turns"] == 240
+    assert set(report["cases"]) == {"ground_fault", "phase_fault"}
+    for case in report["cases"].values():
+        assert set(case) == CASE_KEYS
+        assert set(case["burden_ohm"]) == {"r", "x", "z"}
+    codes = {(f["code"], f["device"]) for f in report["findings"]}
+    assert ("ratio_setting_mismatch", "R-133") in codes
+
+
+def test_ct_report_for_every_demo_ct(db):
+    for path in sorted(DEMO.glob("*.json")):
+        doc = load_site_file(path)
+        for ct in doc["cts"]:
+            report = json.loads(run("ct_report", "--file", str(path), ct["code"], "--json"))
+            assert report["ct"] == ct["code"]
+            assert report["tap"] == ct["in_use"]
+
+
+def test_ct_plot_writes_png_files(stored, tmp_path):
+    from PIL import Image
+
+    written = run("ct_plot", stored, "CB-133-A", "--out", str(tmp_path)).split()
+    assert sorted(Path(p).name for p in written) == [
+        "QFN_CB-133-A_burden.png",
+        "QFN_CB-133-A_excitation.png",
+    ]
+    for path in written:
+        with Image.open(path) as image:
+            assert image.size[0] > 300 and image.size[1] > 200
+            darkest, lightest = image.convert("L").getextrema()
+            assert lightest - darkest > 100  # not blank
