@@ -15,6 +15,7 @@ import contextlib
 import datetime as dt
 import json
 import logging
+import operator
 import threading
 import time
 from collections.abc import Iterable, Iterator, Mapping
@@ -91,11 +92,16 @@ def run_create(
     )
 
 
-def run_dispatch(*, run: models.AnalysisRun) -> None:
-    """Send the run's task (at once, or when the surrounding transaction commits)."""
+def run_dispatch(*, run: models.AnalysisRun, on_commit: bool = True) -> None:
+    """Send the run's task when the surrounding transaction commits (at once outside one).
+    ``on_commit=False`` sends at once: for top-level callers (the CLI) whose run row is
+    already committed."""
     from analysis.tasks import recompute_run
 
-    recompute_run.delay_on_commit(run.pk)
+    if on_commit:
+        recompute_run.delay_on_commit(run.pk)
+    else:
+        recompute_run.delay(run.pk)
 
 
 def run_started(*, run_id: int, task_id: str) -> None:
@@ -161,16 +167,10 @@ class ChunkOutcome:
 
 
 def _compute(docs: dict[int, dict]) -> tuple[dict[int, Any], dict[int, str]]:
-    """The engine on a chunk; if it raises, site by site, so one bad site costs only itself."""
+    """The engine on a chunk, site by site, so one site the engine cannot handle costs only
+    itself: its old results stay (and show as stale), the others are written."""
     from analysis.compute import compute_sites
 
-    try:
-        return compute_sites(docs), {}
-    except Exception:
-        if len(docs) == 1:
-            sid = next(iter(docs))
-            log.exception("recompute of site %s failed", sid)
-            return {}, {sid: _error_text(docs[sid])}
     results: dict[int, Any] = {}
     failed: dict[int, str] = {}
     for sid, doc in docs.items():
@@ -364,24 +364,32 @@ def _columns(model: type[djm.Model]) -> list[djm.Field]:
     return [f for f in model._meta.concrete_fields if not f.primary_key]
 
 
-def _insert(model: type[djm.Model], rows: list[dict[str, Any]]) -> None:
-    """Insert rows: one COPY on PostgreSQL (psycopg 3), ``bulk_create`` elsewhere."""
+def _insert(model: type[djm.Model], rows: list[dict[str, Any]], *, table: str = "") -> None:
+    """Insert rows: one COPY on PostgreSQL (psycopg 3), ``bulk_create`` elsewhere. ``table``
+    overrides the model's table (PostgreSQL only; the benchmark copies into a twin)."""
     if not rows:
         return
     fields = _columns(model)
     if connection.vendor == "postgresql":
-        json_cols = {f.attname for f in fields if isinstance(f, djm.JSONField)}
         names = ", ".join(connection.ops.quote_name(f.column) for f in fields)
-        table = connection.ops.quote_name(model._meta.db_table)
+        table = connection.ops.quote_name(table or model._meta.db_table)
+        # COPY goes to psycopg directly: wrap its errors as Django's, so a lost connection is
+        # a django.db.OperationalError (retried) and the connection is known to be broken.
+        attnames = [f.attname for f in fields]
+        json_at = [i for i, f in enumerate(fields) if isinstance(f, djm.JSONField)]
+        pick = operator.itemgetter(*attnames)
+        dumps = json.dumps
         with (
+            connection.wrap_database_errors,
             connection.cursor() as cursor,
             cursor.copy(f"COPY {table} ({names}) FROM STDIN") as copy,
         ):
-            attnames = [f.attname for f in fields]
+            write = copy.write_row
             for row in rows:
-                copy.write_row(
-                    [json.dumps(row.get(a)) if a in json_cols else row.get(a) for a in attnames]
-                )
+                values = list(pick(row))
+                for i in json_at:
+                    values[i] = dumps(values[i])
+                write(values)
     else:
         model.objects.bulk_create([model(**row) for row in rows], batch_size=500)
 
@@ -433,8 +441,8 @@ def requests_sweep(*, min_age_s: float = 60.0, max_sends: int = 5) -> int:
     return sent
 
 
-def fleet_recompute(*, force: bool = True) -> models.AnalysisRun:
-    """A whole-fleet run, sent at once (the nightly sweep and ``recompute`` without a site)."""
+def fleet_recompute(*, force: bool = True, on_commit: bool = True) -> models.AnalysisRun:
+    """A whole-fleet run (the nightly sweep, and ``recompute`` without a site)."""
     run = run_create(kind=RunKind.FLEET, force=force)
-    run_dispatch(run=run)
+    run_dispatch(run=run, on_commit=on_commit)
     return run

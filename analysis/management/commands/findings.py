@@ -1,0 +1,45 @@
+"""``findings [--site SITE] [--severity S] [--json]``: the stored findings, each saying whether
+the record changed after it was computed (``stale``)."""
+
+from __future__ import annotations
+
+import json
+
+from django.core.management.base import BaseCommand, CommandError
+
+from analysis.engine.findings import SEVERITY_ORDER
+from analysis.selectors import findings_list
+from inventory.models import Site
+
+
+class Command(BaseCommand):
+    help = "List the findings of the last recompute (design.md's findings JSON with --json)."
+
+    def add_arguments(self, parser) -> None:
+        parser.add_argument("--site", help="site code")
+        parser.add_argument("--severity", choices=SEVERITY_ORDER)
+        parser.add_argument("--json", action="store_true", help="print the API's JSON body")
+
+    def handle(self, *args, site: str | None, severity: str | None, json: bool, **options):
+        if site and not Site.objects.filter(code=site).exists():
+            raise CommandError(f"no such site: {site}")
+        rows = findings_list(site=site, severity=severity)
+        if json:
+            self.stdout.write(_dumps(rows))
+            return
+        for row in rows:
+            where = " ".join(
+                f"{k}={row[k]}"
+                for k in ("ct", "device", "input", "circuit", "procedure", "step")
+                if row[k] is not None
+            )
+            stale = " [STALE: the record changed since]" if row["stale"] else ""
+            self.stdout.write(
+                f"{row['site']} {row['severity']:<8} {row['code']:<22} {where}{stale}\n"
+                f"    {row['message']}"
+            )
+        self.stdout.write(f"{len(rows)} finding(s)")
+
+
+def _dumps(rows: list[dict]) -> str:
+    return json.dumps(rows, indent=2, ensure_ascii=False)

@@ -1,0 +1,211 @@
+"""Reads of the analysis results, each with the answer to "is this stale?".
+
+A result is stale when the revision it was computed from is below the site's current revision
+(``inventory.Site.revision`` goes up with every write that changes a circuit). Every selector
+here returns that flag beside the result, so no caller can show a stale verdict as current.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterable
+from typing import Any
+
+from django.db.models import (
+    BooleanField,
+    Case,
+    F,
+    IntegerField,
+    OuterRef,
+    Q,
+    QuerySet,
+    Subquery,
+    Value,
+    When,
+)
+
+from analysis import models
+from analysis.engine.findings import SEVERITY_ORDER
+from inventory.models import Site
+from inventory.selectors import site_documents
+
+FINDING_FIELDS = (
+    "site",
+    "code",
+    "severity",
+    "ct",
+    "device",
+    "input",
+    "circuit",
+    "procedure",
+    "step",
+    "message",
+    "computed_at",
+    "stale",
+)
+
+
+def _site_revision() -> Subquery:
+    return Subquery(Site.objects.filter(pk=OuterRef("site_id")).values("revision")[:1])
+
+
+def with_stale(qs: QuerySet) -> QuerySet:
+    """Annotate result rows with ``site_revision`` and ``stale`` (in the same query). A row
+    whose site no longer exists (no revision to compare with) counts as stale."""
+    return qs.annotate(site_revision=_site_revision()).annotate(
+        stale=Case(
+            When(revision__gte=F("site_revision"), then=Value(False)),
+            default=Value(True),
+            output_field=BooleanField(),
+        )
+    )
+
+
+def findings_queryset(*, site: str | None = None, severity: str | None = None) -> QuerySet:
+    """Findings with ``stale``, most severe first within each site (one query)."""
+    qs = models.Finding.objects.all()
+    if site:
+        qs = qs.filter(site_code=site)
+    if severity:
+        qs = qs.filter(severity=severity)
+    rank = Case(
+        *(When(severity=s, then=Value(i)) for i, s in enumerate(SEVERITY_ORDER)),
+        default=Value(len(SEVERITY_ORDER)),
+        output_field=IntegerField(),
+    )
+    return (
+        with_stale(qs)
+        .annotate(severity_rank=rank)
+        .order_by("site_code", "severity_rank", "code", "procedure", "step", "ct", "device", "id")
+    )
+
+
+def finding_json(row: models.Finding) -> dict[str, Any]:
+    """One finding as design.md's findings JSON writes it."""
+    return {
+        "site": row.site_code,
+        "code": row.code,
+        "severity": row.severity,
+        "ct": row.ct,
+        "device": row.device,
+        "input": row.input,
+        "circuit": row.circuit,
+        "procedure": row.procedure,
+        "step": row.step,
+        "message": row.message,
+        "computed_at": row.computed_at.isoformat().replace("+00:00", "Z"),
+        "stale": bool(row.stale),
+    }
+
+
+def findings_list(*, site: str | None = None, severity: str | None = None) -> list[dict]:
+    """The findings JSON of design.md (the ``findings --json`` body), one query."""
+    return [finding_json(row) for row in findings_queryset(site=site, severity=severity)]
+
+
+def site_status(*, site: str) -> dict[str, Any]:
+    """Where a site's results stand: its revision, the revision of its stored results (None
+    when never computed), when, and whether they are stale. One query."""
+    row = (
+        Site.objects.filter(code=site)
+        .annotate(
+            computed_revision=Subquery(
+                models.SiteComputation.objects.filter(site_id=OuterRef("pk")).values("revision")[:1]
+            ),
+            computed_at=Subquery(
+                models.SiteComputation.objects.filter(site_id=OuterRef("pk")).values("computed_at")[
+                    :1
+                ]
+            ),
+        )
+        .values("pk", "code", "revision", "computed_revision", "computed_at")
+        .get()
+    )
+    computed = row["computed_revision"]
+    return {
+        "site": row["code"],
+        "revision": row["revision"],
+        "computed_revision": computed,
+        "computed_at": row["computed_at"],
+        "stale": computed is None or computed < row["revision"],
+    }
+
+
+def stale_site_ids() -> list[int]:
+    """Sites whose stored results are missing or older than their record."""
+    computed = models.SiteComputation.objects.filter(site_id=OuterRef("pk")).values("revision")
+    return list(
+        Site.objects.annotate(computed_revision=Subquery(computed[:1]))
+        .filter(Q(computed_revision__isnull=True) | Q(computed_revision__lt=F("revision")))
+        .order_by("pk")
+        .values_list("pk", flat=True)
+    )
+
+
+def ct_report(*, site: str, ct: str) -> tuple[dict, bool] | None:
+    """The stored CT report JSON and whether it is stale, or None when not computed."""
+    row = with_stale(models.CTReport.objects.filter(site_code=site, ct=ct)).first()
+    return None if row is None else (row.report, bool(row.stale))
+
+
+def ct_ratings(*, site: str, ct: str) -> QuerySet:
+    """The CT's ratings per case, with ``stale``."""
+    return with_stale(models.CTRating.objects.filter(site_code=site, ct=ct)).order_by("case")
+
+
+def procedure_verdict(*, site: str, procedure: str) -> tuple[dict, bool] | None:
+    """The stored verdict JSON of a procedure and whether it is stale (a stale verdict must
+    not be shown as current), or None when not computed."""
+    row = with_stale(
+        models.ProcedureVerdict.objects.filter(site_code=site, procedure=procedure)
+    ).first()
+    return None if row is None else (row.verdict, bool(row.stale))
+
+
+def circuits_sharing_ct(*, site_id: int, ct: str) -> QuerySet:
+    """Every member (CTs and devices) of the circuits the CT belongs to: one query, an
+    indexed self-join on (site_id, kind, code) then (site_id, circuit_key)."""
+    keys = models.CircuitMember.objects.filter(
+        site_id=site_id, kind=models.CircuitMember.Kind.CT, code=ct
+    ).values("circuit_key")
+    return models.CircuitMember.objects.filter(site_id=site_id, circuit_key__in=keys).order_by(
+        "circuit_key", "kind", "code"
+    )
+
+
+def chunk_inputs(
+    site_ids: Iterable[int], *, skip_current: bool = False
+) -> tuple[dict[int, tuple[str, int]], dict[int, dict]]:
+    """What a recompute chunk reads: ``{site id: (code, revision)}`` of the sites that still
+    exist, and the site documents of those to compute, with a constant number of queries
+    whatever the number of sites. With ``skip_current`` a site whose stored results are at its
+    current revision gets no document (nothing to do).
+
+    The revisions are read *before* the documents: on READ COMMITTED an edit can commit in
+    between, and then the results are labelled with an older revision than their inputs, so
+    they look stale and get recomputed. The other order could label old inputs as current.
+    """
+    ids = sorted(set(site_ids))
+    rows = Site.objects.filter(pk__in=ids).annotate(
+        computed_revision=Subquery(
+            models.SiteComputation.objects.filter(site_id=OuterRef("pk")).values("revision")[:1]
+        )
+    )
+    heads: dict[int, tuple[str, int]] = {}
+    todo: list[int] = []
+    for pk, code, revision, computed in rows.values_list(
+        "pk", "code", "revision", "computed_revision"
+    ):
+        heads[pk] = (code, revision)
+        if not (skip_current and computed is not None and computed >= revision):
+            todo.append(pk)
+    docs = site_documents(todo) if todo else {}
+    return heads, docs
+
+
+def computed_revisions(site_ids: Iterable[int]) -> dict[int, int]:
+    """Revision of the stored results per site (sites never computed are absent)."""
+    return dict(
+        models.SiteComputation.objects.filter(site_id__in=list(site_ids)).values_list(
+            "site_id", "revision"
+        )
+    )

@@ -1,0 +1,363 @@
+"""Background recompute on the embedded default: no broker, tasks run in-process (eager) once
+the edit commits. Runs on SQLite and on PostgreSQL alike.
+
+The on-commit callbacks run for real (``django_capture_on_commit_callbacks(execute=True)``):
+nothing is computed before the edit commits, everything is fresh right after.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import io
+import json
+
+import pytest
+from django.contrib.auth import get_user_model
+from django.core.management import call_command
+from django.core.management.base import CommandError
+from django.db import transaction
+from django.utils import timezone
+
+from analysis import models, selectors, services
+from analysis.compute import compute_sites
+from analysis.models import RequestStatus, RunKind, RunStatus
+from config.celery import app
+from inventory import models as inv
+from inventory.services import SiteImportError, ct_change_tap, site_import
+from tests.inventory.docs import small_site
+
+pytestmark = pytest.mark.django_db
+
+
+@pytest.fixture(autouse=True)
+def eager():
+    """The embedded default, even when the suite runs with a broker configured."""
+    before = app.conf.task_always_eager
+    app.conf.task_always_eager = True
+    yield
+    app.conf.task_always_eager = before
+
+
+def _import(doc: dict, capture) -> inv.Site:
+    with capture(execute=True):
+        site_import(doc=doc)
+    return inv.Site.objects.get(code=doc["site"]["code"])
+
+
+def _result_sets(site_id: int) -> dict[str, set]:
+    """Every stored result row of a site, without ids and times, for exact comparison."""
+    drop = {"id", "computed_at", "run_id"}
+    out = {}
+    for model in services.RESULT_MODELS:
+        rows = model.objects.filter(site_id=site_id).values()
+        out[model.__name__] = {
+            json.dumps({k: v for k, v in row.items() if k not in drop}, sort_keys=True, default=str)
+            for row in rows
+        }
+    return out
+
+
+def test_import_commits_then_results_are_fresh(django_capture_on_commit_callbacks):
+    site = _import(small_site(), django_capture_on_commit_callbacks)
+    status = selectors.site_status(site="TST")
+    assert status["stale"] is False
+    assert status["computed_revision"] == site.revision
+    # The wye set of three CTs into one relay (residual input) is one secondary circuit with
+    # one ground at TB-1:N: common practice, no source (one ground point per circuit, S20).
+    circuits = models.Circuit.objects.filter(site_id=site.pk)
+    assert circuits.count() == 1 and circuits.get().ground_points == 1
+    assert models.CTRating.objects.filter(site_id=site.pk).count() == 3 * 2  # 3 CTs × 2 cases
+    assert models.ProcedureVerdict.objects.filter(site_id=site.pk).count() == 1
+    request = models.RecomputeRequest.objects.get(site_id=site.pk)
+    assert request.status == RequestStatus.DONE
+    assert request.run.status == RunStatus.SUCCESS
+
+
+def test_nothing_is_sent_before_the_edit_commits(django_capture_on_commit_callbacks):
+    with django_capture_on_commit_callbacks(execute=False) as callbacks:
+        site_import(doc=small_site())
+    site = inv.Site.objects.get(code="TST")
+    assert len(callbacks) == 1
+    assert models.RecomputeRequest.objects.get(site_id=site.pk).status == RequestStatus.PENDING
+    assert not models.SiteComputation.objects.filter(site_id=site.pk).exists()
+    callbacks[0]()
+    assert selectors.site_status(site="TST")["stale"] is False
+
+
+def test_rolled_back_edit_sends_nothing(django_capture_on_commit_callbacks):
+    bad = small_site()
+    bad["cts"][0]["in_use"] = ["X1", "X9"]  # not a terminal of the CT
+    with (
+        django_capture_on_commit_callbacks(execute=True) as callbacks,
+        pytest.raises(SiteImportError),
+    ):
+        site_import(doc=bad)
+    assert callbacks == []
+    assert not models.RecomputeRequest.objects.exists()
+
+
+def _dangers(site: str) -> set[tuple]:
+    return {
+        (f["code"], f["ct"], f["device"])
+        for f in selectors.findings_list(site=site, severity="danger")
+    }
+
+
+def test_tap_change_gives_fresh_report_and_open_secondary(django_capture_on_commit_callbacks):
+    site = _import(small_site(), django_capture_on_commit_callbacks)
+    ct = inv.CurrentTransformer.objects.get(site=site, code="CB-1-A")
+    assert selectors.ct_report(site="TST", ct="CB-1-A")[0]["ratio"] == "400:5"
+    assert ("open_secondary", "CB-1-A", None) not in _dangers("TST")
+    with django_capture_on_commit_callbacks(execute=True):
+        ct_change_tap(ct=ct, to=("X1", "X5"), by="tester", reason="WO-1")
+    report, stale = selectors.ct_report(site="TST", ct="CB-1-A")
+    # X1-X5 of a 600:5 multi-ratio CT with positions 0/100/150/400/600 is 600:5 (S4).
+    assert report["ratio"] == "600:5" and stale is False
+    # The leads are still on X1 and X4: nothing joins X5, so the live CT's secondary is open
+    # (design.md's open_secondary rule).
+    assert ("open_secondary", "CB-1-A", None) in _dangers("TST")
+    site.refresh_from_db()
+    assert selectors.site_status(site="TST")["computed_revision"] == site.revision
+
+
+def test_rewired_tap_gives_ratio_setting_mismatch(django_capture_on_commit_callbacks):
+    _import(small_site(), django_capture_on_commit_callbacks)
+    assert not any(code == "ratio_setting_mismatch" for code, _, _ in _dangers("TST"))
+    doc = small_site()
+    doc["cts"][0]["in_use"] = ["X1", "X5"]
+    for wire in doc["wires"]:
+        if wire["from"] == "CB-1-A:X4":
+            wire["from"] = "CB-1-A:X5"
+    _import(doc, django_capture_on_commit_callbacks)
+    # R-1 is set to 400:5 but CB-1-A now feeds it from X1-X5, 600:5 (S4): design.md's
+    # ratio_setting_mismatch, and no open secondary since X5 is wired.
+    dangers = _dangers("TST")
+    assert any(code == "ratio_setting_mismatch" and dev == "R-1" for code, _, dev in dangers)
+    assert not any(code == "open_secondary" for code, _, _ in dangers)
+    assert selectors.site_status(site="TST")["stale"] is False
+
+
+def test_results_turn_stale_when_the_revision_moves_on(django_capture_on_commit_callbacks):
+    site = _import(small_site(), django_capture_on_commit_callbacks)
+    assert all(not f["stale"] for f in selectors.findings_list(site="TST"))
+    ct = inv.CurrentTransformer.objects.get(site=site, code="CB-1-B")
+    with django_capture_on_commit_callbacks(execute=False) as callbacks:
+        ct_change_tap(ct=ct, to=("X1", "X5"))
+    findings = selectors.findings_list(site="TST")
+    assert findings and all(f["stale"] for f in findings)
+    assert selectors.procedure_verdict(site="TST", procedure="P-1")[1] is True
+    assert selectors.site_status(site="TST")["stale"] is True
+    assert selectors.stale_site_ids() == [site.pk]
+    callbacks[0]()
+    assert not any(f["stale"] for f in selectors.findings_list(site="TST"))
+    assert selectors.procedure_verdict(site="TST", procedure="P-1")[1] is False
+    assert selectors.stale_site_ids() == []
+
+
+def test_admin_edit_recomputes(django_capture_on_commit_callbacks, client):
+    site = _import(small_site(), django_capture_on_commit_callbacks)
+    before = models.CTRating.objects.get(site_id=site.pk, ct="CB-1-A", case="ground_fault")
+    assert before.fault_a == pytest.approx(9500)
+    bus = inv.Bus.objects.get(site=site, code="B69")
+    user = get_user_model().objects.create_superuser("admin", "admin@example.invalid", "pw")
+    client.force_login(user)
+    with django_capture_on_commit_callbacks(execute=True):
+        response = client.post(
+            f"/admin/inventory/bus/{bus.pk}/change/",
+            {
+                "site": site.pk,
+                "code": "B69",
+                "kv": "69",
+                "three_phase_fault_ka": "12",
+                "ground_fault_ka": "19",
+                "x_over_r": "10",
+            },
+        )
+    assert response.status_code == 302, response.content[:3000]
+    site.refresh_from_db()
+    after = models.CTRating.objects.get(site_id=site.pk, ct="CB-1-A", case="ground_fault")
+    assert after.revision == site.revision > before.revision
+    # The ground-fault case uses the bus's single-line-to-ground current (design.md), and the
+    # secondary current is the primary current over the 400:5 ratio of X1-X4 (S4).
+    assert after.fault_a == pytest.approx(19000)
+    assert after.secondary_fault_a == pytest.approx(19000 * 5 / 400)
+
+
+def test_recompute_twice_gives_the_same_rows_and_counts_once(django_capture_on_commit_callbacks):
+    with services.recompute_deferred():
+        site_import(doc=small_site())
+    site = inv.Site.objects.get(code="TST")
+    run = services.run_create(kind=RunKind.SITES, site_ids=[site.pk], force=True)
+    first = services.chunk_recompute(run_id=run.pk, index=0, site_ids=[site.pk], force=True)
+    rows = _result_sets(site.pk)
+    again = services.chunk_recompute(run_id=run.pk, index=0, site_ids=[site.pk], force=True)
+    assert first.counted and not again.counted
+    assert _result_sets(site.pk) == rows
+    run.refresh_from_db()
+    assert run.sites_done == 1
+    assert run.cts == 3
+    # The rows are what the engine returns for the stored document, no more, no less.
+    doc_results = compute_sites({site.pk: small_site()})[site.pk]
+    assert len(rows["Finding"]) == len(doc_results.findings)
+    assert len(rows["CTRating"]) == len(doc_results.ct_cases)
+
+
+def test_unchanged_site_is_skipped_without_force(django_capture_on_commit_callbacks):
+    site = _import(small_site(), django_capture_on_commit_callbacks)
+    computed_at = models.SiteComputation.objects.get(site_id=site.pk).computed_at
+    out = services.chunk_recompute(run_id=None, index=0, site_ids=[site.pk], force=False)
+    assert out.skipped == [site.pk] and out.written == []
+    assert models.SiteComputation.objects.get(site_id=site.pk).computed_at == computed_at
+
+
+def test_sweep_sends_a_lost_request_once_per_site(django_capture_on_commit_callbacks):
+    # Three edits whose sends were lost (callbacks dropped, as when the broker is down).
+    with django_capture_on_commit_callbacks(execute=False):
+        site_import(doc=small_site())
+        site = inv.Site.objects.get(code="TST")
+        for tap in (("X1", "X5"), ("X1", "X3")):
+            ct_change_tap(ct=inv.CurrentTransformer.objects.get(site=site, code="CB-1-A"), to=tap)
+    assert models.RecomputeRequest.objects.filter(status=RequestStatus.PENDING).count() == 3
+    assert services.requests_sweep() == 0  # younger than a minute: not due yet
+    models.RecomputeRequest.objects.update(created_at=timezone.now() - dt.timedelta(minutes=2))
+    assert services.requests_sweep() == 1
+    assert not models.RecomputeRequest.objects.exclude(status=RequestStatus.DONE).exists()
+    site.refresh_from_db()
+    assert selectors.site_status(site="TST")["computed_revision"] == site.revision
+    assert selectors.ct_report(site="TST", ct="CB-1-A")[0]["ratio"] == "150:5"  # X1-X3 (S4)
+
+
+def test_failing_site_does_not_break_the_edit(django_capture_on_commit_callbacks, monkeypatch):
+    def broken(docs):
+        raise ZeroDivisionError("injected engine failure")
+
+    monkeypatch.setattr("analysis.compute.compute_sites", broken)
+    site = _import(small_site(), django_capture_on_commit_callbacks)  # must not raise
+    request = models.RecomputeRequest.objects.get(site_id=site.pk)
+    assert request.status == RequestStatus.PENDING  # the sweep will try again
+    assert request.run.status == RunStatus.FAILURE
+    assert "injected engine failure" in request.run.error
+    assert selectors.site_status(site="TST")["stale"] is True
+
+
+def test_fleet_run_in_chunks(django_capture_on_commit_callbacks, settings):
+    settings.LOOPKEEP_RECOMPUTE_CHUNK_SITES = 2
+    with services.recompute_deferred():
+        for code in ("AAA", "BBB", "CCC"):
+            site_import(doc=small_site(code))
+    assert models.RecomputeRequest.objects.filter(status=RequestStatus.PENDING).count() == 3
+    with django_capture_on_commit_callbacks(execute=True):
+        run = services.fleet_recompute()
+    run.refresh_from_db()
+    assert (run.status, run.sites_done, run.sites_total) == (RunStatus.SUCCESS, 3, 3)
+    assert run.chunks.count() == 2
+    assert run.cts == 9
+    assert not models.RecomputeRequest.objects.exclude(status=RequestStatus.DONE).exists()
+    assert models.SiteComputation.objects.count() == 3
+
+
+def test_chunk_read_takes_a_constant_number_of_queries(
+    django_capture_on_commit_callbacks, django_assert_num_queries
+):
+    with services.recompute_deferred():
+        for code in ("AAA", "BBB", "CCC"):
+            site_import(doc=small_site(code))
+    ids = list(inv.Site.objects.order_by("pk").values_list("pk", flat=True))
+    # 1 query for the sites and their computed revisions, then site_documents: 18, one per
+    # record table (sites, terminals, buses, ..., procedure steps).
+    with django_assert_num_queries(19):
+        heads, docs = selectors.chunk_inputs(ids[:1])
+    assert len(docs) == 1
+    with django_assert_num_queries(19):
+        heads, docs = selectors.chunk_inputs(ids)
+    assert len(docs) == 3 and sorted(heads) == ids
+
+
+def test_findings_selector_is_one_query(
+    django_capture_on_commit_callbacks, django_assert_num_queries
+):
+    for code in ("AAA", "BBB"):
+        _import(small_site(code), django_capture_on_commit_callbacks)
+    with django_assert_num_queries(1):
+        rows = selectors.findings_list()
+    assert rows and {r["site"] for r in rows} == {"AAA", "BBB"}
+    assert all(list(r) == list(selectors.FINDING_FIELDS) for r in rows)
+
+
+def test_circuit_members_of_a_ct_in_one_query(
+    django_capture_on_commit_callbacks, django_assert_num_queries
+):
+    site = _import(small_site(), django_capture_on_commit_callbacks)
+    with django_assert_num_queries(1):
+        members = {
+            (m.kind, m.code) for m in selectors.circuits_sharing_ct(site_id=site.pk, ct="CB-1-A")
+        }
+    # The three CTs of the wye set share the neutral, so one circuit holds all three and R-1.
+    assert members == {("ct", "CB-1-A"), ("ct", "CB-1-B"), ("ct", "CB-1-C"), ("device", "R-1")}
+
+
+def test_findings_command_json_and_text(django_capture_on_commit_callbacks):
+    _import(small_site(), django_capture_on_commit_callbacks)
+    out = io.StringIO()
+    call_command("findings", "--site", "TST", "--json", stdout=out)
+    body = json.loads(out.getvalue())
+    assert body == selectors.findings_list(site="TST")
+    out = io.StringIO()
+    call_command("findings", "--severity", "danger", stdout=out)
+    assert f"{len(selectors.findings_list(severity='danger'))} finding(s)" in out.getvalue()
+    with pytest.raises(CommandError, match="no such site"):
+        call_command("findings", "--site", "NOPE")
+
+
+def test_recompute_command_in_process(django_capture_on_commit_callbacks):
+    with services.recompute_deferred():
+        site_import(doc=small_site())
+    out = io.StringIO()
+    call_command("recompute", "--site", "TST", stdout=out)
+    assert "success" in out.getvalue() and "1/1 sites" in out.getvalue()
+    assert selectors.site_status(site="TST")["stale"] is False
+    with pytest.raises(CommandError, match="no such site: NOPE"):
+        call_command("recompute", "--site", "NOPE")
+
+
+def test_request_inside_outer_transaction_waits_for_the_outer_commit(
+    django_capture_on_commit_callbacks,
+):
+    with django_capture_on_commit_callbacks(execute=True), transaction.atomic():
+        site_import(doc=small_site())
+        site = inv.Site.objects.get(code="TST")
+        assert not models.SiteComputation.objects.filter(site_id=site.pk).exists()
+    assert selectors.site_status(site="TST")["stale"] is False
+
+
+def test_sweep_gives_up_after_the_bound(django_capture_on_commit_callbacks):
+    with django_capture_on_commit_callbacks(execute=False):
+        site_import(doc=small_site())
+    models.RecomputeRequest.objects.update(
+        sends=5, created_at=timezone.now() - dt.timedelta(minutes=10)
+    )
+    assert services.requests_sweep(max_sends=5) == 0
+    assert models.RecomputeRequest.objects.get().status == RequestStatus.FAILED
+
+
+def test_beat_schedule_names_registered_tasks(settings):
+    import analysis.tasks  # noqa: F401  (registers the tasks)
+
+    names = {entry["task"] for entry in settings.CELERY_BEAT_SCHEDULE.values()}
+    assert names == {"analysis.sweep_requests", "analysis.recompute_fleet"}
+    assert names <= set(app.tasks)
+    sweep = next(e for e in settings.CELERY_BEAT_SCHEDULE.values() if "sweep" in e["task"])
+    assert sweep["schedule"] == 60.0  # the outbox is swept every minute (issue 5)
+
+
+def test_nightly_task_recomputes_every_site(django_capture_on_commit_callbacks):
+    from analysis.tasks import recompute_fleet
+
+    with services.recompute_deferred():
+        for code in ("AAA", "BBB"):
+            site_import(doc=small_site(code))
+    with django_capture_on_commit_callbacks(execute=True):
+        run_id = recompute_fleet.delay().get()
+    run = models.AnalysisRun.objects.get(pk=run_id)
+    assert (run.kind, run.status, run.sites_done) == (RunKind.FLEET, RunStatus.SUCCESS, 2)
+    assert selectors.stale_site_ids() == []
