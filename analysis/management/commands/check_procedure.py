@@ -3,33 +3,17 @@ a stored procedure step by step, every transition included, and print the verdic
 
 from __future__ import annotations
 
-import json
-
-from django.core.management.base import BaseCommand, CommandError
-
 from analysis import engine
-from analysis.sources import load_document, split_targets
+from analysis.management.base import SiteBodyCommand
 from analysis.textout import verdict_text
 
 
-class Command(BaseCommand):
+class Command(SiteBodyCommand):
     help = "Check an isolation procedure for open CT secondaries and unisolated trips."
+    thing = "procedure"
 
-    def add_arguments(self, parser) -> None:
-        parser.add_argument("targets", nargs="+", metavar="SITE PROCEDURE")
-        parser.add_argument("--file", help="check a site file instead of a stored site")
-        parser.add_argument(
-            "--json", action="store_true", dest="as_json", help="print the API's JSON body"
-        )
-
-    def handle(self, *args, targets: list[str], file: str | None, as_json: bool, **options):
-        site, code = split_targets(targets, file=file, what="procedure")
-        doc = load_document(site=site, file=file)
+    def body(self, doc: dict, name: str) -> dict:
         netlist = engine.build_netlist(doc)
-        try:
-            verdict = engine.check_procedure(netlist, code).to_json(doc["site"]["code"])
-        except (KeyError, engine.ProcedureError) as exc:
-            raise CommandError(str(exc).strip('"')) from exc
-        self.stdout.write(
-            json.dumps(verdict, indent=2, ensure_ascii=False) if as_json else verdict_text(verdict)
-        )
+        return engine.check_procedure(netlist, name).to_json(doc["site"]["code"])
+
+    text = staticmethod(verdict_text)

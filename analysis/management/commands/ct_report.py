@@ -4,32 +4,16 @@ knee points and every finding that names it."""
 
 from __future__ import annotations
 
-import json
-
-from django.core.management.base import BaseCommand, CommandError
-
 from analysis.compute import ct_report
-from analysis.sources import load_document, split_targets
+from analysis.management.base import SiteBodyCommand
 from analysis.textout import report_text
 
 
-class Command(BaseCommand):
+class Command(SiteBodyCommand):
     help = "Report a CT's ratings at its tap in use."
+    thing = "ct"
 
-    def add_arguments(self, parser) -> None:
-        parser.add_argument("targets", nargs="+", metavar="SITE CT")
-        parser.add_argument("--file", help="report from a site file instead of a stored site")
-        parser.add_argument(
-            "--json", action="store_true", dest="as_json", help="print the API's JSON body"
-        )
+    def body(self, doc: dict, name: str) -> dict:
+        return ct_report(doc, name)
 
-    def handle(self, *args, targets: list[str], file: str | None, as_json: bool, **options):
-        site, ct = split_targets(targets, file=file, what="ct")
-        doc = load_document(site=site, file=file)
-        try:
-            report = ct_report(doc, ct)
-        except KeyError as exc:
-            raise CommandError(str(exc).strip('"')) from exc
-        self.stdout.write(
-            json.dumps(report, indent=2, ensure_ascii=False) if as_json else report_text(report)
-        )
+    text = staticmethod(report_text)
