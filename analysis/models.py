@@ -66,6 +66,10 @@ class AnalysisRun(models.Model):
     created_at = models.DateTimeField(auto_now_add=True)
     started_at = models.DateTimeField(null=True, blank=True)
     finished_at = models.DateTimeField(null=True, blank=True)
+    chunk_size = models.PositiveIntegerField(default=0, help_text="sites per chunk, once planned")
+    progress_at = models.DateTimeField(
+        null=True, blank=True, help_text="last start or chunk written (the stall sweep's clock)"
+    )
     attempts = models.PositiveIntegerField(default=0, help_text="task starts, retries included")
     task_id = models.CharField(max_length=64, blank=True)
     error = models.TextField(blank=True)

@@ -111,7 +111,7 @@ def run_started(*, run_id: int, task_id: str) -> None:
         status=RunStatus.RUNNING, started_at=djm.functions.Coalesce(F("started_at"), Value(now))
     )
     models.AnalysisRun.objects.filter(pk=run_id).update(
-        attempts=F("attempts") + 1, task_id=task_id[:64]
+        attempts=F("attempts") + 1, task_id=task_id[:64], progress_at=now
     )
 
 
@@ -147,9 +147,15 @@ def run_plan(*, run_id: int) -> list[list[int]] | None:
         if run.site_ids is None:
             run.site_ids = list(Site.objects.order_by("pk").values_list("pk", flat=True))
             run.sites_total = len(run.site_ids)
-            run.save(update_fields=["site_ids", "sites_total"])
-    size = chunk_sites()
-    return [run.site_ids[i : i + size] for i in range(0, len(run.site_ids), size)]
+        if not run.chunk_size:
+            # Fixed once, so a redelivered or re-sent run splits its sites the same way.
+            run.chunk_size = chunk_sites()
+        run.save(update_fields=["site_ids", "sites_total", "chunk_size"])
+    return _chunks(run.site_ids, run.chunk_size)
+
+
+def _chunks(site_ids: list[int], size: int) -> list[list[int]]:
+    return [site_ids[i : i + size] for i in range(0, len(site_ids), size)]
 
 
 @dataclass
@@ -244,6 +250,7 @@ def _count_chunk(run_id: int, index: int, n_sites: int, out: ChunkOutcome, gone:
         "read_s": F("read_s") + out.read_s,
         "compute_s": F("compute_s") + out.compute_s,
         "write_s": F("write_s") + out.write_s,
+        "progress_at": timezone.now(),
     }
     update.update({k: F(k) + v for k, v in out.counts.items()})
     if out.failed:
@@ -438,6 +445,39 @@ def requests_sweep(*, min_age_s: float = 60.0, max_sends: int = 5) -> int:
             site_id=site_id, status=RequestStatus.PENDING, run_id=run_id
         ).update(sent_at=timezone.now(), sends=F("sends") + 1)
         sent += 1
+    return sent
+
+
+def runs_sweep(*, stalled_s: float = 600.0) -> int:
+    """Send again the parts of runs that made no progress for ``stalled_s``: a run never
+    started (its message lost) is sent again whole; a running one gets its chunks that have no
+    ``RunChunk`` row. A chunk that was only slow runs twice, which is harmless (idempotent,
+    counted once). Returns the number of messages sent."""
+    from analysis.tasks import recompute_chunk, recompute_run
+
+    cutoff = timezone.now() - dt.timedelta(seconds=stalled_s)
+    sent = 0
+    stalled = models.AnalysisRun.objects.filter(
+        Q(status=RunStatus.PENDING, created_at__lte=cutoff, progress_at__isnull=True)
+        | Q(status__in=(RunStatus.PENDING, RunStatus.RUNNING), progress_at__lte=cutoff)
+    )
+    for run in stalled:
+        models.AnalysisRun.objects.filter(pk=run.pk).update(progress_at=timezone.now())
+        if not run.chunk_size:
+            recompute_run.delay(run.pk)
+            sent += 1
+            continue
+        done = set(models.RunChunk.objects.filter(run=run).values_list("index", flat=True))
+        missing = [
+            (index, ids)
+            for index, ids in enumerate(_chunks(run.site_ids, run.chunk_size))
+            if index not in done
+        ]
+        if not missing:  # every chunk written, only the closing was lost
+            run_finish(run_id=run.pk)
+        for index, ids in missing:
+            recompute_chunk.delay(run.pk, index, ids, run.force)
+            sent += 1
     return sent
 
 

@@ -102,8 +102,9 @@ def recompute_chunk(self, run_id: int, index: int, site_ids: list[int], force: b
     time_limit=60,
 )
 def sweep_requests(self) -> int:
-    """Periodic: send again the outbox rows not done after a minute."""
-    return services.requests_sweep()
+    """Periodic: send again the outbox rows not done after a minute, and the parts of runs
+    stalled for ten minutes (a message lost between broker and worker)."""
+    return services.requests_sweep() + services.runs_sweep()
 
 
 @app.task(

@@ -15,6 +15,8 @@ from inventory import models, services
 
 
 def _site_id(obj) -> int | None:
+    if isinstance(obj, models.Site):
+        return obj.pk
     for path in ("site_id", "ct.site_id", "device.site_id", "switch.site_id", "procedure.site_id"):
         target = obj
         try:

@@ -361,3 +361,40 @@ def test_nightly_task_recomputes_every_site(django_capture_on_commit_callbacks):
     run = models.AnalysisRun.objects.get(pk=run_id)
     assert (run.kind, run.status, run.sites_done) == (RunKind.FLEET, RunStatus.SUCCESS, 2)
     assert selectors.stale_site_ids() == []
+
+
+def test_stalled_run_gets_its_lost_chunk_sent_again(django_capture_on_commit_callbacks, settings):
+    settings.LOOPKEEP_RECOMPUTE_CHUNK_SITES = 1
+    with services.recompute_deferred():
+        for code in ("AAA", "BBB", "CCC"):
+            site_import(doc=small_site(code))
+    run = services.run_create(kind=RunKind.FLEET, force=True)
+    services.run_started(run_id=run.pk, task_id="lost-chunk-test")
+    chunks = services.run_plan(run_id=run.pk)
+    assert len(chunks) == 3
+    for index in (0, 2):  # the message of chunk 1 never reached a worker
+        services.chunk_recompute(run_id=run.pk, index=index, site_ids=chunks[index], force=True)
+    run.refresh_from_db()
+    assert (run.status, run.sites_done) == (RunStatus.RUNNING, 2)
+    assert services.runs_sweep(stalled_s=600) == 0  # not stalled yet
+    models.AnalysisRun.objects.filter(pk=run.pk).update(
+        progress_at=timezone.now() - dt.timedelta(minutes=11)
+    )
+    assert services.runs_sweep(stalled_s=600) == 1
+    run.refresh_from_db()
+    assert (run.status, run.sites_done, run.chunks.count()) == (RunStatus.SUCCESS, 3, 3)
+    assert selectors.stale_site_ids() == []
+
+
+def test_run_whose_message_was_lost_is_sent_again(django_capture_on_commit_callbacks):
+    with services.recompute_deferred():
+        site_import(doc=small_site())
+    site = inv.Site.objects.get(code="TST")
+    run = services.run_create(kind=RunKind.SITES, site_ids=[site.pk], force=True)
+    models.AnalysisRun.objects.filter(pk=run.pk).update(
+        created_at=timezone.now() - dt.timedelta(minutes=11)
+    )
+    assert services.runs_sweep(stalled_s=600) == 1
+    run.refresh_from_db()
+    assert run.status == RunStatus.SUCCESS
+    assert selectors.site_status(site="TST")["stale"] is False

@@ -116,3 +116,15 @@ def test_changing_the_tap_in_the_admin_records_a_tap_change(staff):
         "WO-1001",
     )
     assert change.changed_by == "eng"
+
+
+def test_editing_the_site_itself_bumps_its_revision(staff):
+    site = models.Site.objects.get(code="TST")
+    response = staff.post(
+        reverse("admin:inventory_site_change", args=[site.pk]),
+        {"code": "TST", "name": site.name, "design_temp_c": "90", "notes": ""},
+    )
+    assert response.status_code == 302
+    before = site.revision
+    site.refresh_from_db()
+    assert (site.design_temp_c, site.revision) == (90.0, before + 1)

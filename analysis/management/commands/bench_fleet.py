@@ -31,6 +31,8 @@ from analysis import services
 from analysis.models import AnalysisRun, RunStatus
 from inventory.models import Site
 
+STALL_S = 15.0
+
 RECORD_TABLES = (
     "inventory_site",
     "inventory_bus",
@@ -117,14 +119,24 @@ class Command(BaseCommand):
             t0 = time.perf_counter()
             run = services.fleet_recompute(force=True, on_commit=False)
             peaks: dict[int, float] = {}
+            resent = 0
+            last = (-1, time.monotonic())
             while True:
                 for child in _children(worker.pid):
                     peak = _peak_rss_mb(child)
                     if peak is not None:
                         peaks[child] = max(peaks.get(child, 0.0), peak)
-                status = AnalysisRun.objects.filter(pk=run.pk).values_list("status", flat=True)[0]
+                status, done = AnalysisRun.objects.filter(pk=run.pk).values_list(
+                    "status", "sites_done"
+                )[0]
                 if status in (RunStatus.SUCCESS, RunStatus.FAILURE):
                     break
+                if done != last[0]:
+                    last = (done, time.monotonic())
+                elif time.monotonic() - last[1] > STALL_S:
+                    # The periodic sweep would do this after ten minutes; here after STALL_S.
+                    resent += services.runs_sweep(stalled_s=STALL_S)
+                    last = (done, time.monotonic())
                 time.sleep(0.2)
             wall_a = time.perf_counter() - t0
         finally:
@@ -148,6 +160,7 @@ class Command(BaseCommand):
             circuits=run.circuits,
             findings=run.findings,
             sites_failed=run.sites_failed,
+            stalled_chunks_resent=resent,
             verdicts=run.verdicts,
             workers=workers,
             worker_peak_rss_mb=sorted(round(v) for v in peaks.values()),
