@@ -6,7 +6,7 @@ Three figures (the design's performance targets; measured, not asserted):
    through chains of relay inputs, with test switches), spread over S sites: circuits/s;
 2. a 30-step procedure check on a 40-node circuit: ms per check;
 3. the isolation plan of a relay on a three-phase panel with a test switch and a draw-out
-   case: ms per plan.
+   case, and of a bus differential relay with 25 switches in its region: ms per plan.
 
 The sites are invented and built in memory.
 """
@@ -203,6 +203,129 @@ def panel_site(n_devices: int = 1) -> dict[str, Any]:
     return doc
 
 
+def bus_differential_site(n_breakers: int = 4) -> dict[str, Any]:
+    """A bus differential zone of ``n_breakers`` wye CT sets paralleled phase by phase onto a
+    summing bus, each set through its own shorting block (a shorting screw ``/SS`` and four
+    slide links ``/SL1..4``), then through test switch ``TS-87`` (CT poles ``/1..3`` with
+    shorting jaws, neutral pole ``/N``, trip pole ``/T1``) into relay ``R-87`` tripping the
+    lockout ``86``: 5 switches per breaker plus 5, 25 switches for four breakers. Breaker 0
+    is the incoming one: its tap is written the other way round and it carries the load of
+    the others, so the summing bus balances."""
+    doc: dict[str, Any] = {
+        "format": "loopkeep.site/1",
+        "site": {"code": "BDF", "name": "Bus differential bench", "design_temp_c": 75},
+        "buses": [],
+        "equipment": [],
+        "cts": [],
+        "devices": [],
+        "wires": [],
+        "links": [],
+        "grounds": ["TB-87:N"],
+        "switches": [],
+        "procedures": [],
+        "terminal_blocks": [{"code": "TB-87"}],
+    }
+    loads = [300.0 * (n_breakers - 1)] + [300.0] * (n_breakers - 1)
+    for k in range(n_breakers):
+        eq, tb = f"CB-{k}", f"TB-{k}D"
+        doc["equipment"].append(
+            {"code": eq, "kind": "breaker", "in_service": True, "max_load_a": loads[k]}
+        )
+        doc["terminal_blocks"].append({"code": tb})
+        for n, p in enumerate(PHASES, start=1):
+            doc["cts"].append(
+                {
+                    "code": f"{eq}-D{p}",
+                    "equipment": eq,
+                    "phase": p,
+                    "set": f"{eq}-D",
+                    "secondary_a": 5,
+                    "terminals": {"X1": 0, "X2": 2000},
+                    "in_use": ["X2", "X1"] if k == 0 else ["X1", "X2"],
+                    "accuracy": "C800",
+                    "winding_ohm": 0.8,
+                }
+            )
+            doc["links"].append([f"{eq}-D{p}:X2", f"{eq}:N"])
+            doc["wires"].append({"from": f"{eq}-D{p}:X1", "to": f"{tb}:{n}", "r_ohm": 0.4})
+        doc["wires"].append({"from": f"{eq}:N", "to": f"{tb}:4", "r_ohm": 0.4})
+        doc["switches"].append(
+            {
+                "code": f"{tb}/SS",
+                "kind": "shorting_screw",
+                "positions": ["open", "shorted"],
+                "normal": "open",
+                "transition": "make_before_break",
+                "contacts": [
+                    {"between": [f"{tb}:{n}", f"{tb}:4"], "closed_in": ["shorted"]}
+                    for n in (1, 2, 3)
+                ],
+            }
+        )
+        for n in (1, 2, 3, 4):
+            doc["switches"].append(
+                {
+                    "code": f"{tb}/SL{n}",
+                    "kind": "slide_link",
+                    "positions": ["closed", "open"],
+                    "normal": "closed",
+                    "transition": "break_before_make",
+                    "contacts": [{"between": [f"{tb}:{n}", f"{tb}:{n}S"], "closed_in": ["closed"]}],
+                }
+            )
+            bus = f"TB-87:{PHASES[n - 1] if n < 4 else 'N'}"
+            doc["wires"].append({"from": f"{tb}:{n}S", "to": bus, "r_ohm": 0.2})
+    for n, p in enumerate(PHASES, start=1):
+        doc["switches"].append(
+            {
+                "code": f"TS-87/{n}",
+                "kind": "test_switch_pole",
+                "positions": ["closed", "open"],
+                "normal": "closed",
+                "transition": "make_before_break",
+                "contacts": [
+                    {"between": [f"TB-87:{p}", f"TS-87:{n}R"], "closed_in": ["closed"]},
+                    {"between": [f"TB-87:{p}", "TS-87:SB"], "closed_in": ["open"]},
+                ],
+            }
+        )
+        doc["links"].append([f"TS-87:{n}R", f"R-87:I{p}1"])
+        doc["links"].append([f"R-87:I{p}2", "R-87:N"])
+    doc["links"].append(["TS-87:SB", "TB-87:N"])
+    for code, a, b in (("TS-87/N", "R-87:N", "TB-87:N"), ("TS-87/T1", "R-87:T1", "TS-87:T1R")):
+        doc["switches"].append(
+            {
+                "code": code,
+                "kind": "test_switch_pole",
+                "positions": ["closed", "open"],
+                "normal": "closed",
+                "transition": "break_before_make",
+                "contacts": [{"between": [a, b], "closed_in": ["closed"]}],
+            }
+        )
+    doc["wires"].append({"from": "TS-87:T1R", "to": "86:COIL1", "r_ohm": 1.0})
+    doc["devices"].append(
+        {
+            "code": "R-87",
+            "kind": "relay",
+            "functions": ["87B"],
+            "inputs": [
+                {
+                    "name": f"I{p}",
+                    "from": f"R-87:I{p}1",
+                    "to": f"R-87:I{p}2",
+                    "rated_a": 5,
+                    "burden_va": 0.5,
+                    "pf": 1.0,
+                }
+                for p in PHASES
+            ],
+            "outputs": [{"name": "TRIP", "terminal": "R-87:T1", "target": "86:COIL1"}],
+        }
+    )
+    return doc
+
+
 def procedure_30() -> list[dict[str, Any]]:
     """30 operations over the panel: trip, CT poles, draw-out case, jumpers, lifts, notes."""
     poles = [f"TS-1/{p}" for p in PHASES]
@@ -312,6 +435,18 @@ def main(argv: list[str] | None = None) -> int:
         f"plan: isolate R-1-0 (test switch + draw-out case): {min(times) * 1000:.1f} ms "
         f"(target <= 200 ms); possible={plan.possible}, {len(plan.isolate)} + "
         f"{len(plan.restore)} steps"
+    )
+
+    times = []
+    for _ in range(5):
+        fresh = build_netlist(bus_differential_site())
+        ta = time.perf_counter()
+        plan = plan_isolation(fresh, "R-87")
+        times.append(time.perf_counter() - ta)
+    print(
+        f"plan: isolate bus differential R-87 ({len(fresh.switches)} switches in its region): "
+        f"{min(times) * 1000:.1f} ms (target <= 200 ms); possible={plan.possible}, "
+        f"{len(plan.isolate)} + {len(plan.restore)} steps"
     )
 
     sites = []

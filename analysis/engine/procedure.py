@@ -297,6 +297,9 @@ def check_operations(
             states.append(trans)
         states.append(after)
     evs = evaluate_states(nl, states)
+    if start is None:
+        # the starting state is the normal one: the reference of the trip reconnection rule
+        nl.cache.setdefault(("normal_ref", init_state.energized), evs[0])
     it = iter(evs[1:])
     steps = []
     for trans, _after in sim:

@@ -285,6 +285,20 @@ class StateEval:
         return self._get("out_connected")
 
     @property
+    def normal_ref(self) -> StateEval:
+        """The state with every switch, lead, link, jumper and device as in the normal state
+        of the site and this state's primary (energized equipment): what the inputs carry when
+        the secondary circuits are as they should be. Solved once per netlist and primary."""
+        nl = self._b.nl
+        key = ("normal_ref", self.state.energized)
+        hit = nl.cache.get(key)
+        if hit is None:
+            ref = replace(normal_state(nl), energized=self.state.energized)
+            hit = self if ref == self.state else evaluate_states(nl, [ref])[0]
+            nl.cache[key] = hit
+        return hit
+
+    @property
     def live_open(self) -> np.ndarray:
         """Mask of the CTs that are live and open in this state."""
         return self._b.live[self._row] & self._b.ct_open[self._row]
@@ -617,8 +631,9 @@ def _changed(old: complex, new: complex, ref_a: float) -> bool:
 def check_trip(
     nl: Netlist, before: StateEval, ev: StateEval, work: frozenset[str], phase: str | None
 ) -> list[Finding]:
-    """``trip_not_isolated``, the three rules of the findings table, while an output of the
-    device is still connected to its target."""
+    """``trip_not_isolated``: the three rules of the findings table, while an output of the
+    device is still connected to its target; and an output reconnected while an input of the
+    device carries other than its normal current (``_reconnected_early``)."""
     out = []
     for dev in nl.devices.values():
         conn = [o for o in dev.outputs if ev.out_connected[o.index]]
@@ -667,6 +682,9 @@ def check_trip(
                     "to_a": round(abs(i1), 4),
                     "circuit_max_a": round(ref, 4),
                 }
+        early = _reconnected_early(nl, before, ev, dev, conn, phase)
+        if early is not None:
+            out.append(early)
         if reason is None:
             continue
         outs = ", ".join(f"{o.name} → {nl.terminals[o.target]}" for o in conn)
@@ -681,6 +699,68 @@ def check_trip(
             )
         )
     return out
+
+
+def _reconnected_early(
+    nl: Netlist,
+    before: StateEval,
+    ev: StateEval,
+    dev: Any,
+    conn: list[Any],
+    phase: str | None,
+) -> Finding | None:
+    """``trip_not_isolated`` for an output that this operation connects to its target (it was
+    not connected in ``before``) while an input of the device carries a current more than
+    10 % of its circuit's largest CT current away from what it carries with the secondary
+    circuits in their normal state (restore the CT circuits, verify, then restore the trips;
+    common practice, no source). The normal state is taken with the present primary: a CT
+    whose equipment is dead carries nothing in any arrangement of its secondary."""
+    new = [o for o in conn if not before.out_connected[o.index]]
+    if not new or not dev.inputs:
+        return None
+    ref_ev = ev.normal_ref
+    worst: tuple[float, Any, complex, complex, float] | None = None
+    others: list[str] = []
+    for di in dev.inputs:
+        k = di.index
+        ref = max(ref_ev.inp_ref_a[k], ev.inp_ref_a[k])
+        if ref <= 0:
+            continue
+        i_now, i_norm = ev.inp_cur[k], ref_ev.inp_cur[k]
+        off = abs(i_now - i_norm)
+        if off <= CHANGE_FRACTION * ref:
+            continue
+        if worst is None or off / ref > worst[0] + 1e-9:  # ties: the first input named
+            if worst is not None:
+                others.append(worst[1].name)
+            worst = (off / ref, di, i_now, i_norm, ref)
+        else:
+            others.append(di.name)
+    if worst is None:
+        return None
+    _, di, i_now, i_norm, ref = worst
+    outs = ", ".join(
+        f"{o.name} ({nl.terminals[o.terminal]} → {nl.terminals[o.target]})" for o in new
+    )
+    also = f" (and {', '.join(sorted(others))})" if others else ""
+    return Finding(
+        code=fc.TRIP_NOT_ISOLATED,
+        message=(
+            f"{dev.code} output {outs} is reconnected while input {di.name}{also} carries "
+            f"{_fmt_a(abs(i_now))} against {_fmt_a(abs(i_norm))} with the CT circuits in their "
+            f"normal state (more than 10 % of the circuit's largest CT current, "
+            f"{_fmt_a(ref)}, apart): restore the CT circuits before the trips"
+        ),
+        device=dev.code,
+        input=di.name,
+        phase=phase,
+        numbers={
+            "now_a": round(abs(i_now), 4),
+            "normal_a": round(abs(i_norm), 4),
+            "circuit_max_a": round(ref, 4),
+            "outputs": [o.name for o in new],
+        },
+    )
 
 
 def check_bypassed(

@@ -5,7 +5,8 @@
 - a break-before-make operation on a CT pole with a shorting jaw always flags its transition;
 - burden never decreases when a lead gets longer (Rayleigh's monotonicity law for resistive
   networks, from memory; for the RL panels the lead is in series with the loop);
-- every plan the planner returns passes the checker.
+- every plan the planner returns passes the checker, and its restoration closes no trip
+  pole before the CT circuits are back as they normally are.
 """
 
 from __future__ import annotations
@@ -18,6 +19,7 @@ from hypothesis import strategies as st
 from analysis.engine import build_netlist, check_operations, ct_burdens, plan_isolation
 from tests.analysis.engine.builders import SiteBuilder, wye_panel
 from tests.analysis.engine.generators import random_mesh
+from tests.analysis.engine.test_state_checks import residual_panel
 
 SETTINGS = settings(max_examples=60, deadline=None)
 
@@ -173,3 +175,68 @@ def test_every_plan_the_planner_returns_passes_the_checker(
     verdict = check_operations(nl, [*plan.isolate, *plan.restore], ["R-1"])
     assert verdict.safe, verdict.first_danger
     assert plan.verdict is not None and plan.verdict.safe
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    device=st.sampled_from(["R-50", "R-50N"]),
+    transition=st.sampled_from(["make_before_break", "break_before_make", "simultaneous"]),
+    load=st.one_of(st.none(), st.floats(5, 2000)),
+)
+def test_every_plan_restores_the_ct_circuits_before_the_trips(device, transition, load):
+    """Phase and residual relays with their own trip poles (restore the CT circuits, verify,
+    then restore the trips; common practice, no source)."""
+    b = residual_panel(transition=transition)
+    b.doc["equipment"][0].pop("max_load_a", None)
+    if load is not None:
+        b.doc["equipment"][0]["max_load_a"] = load
+    nl = build_netlist(b.build())
+    plan = plan_isolation(nl, device)
+    if not plan.possible:
+        assert plan.isolate == () and plan.jumpers_needed
+        return
+    verdict = check_operations(nl, [*plan.isolate, *plan.restore], [device])
+    assert verdict.safe, verdict.first_danger
+    assert not [f for _, f in verdict.findings if f.code == "trip_not_isolated"]
+    poles = {f"TS-1/{p}": "closed" for p in "ABC"}
+    for op in plan.isolate:
+        if op.get("set") in poles:
+            poles[op["set"]] = op["to"]
+    jumpers = sum("add_jumper" in op for op in plan.isolate)
+    for op in plan.restore:
+        if op.get("set") in poles:
+            poles[op["set"]] = op["to"]
+        jumpers += ("add_jumper" in op) - ("remove_jumper" in op)
+        if op.get("set") in ("TS-1/T1", "TS-1/T2") and op["to"] == "closed":
+            assert set(poles.values()) <= {"closed"} and jumpers == 0, plan.restore
+
+
+@settings(max_examples=25, deadline=None)
+@given(
+    device=st.sampled_from(["R-50", "R-50N"]),
+    transition=st.sampled_from(["make_before_break", "break_before_make", "simultaneous"]),
+    extra_breakers=st.integers(0, 2),
+)
+def test_the_fast_planner_is_as_short_as_breadth_first_search(device, transition, extra_breakers):
+    """The greedy search with its lower-bound proof, the nearest-switches-first search and A*
+    back to normal return plans as short as plain breadth-first search over every switch.
+    Extra shorting blocks (switches that do not help) are added to the circuit's neutral."""
+    b = residual_panel(transition=transition)
+    for k in range(extra_breakers):
+        b.switch(
+            f"TB-X{k}/SS",
+            [("TB-1:N", f"TB-X{k}:1", ("shorted",))],
+            kind="shorting_screw",
+            positions=("open", "shorted"),
+            normal="open",
+        )
+    nl = build_netlist(b.build())
+    plan = plan_isolation(nl, device)
+    from tests.analysis.engine.test_plan import _bfs_lengths
+
+    iso, back = _bfs_lengths(nl, device)
+    if iso is None or back is None:
+        # switches alone cannot do it: the planner then tries temporary jumpers
+        assert not plan.possible or any("add_jumper" in op for op in plan.isolate)
+        return
+    assert (len(plan.isolate), len(plan.restore)) == (iso, back)

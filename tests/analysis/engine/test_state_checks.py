@@ -112,7 +112,16 @@ def test_rule_a_device_removed_while_its_trip_is_connected(panel):
         + [{"set": "TS-1/T1", "to": "closed"}, {"remove_device": "R-1"}]
     )
     v = check_operations(panel, ops, ["R-1"])
-    assert [f.code for f in v.steps[5].findings] == []  # no current change: nothing yet
+    # no current changes at step 5, but the trip comes back while the inputs are still shorted
+    # (restore the CT circuits before the trips; common practice, no source)
+    (early,) = v.steps[5].findings
+    assert (early.code, early.phase, early.device, early.input) == (
+        "trip_not_isolated",
+        "after",
+        "R-1",
+        "IA",
+    )
+    assert "input IA (and IB, IC) carries 0 A against 4.00 A" in early.message
     (f,) = [f for f in v.steps[6].findings if f.code == "trip_not_isolated"]
     assert "R-1, a device the work is for, is removed" in f.message
     # with the trip isolated the same removal is safe
@@ -158,6 +167,149 @@ def test_rule_c_residual_current_appears_when_one_phase_is_shorted_upstream(pane
     assert "appear" in trips[0].message
     assert trips[0].numbers["from_a"] == pytest.approx(0.0, abs=1e-9)
     assert trips[0].numbers["to_a"] == pytest.approx(4.0 / 3.0, abs=1e-4)
+
+
+# --- trip reconnected while an input is abnormal --------------------------------------------
+
+
+def residual_panel(*, selector: bool = False, transition: str = "make_before_break"):
+    """Wye set CB-1-A/B/C (320 A, 400:5: 4.00 A per phase) into phase relay R-50 (50/51,
+    IA/IB/IC) in series with the residual ground relay R-50N (50N/51N, IN in the neutral), the
+    feeder arrangement of fixtures/demo. Test switch TS-1: CT poles /A /B /C with shorting jaws
+    to the neutral; trip poles /T1 (R-50) and /T2 (R-50N). With ``selector`` R-50N trips
+    through SEL, a make-before-break selector whose two contacts are in series on the trip
+    path, so that its trip is made during the transition only."""
+    b = SiteBuilder("RES")
+    b.equipment("CB-1", max_load_a=320)
+    b.block("TB-1")
+    for p in "ABC":
+        b.ct(f"CB-1-{p}", equipment="CB-1", phase=p, set_name="CB-1-R")
+        b.link(f"CB-1-{p}:X2", "CB-1:STAR")
+        b.wire(f"CB-1-{p}:X1", f"TB-1:{p}", 0.5)
+        b.ct_pole(f"TS-1/{p}", f"TB-1:{p}", f"TS-1:{p}R", "TS-1:SB", transition=transition)
+        b.link(f"TS-1:{p}R", f"R-50:I{p}1")
+        b.link(f"R-50:I{p}2", "R-50:N")
+    b.wire("CB-1:STAR", "TB-1:N", 0.5)
+    b.ground("TB-1:N")
+    b.link("TS-1:SB", "TB-1:N")
+    b.device(
+        "R-50",
+        functions=("50", "51"),
+        inputs=[(f"I{p}", f"R-50:I{p}1", f"R-50:I{p}2", 0.1) for p in "ABC"],
+        outputs=[("TRIP", "R-50:T", "CB-1:TC")],
+    )
+    b.device(
+        "R-50N",
+        functions=("50N", "51N"),
+        inputs=[("IN", "R-50N:1", "R-50N:2", 0.2)],
+        outputs=[("TRIP", "R-50N:T", "CB-1:TC")],
+    )
+    b.link("R-50:N", "R-50N:1")
+    b.link("R-50N:2", "TB-1:N")
+    b.trip_pole("TS-1/T1", "R-50:T", "TS-1:T1R")
+    b.wire("TS-1:T1R", "CB-1:TC", 1.0)
+    if selector:
+        b.switch(
+            "SEL",
+            [("R-50N:T", "SEL:M", ("a",)), ("SEL:M", "CB-1:TC", ("b",))],
+            kind="selector",
+            positions=("a", "b"),
+            normal="a",
+            transition="make_before_break",
+        )
+    else:
+        b.trip_pole("TS-1/T2", "R-50N:T", "TS-1:T2R")
+        b.wire("TS-1:T2R", "CB-1:TC", 1.0)
+    return b
+
+
+ISOLATE_ALL = [
+    {"set": "TS-1/T1", "to": "open"},
+    {"set": "TS-1/T2", "to": "open"},
+    *({"set": f"TS-1/{p}", "to": "open"} for p in "ABC"),
+]
+
+
+def test_residual_trip_restored_with_two_phases_still_shorted_is_flagged():
+    """Phase A restored, B and C still shorted at TS-1: all of phase A's 4.00 A comes back
+    through IN (the only return from the relay star; Kirchhoff, from memory) where the
+    balanced normal state puts 0 A. Reconnecting the 50N trip then is flagged (restore the CT
+    circuits, verify, then restore the trips; common practice, no source)."""
+    nl = build_netlist(residual_panel().build())
+    ops = [
+        *ISOLATE_ALL,
+        {"set": "TS-1/A", "to": "closed"},
+        {"set": "TS-1/T2", "to": "closed"},
+    ]
+    v = check_operations(nl, ops, ["R-50"])
+    assert [f.code for f in v.steps[6].findings] == []  # IN goes 0 A -> 4 A with its trip open
+    (f,) = v.steps[7].findings
+    assert (f.code, f.severity, f.phase, f.device, f.input) == (
+        "trip_not_isolated",
+        "danger",
+        "after",
+        "R-50N",
+        "IN",
+    )
+    assert f.message == (
+        "R-50N output TRIP (R-50N:T → CB-1:TC) is reconnected while input IN carries 4.00 A "
+        "against 0 A with the CT circuits in their normal state (more than 10 % of the "
+        "circuit's largest CT current, 4.00 A, apart): restore the CT circuits before the trips"
+    )
+    assert f.numbers["now_a"] == pytest.approx(4.0, abs=1e-6)
+    assert f.numbers["normal_a"] == pytest.approx(0.0, abs=1e-6)
+    assert v.first_danger == {"step": 7, "phase": "after", "code": "trip_not_isolated", "ct": None}
+
+
+def test_residual_trip_restored_after_every_phase_is_not_flagged():
+    nl = build_netlist(residual_panel().build())
+    restore = [
+        *({"set": f"TS-1/{p}", "to": "closed"} for p in "ABC"),
+        {"set": "TS-1/T1", "to": "closed"},
+        {"set": "TS-1/T2", "to": "closed"},
+    ]
+    v = check_operations(nl, [*ISOLATE_ALL, *restore], ["R-50"])
+    assert v.safe
+    assert [f.code for _, f in v.findings if f.code == "trip_not_isolated"] == []
+
+
+def test_phase_trip_restored_before_its_own_poles_names_the_first_input():
+    """R-50's trip back with every phase shorted: IA, IB, IC carry 0 A against 4.00 A."""
+    nl = build_netlist(residual_panel().build())
+    v = check_operations(nl, [*ISOLATE_ALL, {"set": "TS-1/T1", "to": "closed"}], ["R-50"])
+    (f,) = v.steps[6].findings
+    assert (f.code, f.device, f.input) == ("trip_not_isolated", "R-50", "IA")
+    assert "input IA (and IB, IC) carries 0 A against 4.00 A" in f.message
+
+
+def test_trip_made_during_a_transition_only_is_flagged_in_the_transition():
+    """SEL makes R-50N's trip path while it moves (both contacts closed) and breaks it again
+    after; with phase B shorted, IN carries phase B's 4.00 A at that moment."""
+    nl = build_netlist(residual_panel(selector=True).build())
+    bad = check_operations(
+        nl,
+        [
+            {"set": "TS-1/T1", "to": "open"},
+            {"set": "TS-1/B", "to": "open"},
+            {"set": "SEL", "to": "b"},
+        ],
+        ["R-50"],
+    )
+    trips = [(f.phase, f.device, f.input) for f in bad.steps[3].findings]
+    assert trips == [("transition", "R-50N", "IN")]
+    assert "carries 4.00 A against 0 A" in bad.steps[3].findings[0].message
+    # with the secondary as normal the same movement is no finding
+    ok = check_operations(nl, [{"set": "SEL", "to": "b"}], ["R-50"])
+    assert ok.steps[1].findings == ()
+
+
+def test_trip_restored_with_the_primary_dead_compares_with_the_dead_normal_state():
+    """With CB-1 de-energized no CT drives anything in any arrangement of the secondary, so
+    the reconnection is compared with a dead normal state and is not flagged."""
+    nl = build_netlist(residual_panel().build())
+    ops = [{"deenergize": "CB-1"}, *ISOLATE_ALL, {"set": "TS-1/T2", "to": "closed"}]
+    v = check_operations(nl, ops, ["R-50"])
+    assert [f.code for f in v.steps[7].findings] == []
 
 
 # --- input_bypassed, first appearance only --------------------------------------------------
