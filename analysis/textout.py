@@ -109,6 +109,13 @@ def plan_text(plan: dict[str, Any]) -> str:
     return "\n".join(lines)
 
 
+def _v(value: Any, unit: str = "") -> str:
+    """A report number with its unit, or "n/a" where the report has none."""
+    if value is None:
+        return "n/a"
+    return f"{value} {unit}".rstrip()
+
+
 def report_text(report: dict[str, Any]) -> str:
     """A CT report."""
     acc = report.get("accuracy") or {}
@@ -117,27 +124,32 @@ def report_text(report: dict[str, Any]) -> str:
         f"CT {report['ct']} at {report['site']}",
         f"  tap in use       {'-'.join(str(t) for t in report['tap'])}  ratio {report['ratio']}"
         f"  turns {report['turns']}",
-        f"  winding at tap   {report.get('winding_ohm_at_tap')} Ω",
-        f"  accuracy         {acc.get('class')}: {acc.get('voltage_at_tap_v')} V at the tap,"
-        f" standard burden {acc.get('standard_burden_ohm_at_tap')} Ω",
-        f"  knee point       IEEE {knee.get('ieee')} V, IEC {knee.get('iec')} V",
+        f"  winding at tap   {_v(report.get('winding_ohm_at_tap'), 'Ω')}",
+        f"  accuracy         {_v(acc.get('class'))}: {_v(acc.get('voltage_at_tap_v'), 'V')} at"
+        f" the tap, standard burden {_v(acc.get('standard_burden_ohm_at_tap'), 'Ω')}",
+        f"  knee point       IEEE {_v(knee.get('ieee'), 'V')}, IEC {_v(knee.get('iec'), 'V')}",
     ]
     for case, values in (report.get("cases") or {}).items():
         burden = values.get("burden_ohm") or {}
         lines.append(f"  {case.replace('_', ' ')}:")
         lines.append(
-            f"    burden {burden.get('z')} Ω (R {burden.get('r')}, X {burden.get('x')});"
-            f" fault {values.get('fault_a')} A primary, {values.get('secondary_fault_a')} A"
-            f" secondary, X/R {values.get('x_over_r')}"
+            f"    burden {_v(burden.get('z'), 'Ω')} (R {_v(burden.get('r'))}, X"
+            f" {_v(burden.get('x'))}); fault {_v(values.get('fault_a'), 'A')} primary,"
+            f" {_v(values.get('secondary_fault_a'), 'A')} secondary,"
+            f" X/R {_v(values.get('x_over_r'))}"
         )
-        lines.append(
-            f"    C37.110 index {values.get('c37_110_index')} (limit 20); Vx required"
-            f" {values.get('vx_required_v')} V, available {values.get('vx_available_v')} V;"
-            + (
-                f" time to saturate {values['time_to_saturate_ms']} ms"
-                if values.get("time_to_saturate_ms") is not None
-                else " no saturation expected"
+        if values.get("c37_110_index") is None and values.get("vx_required_v") is None:
+            lines.append(
+                "    saturation not assessed for this case"
+                " (a value it needs is missing or does not apply)"
             )
+            continue
+        ttl = values.get("time_to_saturate_ms")
+        lines.append(
+            f"    C37.110 index {_v(values.get('c37_110_index'))} (limit 20); Vx required"
+            f" {_v(values.get('vx_required_v'), 'V')}, available"
+            f" {_v(values.get('vx_available_v'), 'V')}; "
+            + (f"time to saturate {ttl} ms" if ttl is not None else "voltage form met")
         )
     lines.append("  findings:")
     lines.extend(findings_lines(report.get("findings") or [], indent="    ") or ["    none"])

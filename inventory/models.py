@@ -301,7 +301,10 @@ class DeviceInput(models.Model):
             models.UniqueConstraint(fields=["device", "name"], name="device_input_unique_name"),
             models.CheckConstraint(
                 condition=(
+                    # Each column is tested for NULL as well: a CHECK that comes out NULL passes.
                     Q(
+                        burden_va__isnull=False,
+                        pf__isnull=False,
                         burden_va__gt=0,
                         pf__gt=0,
                         pf__lte=1,
@@ -311,6 +314,7 @@ class DeviceInput(models.Model):
                     | Q(
                         burden_va__isnull=True,
                         pf__isnull=True,
+                        burden_r_ohm__isnull=False,
                         burden_r_ohm__gte=0,
                         burden_x_ohm__isnull=False,
                     )

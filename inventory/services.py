@@ -347,9 +347,9 @@ def _upsert(doc: dict, result: ImportResult, user: Any) -> None:
         if t.tap_role and wanted_terminals.get((t.owner, t.name), {}).get("tap_role") != t.tap_role
     ]
     if moving:
+        # The rows keep their old role in memory, so the sync below still sees the change and
+        # writes it with history.
         models.Terminal.objects.filter(pk__in=[t.pk for t in moving]).update(tap_role="")
-        for t in moving:
-            t.tap_role = ""
     terminals = sync(
         models.Terminal,
         existing_terminals,
@@ -416,7 +416,8 @@ def _upsert(doc: dict, result: ImportResult, user: Any) -> None:
                 "to_terminal_id": tid[b],
                 "rated_a": int(inp["rated_a"]),
                 "burden_va": fnum(inp.get("burden_va")),
-                "pf": fnum(inp.get("pf")),
+                # The site file's default power factor is 1.0 (resistive) where VA is given.
+                "pf": fnum(inp.get("pf", 1.0)) if "burden_va" in inp else None,
                 "burden_r_ohm": fnum(inp["burden_ohm"][0]) if "burden_ohm" in inp else None,
                 "burden_x_ohm": fnum(inp["burden_ohm"][1]) if "burden_ohm" in inp else None,
             }
@@ -509,9 +510,6 @@ def _upsert(doc: dict, result: ImportResult, user: Any) -> None:
     ]
     if stale_normal:
         models.SwitchPosition.objects.filter(pk__in=stale_normal).update(is_normal=False)
-        for p in existing_positions:
-            if p.pk in stale_normal:
-                p.is_normal = False
     sync(
         models.SwitchPosition,
         existing_positions,
@@ -616,9 +614,14 @@ def ct_change_tap(
         next((t.name for t in own.values() if t.tap_role == role), None)
         for role in ("first", "second")
     ]
-    models.Terminal.objects.filter(ct=ct).update(tap_role="")
-    models.Terminal.objects.filter(pk=own[first].pk).update(tap_role="first")
-    models.Terminal.objects.filter(pk=own[second].pk).update(tap_role="second")
+    roles = {first: "first", second: "second"}
+    moving = [t for t in own.values() if t.tap_role != roles.get(t.name, "")]
+    # Clear first (one role per CT is checked row by row), then save each row so that history
+    # records the change.
+    models.Terminal.objects.filter(pk__in=[t.pk for t in moving]).update(tap_role="")
+    for terminal in moving:
+        terminal.tap_role = roles.get(terminal.name, "")
+        terminal.save(update_fields=["tap_role"])
     change = models.TapChange.objects.create(
         ct=ct,
         from_tap=previous,

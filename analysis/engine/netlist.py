@@ -383,7 +383,8 @@ def build_netlist(doc: dict[str, Any]) -> Netlist:
     Raises ``ValueError`` naming the JSON pointer of an element that cannot be built.
     """
     site = doc.get("site") or {}
-    temp_c = float(site.get("design_temp_c") or DEFAULT_DESIGN_TEMP_C)
+    temp_c = site.get("design_temp_c")
+    temp_c = DEFAULT_DESIGN_TEMP_C if temp_c is None else float(temp_c)
     terminals: list[str] = []
     index: dict[str, int] = {}
 

@@ -20,6 +20,7 @@ from __future__ import annotations
 import difflib
 import functools
 import json
+import math
 import re
 from collections.abc import Callable, Iterable, Iterator
 from dataclasses import dataclass
@@ -1037,6 +1038,19 @@ def _sort_key(error: SiteFileError) -> tuple:
     return tuple(key)
 
 
+def _non_finite(node: Any, pointer: str) -> Iterator[SiteFileError]:
+    """NaN and infinity parse from JSON (``NaN``, ``Infinity``) and YAML (``.nan``, ``.inf``)
+    but are never a length, a resistance or a fault level."""
+    if isinstance(node, float) and not math.isfinite(node):
+        yield SiteFileError(pointer, f"must be a finite number, got {node!r}")
+    elif isinstance(node, dict):
+        for key, value in node.items():
+            yield from _non_finite(value, f"{pointer}/{_escape(str(key))}")
+    elif isinstance(node, list):
+        for index, value in enumerate(node):
+            yield from _non_finite(value, f"{pointer}/{index}")
+
+
 def validate_site_document(doc: Any) -> list[SiteFileError]:
     """Every problem in a parsed site file, structure (JSON Schema) and sense (references,
     duplicates, physically impossible values), in document order. An empty list means the
@@ -1048,7 +1062,8 @@ def validate_site_document(doc: Any) -> list[SiteFileError]:
     """
     if not isinstance(doc, dict):
         return [SiteFileError("", f"a site file must be an object, got {_kind(doc)}")]
-    errors = list(_schema_errors(doc))
+    errors = list(_non_finite(doc, ""))
+    errors.extend(_schema_errors(doc))
     errors.extend(_SenseChecker(doc).run())
     unique = list(dict.fromkeys(errors))
     unique.sort(key=_sort_key)

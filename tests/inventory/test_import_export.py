@@ -186,3 +186,42 @@ def test_export_command_prints_the_site_file(tmp_path):
     assert json.loads(out.getvalue()) == export()
     with pytest.raises(CommandError, match="no site with code 'NOPE'"):
         call_command("export_site", "NOPE")
+
+
+def test_input_without_pf_is_resistive_and_round_trips():
+    doc = small_site()
+    del doc["devices"][0]["inputs"][0]["pf"]
+    site_import(doc=doc)
+    out = export()
+    assert out["devices"][0]["inputs"][0]["pf"] == 1
+    assert not site_import(doc=copy.deepcopy(out)).changed
+
+
+def test_moving_tap_roles_and_normal_positions_are_in_history():
+    site_import(doc=small_site())
+    doc = export()
+    doc["cts"][0]["in_use"] = ["X4", "X1"]  # polarity reversed: both roles move
+    doc["switches"][0]["normal"] = "open"
+    site_import(doc=doc)
+    for name, role in (("X1", "second"), ("X4", "first")):
+        terminal = models.Terminal.objects.get(owner="CB-1-A", name=name)
+        assert terminal.tap_role == role
+        assert terminal.history.first().tap_role == role
+    closed = models.SwitchPosition.objects.get(switch__code="TS-1/1", name="closed")
+    assert closed.history.first().is_normal is False
+    assert models.SwitchPosition.objects.get(switch__code="TS-1/1", name="open").is_normal
+
+
+def test_nan_and_infinity_are_refused_with_their_pointers(tmp_path):
+    text = json.dumps(small_site()).replace('"length_m": 80', '"length_m": NaN', 1)
+    text = text.replace('"x_over_r": 10', '"x_over_r": Infinity')
+    path = tmp_path / "nan.json"
+    path.write_text(text)
+    err = io.StringIO()
+    with pytest.raises(CommandError, match="2 error"):
+        call_command("import_site", str(path), stderr=err)
+    assert err.getvalue().splitlines() == [
+        "/buses/0/x_over_r: must be a finite number, got inf",
+        "/wires/0/length_m: must be a finite number, got nan",
+    ]
+    assert not models.Site.objects.exists()

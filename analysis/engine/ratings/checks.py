@@ -176,9 +176,15 @@ def saturation_findings(*, ct: str, tap: Tap, result: SaturationCase) -> list[Fi
                 numbers={"case": result.case, "missing": list(result.missing)},
             )
         ]
-    # The per-unit criterion decides where the class defines one (IEEE C/K/T, IEC P); the
-    # voltage form, which also counts the winding drop, decides for PX. Both are in the message.
-    fails = result.index_fails if result.c37_110_index is not None else result.voltage_fails
+    # The per-unit criterion decides for IEEE C/K/T; the voltage form, which also counts the
+    # winding drop, decides for PX. For IEC P classes either one failing is a risk: their
+    # per-unit index leaves out the CT's own winding, which dominates with 1 A secondaries,
+    # while the voltage form compares with E_al, the accuracy limit e.m.f. (S10).
+    iec_p = result.alf_effective is not None
+    if result.c37_110_index is None:
+        fails = result.voltage_fails
+    else:
+        fails = result.index_fails or (iec_p and result.voltage_fails)
     if not fails:
         return []
     parts = []

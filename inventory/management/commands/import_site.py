@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from django.core.management.base import BaseCommand, CommandError
+from django.db import DatabaseError
 
 from inventory.services import SiteImportError, site_import
 
@@ -25,6 +26,11 @@ class Command(BaseCommand):
             raise CommandError(f"{file}: {exc}") from exc
         try:
             result = site_import(doc=doc, dry_run=dry_run)
+        except DatabaseError as exc:
+            # The validator should have caught it; the transaction rolled back all the same.
+            raise CommandError(
+                f"{file}: the database refused the import, nothing was written: {exc}"
+            ) from exc
         except SiteImportError as exc:
             for line in exc.errors:
                 self.stderr.write(line)

@@ -388,3 +388,38 @@ def test_effective_alf_per_case_worked_case_9():
     rating = evaluate_ct(SiteIndex(doc), "CB-1-A", {"ground_fault": 0.3, "phase_fault": 0.6})
     assert rating.cases["ground_fault"].alf_effective == pytest.approx(32.0)
     assert rating.cases["phase_fault"].alf_effective == pytest.approx(20.0)
+
+
+def test_iec_p_class_with_a_large_winding_resistance_is_a_saturation_risk():
+    # 5P20, 10 VA, 1 A, 200:1, R_ct 8 Ω, external burden 1 Ω, fault 15 × rated, X/R 10.
+    # Per-unit index (1 + 10) · 15 · (1 / 10) = 16.5 passes the 20 limit, but the e.m.f. needed,
+    # (1 + X/R) · I_f · (R_ct + R_b) = 11 · 15 · 9 = 1485 V, is far above the accuracy limit
+    # e.m.f. E_al = ALF · I_n · (R_ct + R_bn) = 20 · 1 · 18 = 360 V (IEC 61869-2 definition of
+    # E_al, S10; the offset factor (1 + X/R) as in C37.110, S7). Figures derived by hand.
+    from analysis.engine.ratings.checks import saturation_findings
+    from analysis.engine.ratings.saturation import SaturationCase
+    from analysis.engine.ratings.taps import tap_of
+
+    case = SaturationCase(
+        case="ground_fault",
+        fault_a=3000.0,
+        secondary_fault_a=15.0,
+        x_over_r=10.0,
+        burden_ohm=complex(1.0, 0.0),
+        winding_ohm=8.0,
+        vx_required_v=1485.0,
+        vx_available_v=360.0,
+        c37_110_index=16.5,
+        limit=20.0,
+        time_to_saturate_ms=4.8,
+        alf_effective=40.0,
+    )
+    tap = tap_of({"S1": 0, "S2": 200}, ["S1", "S2"], 1)
+    findings = saturation_findings(ct="L9-A", tap=tap, result=case)
+    assert [f.code for f in findings] == ["saturation_risk"]
+    assert "1485 V" in findings[0].message and "360 V" in findings[0].message
+    # The same figures on an IEEE C class (no ALF) are judged by the per-unit index alone.
+    ieee = SaturationCase(
+        **{**{f: getattr(case, f) for f in case.__slots__}, "alf_effective": None}
+    )
+    assert saturation_findings(ct="L9-A", tap=tap, result=ieee) == []
