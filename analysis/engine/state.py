@@ -632,8 +632,10 @@ def check_trip(
     nl: Netlist, before: StateEval, ev: StateEval, work: frozenset[str], phase: str | None
 ) -> list[Finding]:
     """``trip_not_isolated``: the three rules of the findings table, while an output of the
-    device is still connected to its target; and an output reconnected while an input of the
-    device carries other than its normal current (``_reconnected_early``)."""
+    device is still connected to its target; an output reconnected while an input of the
+    device carries other than its normal current (``_reconnected_early``); and equipment
+    energized while a connected device's input carries other than its normal current
+    (``_energized_abnormal``)."""
     out = []
     for dev in nl.devices.values():
         conn = [o for o in dev.outputs if ev.out_connected[o.index]]
@@ -685,6 +687,9 @@ def check_trip(
         early = _reconnected_early(nl, before, ev, dev, conn, phase)
         if early is not None:
             out.append(early)
+        energized = _energized_abnormal(nl, before, ev, dev, conn, phase)
+        if energized is not None:
+            out.append(energized)
         if reason is None:
             continue
         outs = ", ".join(f"{o.name} → {nl.terminals[o.target]}" for o in conn)
@@ -718,27 +723,10 @@ def _reconnected_early(
     new = [o for o in conn if not before.out_connected[o.index]]
     if not new or not dev.inputs:
         return None
-    ref_ev = ev.normal_ref
-    worst: tuple[float, Any, complex, complex, float] | None = None
-    others: list[str] = []
-    for di in dev.inputs:
-        k = di.index
-        ref = max(ref_ev.inp_ref_a[k], ev.inp_ref_a[k])
-        if ref <= 0:
-            continue
-        i_now, i_norm = ev.inp_cur[k], ref_ev.inp_cur[k]
-        off = abs(i_now - i_norm)
-        if off <= CHANGE_FRACTION * ref:
-            continue
-        if worst is None or off / ref > worst[0] + 1e-9:  # ties: the first input named
-            if worst is not None:
-                others.append(worst[1].name)
-            worst = (off / ref, di, i_now, i_norm, ref)
-        else:
-            others.append(di.name)
-    if worst is None:
+    hit = _off_normal(ev, dev)
+    if hit is None:
         return None
-    _, di, i_now, i_norm, ref = worst
+    di, i_now, i_norm, ref, others = hit
     outs = ", ".join(
         f"{o.name} ({nl.terminals[o.terminal]} → {nl.terminals[o.target]})" for o in new
     )
@@ -761,6 +749,84 @@ def _reconnected_early(
             "outputs": [o.name for o in new],
         },
     )
+
+
+def _energized_abnormal(
+    nl: Netlist,
+    before: StateEval,
+    ev: StateEval,
+    dev: Any,
+    conn: list[Any],
+    phase: str | None,
+) -> Finding | None:
+    """``trip_not_isolated`` for a step that energizes equipment while an output of the device
+    is connected to its target and an input of the device carries a current more than 10 % of
+    its circuit's largest CT current away from what it carries with the secondary circuits in
+    their normal state and the same primary: the device sees a false operating quantity (or
+    misses a true one) the moment the CTs come alive, e.g. a residual relay whose phase CT is
+    shorted upstream trips the breaker as it closes (isolate the trips or restore the CT
+    circuits before energizing; common practice, no source). The input-change rules of
+    ``check_trip`` do not apply across a change of primary; de-energizing is not flagged."""
+    added = ev.state.energized - before.state.energized
+    if not added or not conn or not dev.inputs:
+        return None
+    hit = _off_normal(ev, dev)
+    if hit is None:
+        return None
+    di, i_now, i_norm, ref, others = hit
+    what = ", ".join(sorted(added))
+    outs = ", ".join(
+        f"{o.name} ({nl.terminals[o.terminal]} → {nl.terminals[o.target]})" for o in conn
+    )
+    also = f" (and {', '.join(sorted(others))})" if others else ""
+    return Finding(
+        code=fc.TRIP_NOT_ISOLATED,
+        message=(
+            f"{what} is energized while {dev.code} output {outs} is connected and input "
+            f"{di.name}{also} carries {_fmt_a(abs(i_now))} against {_fmt_a(abs(i_norm))} with "
+            f"the CT circuits in their normal state (more than 10 % of the circuit's largest CT "
+            f"current, {_fmt_a(ref)}, apart): isolate the trips or restore the CT circuits "
+            f"before energizing"
+        ),
+        device=dev.code,
+        input=di.name,
+        phase=phase,
+        numbers={
+            "now_a": round(abs(i_now), 4),
+            "normal_a": round(abs(i_norm), 4),
+            "circuit_max_a": round(ref, 4),
+            "outputs": [o.name for o in conn],
+            "energized": sorted(added),
+        },
+    )
+
+
+def _off_normal(ev: StateEval, dev: Any) -> tuple[Any, complex, complex, float, list[str]] | None:
+    """The input of ``dev`` furthest (as a fraction of its circuit's largest CT current) from
+    its current in ``ev.normal_ref`` when more than 10 % away: (input, current now, normal
+    current, circuit's largest CT current, the other inputs that far away); None otherwise."""
+    ref_ev = ev.normal_ref
+    worst: tuple[float, Any, complex, complex, float] | None = None
+    others: list[str] = []
+    for di in dev.inputs:
+        k = di.index
+        ref = max(ref_ev.inp_ref_a[k], ev.inp_ref_a[k])
+        if ref <= 0:
+            continue
+        i_now, i_norm = ev.inp_cur[k], ref_ev.inp_cur[k]
+        off = abs(i_now - i_norm)
+        if off <= CHANGE_FRACTION * ref:
+            continue
+        if worst is None or off / ref > worst[0] + 1e-9:  # ties: the first input named
+            if worst is not None:
+                others.append(worst[1].name)
+            worst = (off / ref, di, i_now, i_norm, ref)
+        else:
+            others.append(di.name)
+    if worst is None:
+        return None
+    _, di, i_now, i_norm, ref = worst
+    return di, i_now, i_norm, ref, others
 
 
 def check_bypassed(

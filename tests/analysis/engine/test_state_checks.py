@@ -48,7 +48,14 @@ def test_a_dead_ct_may_be_opened_and_energizing_it_open_is_flagged(panel):
         ],
     )
     assert [f.code for f in v.steps[2].findings] == []
-    assert [(f.code, f.ct) for f in v.steps[3].findings] == [("open_secondary", "CB-1-A")]
+    # energized with R-1's trip connected: IA carries 0 A and the residual IN phase B + C's
+    # 4.00 A (Kirchhoff, from memory) against 4.00 A and 0 A normally (common practice, no
+    # source)
+    assert [(f.code, f.ct or f.device, f.input) for f in v.steps[3].findings] == [
+        ("open_secondary", "CB-1-A", None),
+        ("trip_not_isolated", "R-1", "IA"),
+    ]
+    assert "input IA (and IN) carries 0 A against 4.00 A" in v.steps[3].findings[1].message
     assert [f.code for f in v.steps[4].findings if f.code == "open_secondary"] == []
 
 
@@ -310,6 +317,62 @@ def test_trip_restored_with_the_primary_dead_compares_with_the_dead_normal_state
     ops = [{"deenergize": "CB-1"}, *ISOLATE_ALL, {"set": "TS-1/T2", "to": "closed"}]
     v = check_operations(nl, ops, ["R-50"])
     assert [f.code for f in v.steps[7].findings] == []
+
+
+# --- equipment energized while a connected device's input is abnormal ----------------------
+
+SHORT_A_DEAD = [
+    {"deenergize": "CB-1"},
+    {"set": "TS-1/T1", "to": "open"},
+    {"set": "TS-1/T2", "to": "open"},
+    {"set": "TS-1/A", "to": "open"},
+    {"set": "TS-1/T1", "to": "closed"},
+    {"set": "TS-1/T2", "to": "closed"},
+]
+
+
+def test_energizing_with_one_phase_shorted_and_the_trips_connected_is_flagged():
+    """CB-1 dead, phase A shorted at TS-1, both trips reclosed (no finding: nothing is live),
+    then CB-1 energized. B and C return through IN (IA is cut off at the open knife), so IN
+    carries |I_B + I_C| = |I_A| = 4.00 A (Kirchhoff, from memory) against 0 A in the balanced
+    normal state: the 50N trips CB-1 as it closes. R-50's IA carries 0 A against 4.00 A
+    (energize with the CT circuits as normal, or with the trips isolated; common practice,
+    no source)."""
+    nl = build_netlist(residual_panel().build())
+    v = check_operations(nl, [*SHORT_A_DEAD, {"energize": "CB-1"}], ["R-50"])
+    assert [f.code for f in v.steps[6].findings] == []
+    trips = [f for f in v.steps[7].findings if f.code == "trip_not_isolated"]
+    assert [(f.severity, f.phase, f.device, f.input) for f in trips] == [
+        ("danger", "after", "R-50", "IA"),
+        ("danger", "after", "R-50N", "IN"),
+    ]
+    f = trips[1]
+    assert f.message == (
+        "CB-1 is energized while R-50N output TRIP (R-50N:T → CB-1:TC) is connected and input "
+        "IN carries 4.00 A against 0 A with the CT circuits in their normal state (more than "
+        "10 % of the circuit's largest CT current, 4.00 A, apart): isolate the trips or "
+        "restore the CT circuits before energizing"
+    )
+    assert f.numbers["now_a"] == pytest.approx(4.0, abs=1e-6)
+    assert f.numbers["normal_a"] == pytest.approx(0.0, abs=1e-6)
+    assert f.numbers["energized"] == ["CB-1"]
+    assert "input IA carries 0 A against 4.00 A" in trips[0].message
+    assert v.first_danger == {"step": 7, "phase": "after", "code": "trip_not_isolated", "ct": None}
+
+
+def test_energizing_after_the_shorted_phase_is_restored_is_not_flagged():
+    nl = build_netlist(residual_panel().build())
+    ops = [*SHORT_A_DEAD, {"set": "TS-1/A", "to": "closed"}, {"energize": "CB-1"}]
+    v = check_operations(nl, ops, ["R-50"])
+    assert [f.code for f in v.steps[8].findings] == []
+    assert v.safe
+
+
+def test_energizing_with_every_ct_circuit_normal_is_not_flagged():
+    nl = build_netlist(residual_panel().build())
+    v = check_operations(nl, [{"deenergize": "CB-1"}, {"energize": "CB-1"}], ["R-50"])
+    assert [f.code for f in v.steps[2].findings] == []
+    assert v.safe
 
 
 # --- input_bypassed, first appearance only --------------------------------------------------
