@@ -630,9 +630,8 @@ class _SenseChecker:
                 )
             else:
                 at_position[position] = name
-        in_use = ct.get("in_use")
-        good_in_use = self.tap(in_use, terminals, *where, "in_use")
-        self.tap_changes(ct.get("tap_changes"), in_use if good_in_use else None, terminals, *where)
+        self.tap(ct.get("in_use"), terminals, *where, "in_use")
+        self.tap_changes(ct.get("tap_changes"), terminals, *where)
 
     def tap(self, tap: Any, terminals: dict[str, Any], *tokens: Any) -> bool:
         """Check a pair of CT terminal names; True when it is a usable tap."""
@@ -685,9 +684,7 @@ class _SenseChecker:
                     )
             previous = (index, current_a, volts)
 
-    def tap_changes(
-        self, changes: Any, in_use: Any, terminals: dict[str, Any], *where: Any
-    ) -> None:
+    def tap_changes(self, changes: Any, terminals: dict[str, Any], *where: Any) -> None:
         # An in_use that differs from the last change's "to" is not an error: it is a tap
         # change made now, and the importer records it as an event. Taps are ordered pairs
         # (the first terminal is where the current leaves), so a swap is a change too.
