@@ -38,7 +38,6 @@ def _finding_row(
             k: f.get(k) for k in ("code", "severity", "ct", "device", "input", "circuit", "message")
         }
         row["numbers"] = dict(f.get("numbers") or {})
-    row.pop("phase", None)
     row["procedure"] = procedure
     row["step"] = step
     return row

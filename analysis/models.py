@@ -228,6 +228,8 @@ class Finding(SiteResult):
     circuit = models.CharField(max_length=200, null=True, blank=True)  # noqa: DJ001
     procedure = models.CharField(max_length=60, null=True, blank=True)  # noqa: DJ001
     step = models.IntegerField(null=True, blank=True)
+    # "before", "transition" or "after" for a procedure finding; null for the normal state.
+    stage = models.CharField(max_length=12, null=True, blank=True)  # noqa: DJ001
     message = models.TextField()
     numbers = models.JSONField(default=dict)
 

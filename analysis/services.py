@@ -323,7 +323,10 @@ def _result_rows(
         rows[models.Finding] += [
             {
                 **common,
-                **{k: f.get(k) for k in ("ct", "device", "input", "circuit", "procedure", "step")},
+                **{
+                    k: f.get(k)
+                    for k in ("ct", "device", "input", "circuit", "procedure", "step", "stage")
+                },
                 "code": f["code"],
                 "severity": f["severity"],
                 "message": f["message"],

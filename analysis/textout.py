@@ -41,8 +41,8 @@ def _wrap(text: str, indent: str, width: int = 100, *, first: str | None = None)
 def findings_lines(findings: list[dict[str, Any]], indent: str = "      ") -> list[str]:
     lines = []
     for f in findings:
-        phase = f" [{f['phase']}]" if f.get("phase") else ""
-        lines.extend(_wrap(f"{f['severity'].upper()} {f['code']}{phase}: {f['message']}", indent))
+        stage = f" [{f['stage']}]" if f.get("stage") else ""
+        lines.extend(_wrap(f"{f['severity'].upper()} {f['code']}{stage}: {f['message']}", indent))
     return lines
 
 
@@ -60,7 +60,7 @@ def verdict_text(verdict: dict[str, Any]) -> str:
     danger = verdict.get("first_danger")
     if danger:
         lines.append(
-            f"first danger: step {danger['step']} ({danger['phase']}): {danger['code']}"
+            f"first danger: step {danger['step']} ({danger['stage']}): {danger['code']}"
             + (f" on {danger['ct']}" if danger.get("ct") else "")
             + (f" / {danger['device']}" if danger.get("device") else "")
         )

@@ -69,7 +69,7 @@ class Finding:
     device: str | None = None
     input: str | None = None
     circuit: str | None = None
-    phase: str | None = None  # "before", "transition" or "after" inside a procedure verdict
+    stage: str | None = None  # "before", "transition" or "after" inside a procedure verdict
     numbers: dict[str, Any] = field(default_factory=dict)
 
     @property
@@ -81,7 +81,7 @@ class Finding:
         return {
             "code": self.code,
             "severity": self.severity,
-            "phase": self.phase,
+            "stage": self.stage,
             "ct": self.ct,
             "device": self.device,
             "input": self.input,

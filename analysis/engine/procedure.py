@@ -67,7 +67,14 @@ class ProcedureVerdict:
     def first_danger(self) -> dict[str, Any] | None:
         for step, f in self.findings:
             if f.severity == fc.DANGER:
-                return {"step": step, "phase": f.phase, "code": f.code, "ct": f.ct}
+                return {
+                    "step": step,
+                    "stage": f.stage,
+                    "code": f.code,
+                    "ct": f.ct,
+                    "device": f.device,
+                    "input": f.input,
+                }
         return None
 
     @property

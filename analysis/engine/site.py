@@ -35,7 +35,7 @@ class SiteAnalysis:
 
 def normal_findings(netlist: Netlist) -> list[Finding]:
     """State findings of the normal state (open secondaries, partial winding shorts, ground
-    points), as the findings list shows them (no procedure, no phase)."""
+    points), as the findings list shows them (no procedure, no stage)."""
     ev = evaluate_states(netlist, [normal_state(netlist)])[0]
     return state_findings(netlist, ev, ev, ev, frozenset(), None)
 

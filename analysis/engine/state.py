@@ -590,7 +590,7 @@ def _fmt_a(x: float) -> str:
     return f"{x:.3g} A" if x < 0.01 else f"{x:.2f} A"
 
 
-def check_open_secondary(nl: Netlist, ev: StateEval, phase: str | None) -> list[Finding]:
+def check_open_secondary(nl: Netlist, ev: StateEval, stage: str | None) -> list[Finding]:
     """``open_secondary``: a live CT whose terminals in use are not joined by a closed path."""
     out = []
     for ct in nl.ct_list:
@@ -613,7 +613,7 @@ def check_open_secondary(nl: Netlist, ev: StateEval, phase: str | None) -> list[
                 ),
                 ct=ct.code,
                 circuit=ev.circ_id.get(ev.ct_circ[k]),
-                phase=phase,
+                stage=stage,
                 numbers={"secondary_a": round(ct.load_secondary_a, 4)},
             )
         )
@@ -629,7 +629,7 @@ def _changed(old: complex, new: complex, ref_a: float) -> bool:
 
 
 def check_trip(
-    nl: Netlist, before: StateEval, ev: StateEval, work: frozenset[str], phase: str | None
+    nl: Netlist, before: StateEval, ev: StateEval, work: frozenset[str], stage: str | None
 ) -> list[Finding]:
     """``trip_not_isolated``: the three rules of the findings table, while an output of the
     device is still connected to its target; an output reconnected while an input of the
@@ -684,10 +684,10 @@ def check_trip(
                     "to_a": round(abs(i1), 4),
                     "circuit_max_a": round(ref, 4),
                 }
-        early = _reconnected_early(nl, before, ev, dev, conn, phase)
+        early = _reconnected_early(nl, before, ev, dev, conn, stage)
         if early is not None:
             out.append(early)
-        energized = _energized_abnormal(nl, before, ev, dev, conn, phase)
+        energized = _energized_abnormal(nl, before, ev, dev, conn, stage)
         if energized is not None:
             out.append(energized)
         if reason is None:
@@ -699,7 +699,7 @@ def check_trip(
                 message=f"{dev.code} trip output still connected ({outs}) while {reason}",
                 device=dev.code,
                 input=which,
-                phase=phase,
+                stage=stage,
                 numbers=numbers,
             )
         )
@@ -712,7 +712,7 @@ def _reconnected_early(
     ev: StateEval,
     dev: Any,
     conn: list[Any],
-    phase: str | None,
+    stage: str | None,
 ) -> Finding | None:
     """``trip_not_isolated`` for an output that this operation connects to its target (it was
     not connected in ``before``) while an input of the device carries a current more than
@@ -741,7 +741,7 @@ def _reconnected_early(
         ),
         device=dev.code,
         input=di.name,
-        phase=phase,
+        stage=stage,
         numbers={
             "now_a": round(abs(i_now), 4),
             "normal_a": round(abs(i_norm), 4),
@@ -757,7 +757,7 @@ def _energized_abnormal(
     ev: StateEval,
     dev: Any,
     conn: list[Any],
-    phase: str | None,
+    stage: str | None,
 ) -> Finding | None:
     """``trip_not_isolated`` for a step that energizes equipment while an output of the device
     is connected to its target and an input of the device carries a current more than 10 % of
@@ -790,7 +790,7 @@ def _energized_abnormal(
         ),
         device=dev.code,
         input=di.name,
-        phase=phase,
+        stage=stage,
         numbers={
             "now_a": round(abs(i_now), 4),
             "normal_a": round(abs(i_norm), 4),
@@ -833,7 +833,7 @@ def check_bypassed(
     nl: Netlist,
     base: StateEval,
     ev: StateEval,
-    phase: str | None,
+    stage: str | None,
     skip: set[tuple[Any, ...]] | None = None,
     keys: set[tuple[Any, ...]] | None = None,
 ) -> list[Finding]:
@@ -872,7 +872,7 @@ def check_bypassed(
                 device=dev.code,
                 input=di.name,
                 circuit=cid,
-                phase=phase,
+                stage=stage,
                 numbers={
                     "from_a": round(i0, 4),
                     "to_a": round(i1, 4),
@@ -883,7 +883,7 @@ def check_bypassed(
     return out
 
 
-def check_partial(nl: Netlist, ev: StateEval, phase: str | None) -> list[Finding]:
+def check_partial(nl: Netlist, ev: StateEval, stage: str | None) -> list[Finding]:
     """``partial_winding_short``: a section of a live CT outside the tap in use is shorted."""
     out = []
     for code, sections in ev.partial.items():
@@ -898,14 +898,14 @@ def check_partial(nl: Netlist, ev: StateEval, phase: str | None) -> list[Finding
                 ),
                 ct=code,
                 circuit=ev.circ_id.get(ev.ct_circ[ct.index]),
-                phase=phase,
+                stage=stage,
                 numbers={"sections": [list(s) for s in sections]},
             )
         )
     return out
 
 
-def check_grounds(nl: Netlist, ev: StateEval, phase: str | None) -> list[Finding]:
+def check_grounds(nl: Netlist, ev: StateEval, stage: str | None) -> list[Finding]:
     """``no_ground`` / ``multiple_grounds``: one ground point per secondary circuit."""
     out = []
     for lab, cid in ev.circ_id.items():
@@ -916,7 +916,7 @@ def check_grounds(nl: Netlist, ev: StateEval, phase: str | None) -> list[Finding
                     code=fc.NO_GROUND,
                     message=f"circuit {cid} has no ground point",
                     circuit=cid,
-                    phase=phase,
+                    stage=stage,
                     numbers={"ground_points": 0},
                 )
             )
@@ -929,7 +929,7 @@ def check_grounds(nl: Netlist, ev: StateEval, phase: str | None) -> list[Finding
                         f"({', '.join(pts)}); it should be grounded at one"
                     ),
                     circuit=cid,
-                    phase=phase,
+                    stage=stage,
                     numbers={"ground_points": len(pts)},
                 )
             )
@@ -942,7 +942,7 @@ def state_findings(
     before: StateEval,
     ev: StateEval,
     work: frozenset[str],
-    phase: str | None,
+    stage: str | None,
     skip: set[tuple[Any, ...]] | None = None,
     keys: set[tuple[Any, ...]] | None = None,
 ) -> list[Finding]:
@@ -952,11 +952,11 @@ def state_findings(
     ``keys`` (if given) collects the key of every finding that holds; findings other than
     ``open_secondary`` and ``trip_not_isolated`` whose key is in ``skip`` are left out."""
     out = [
-        *check_open_secondary(nl, ev, phase),
-        *check_trip(nl, before, ev, work, phase),
-        *check_bypassed(nl, base, ev, phase, skip, keys),
+        *check_open_secondary(nl, ev, stage),
+        *check_trip(nl, before, ev, work, stage),
+        *check_bypassed(nl, base, ev, stage, skip, keys),
     ]
-    for f in (*check_partial(nl, ev, phase), *check_grounds(nl, ev, phase)):
+    for f in (*check_partial(nl, ev, stage), *check_grounds(nl, ev, stage)):
         key = finding_key(f)
         if keys is not None:
             keys.add(key)

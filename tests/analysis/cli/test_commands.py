@@ -25,7 +25,7 @@ DEMO = Path(__file__).resolve().parents[3] / "fixtures" / "demo"
 QUILLFEN = DEMO / "quillfen.json"
 
 VERDICT_KEYS = {"site", "procedure", "safe", "first_danger", "steps", "cautions"}
-FINDING_KEYS = {"code", "severity", "phase", "ct", "device", "input", "circuit", "message"}
+FINDING_KEYS = {"code", "severity", "stage", "ct", "device", "input", "circuit", "message"}
 PLAN_KEYS = {"site", "device", "possible", "isolate", "restore", "affected", "verdict", "cautions"}
 # The CT report's keys are design.md's, kept in one place with the report's own tests.
 REPORT_KEYS = set(TOP_KEYS)
@@ -48,7 +48,7 @@ def test_unsafe_procedure_verdict_json(stored):
     assert set(verdict) == VERDICT_KEYS
     assert verdict["safe"] is False
     danger = verdict["first_danger"]
-    assert (danger["step"], danger["phase"], danger["code"], danger["ct"]) == (
+    assert (danger["step"], danger["stage"], danger["code"], danger["ct"]) == (
         3,
         "after",
         "open_secondary",

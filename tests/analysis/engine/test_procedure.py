@@ -33,9 +33,11 @@ def test_verdict_json_has_the_shape_of_design_md():
     assert body["site"] == "HCX" and body["procedure"] == "P-BAD" and body["safe"] is False
     assert body["first_danger"] == {
         "step": 1,
-        "phase": "transition",
+        "stage": "transition",
         "code": "trip_not_isolated",
         "ct": None,
+        "device": "R-1",
+        "input": "IA",
     }
     assert body["steps"][0] == {"step": 0, "op": None, "findings": []}
     assert body["steps"][1]["op"] == {"set": "TS-1/A", "to": "open"}
@@ -43,7 +45,7 @@ def test_verdict_json_has_the_shape_of_design_md():
     assert list(finding) == [
         "code",
         "severity",
-        "phase",
+        "stage",
         "ct",
         "device",
         "input",

@@ -104,7 +104,7 @@ def test_break_before_make_on_a_shorting_pole_flags_its_transition(phase, load, 
         ops.append({"set": pole, "to": "closed"})
     v = check_operations(nl, ops)
     step = v.steps[-1]
-    opened = [(f.phase, f.ct) for f in step.findings if f.code == "open_secondary"]
+    opened = [(f.stage, f.ct) for f in step.findings if f.code == "open_secondary"]
     assert opened == [("transition", f"CB-1-{phase}")]
     # the current the open CT would drive: load / (400/5) (design.md, state currents)
     assert f"{load * 5 / 400:.2f} A secondary" in step.findings[0].message

@@ -15,7 +15,7 @@ from tests.analysis.engine.builders import SiteBuilder, wye_panel
 
 
 def _codes(verdict, step: int) -> list[tuple[str, str | None, str | None, str | None]]:
-    return [(f.code, f.phase, f.ct or f.device, f.input) for f in verdict.steps[step].findings]
+    return [(f.code, f.stage, f.ct or f.device, f.input) for f in verdict.steps[step].findings]
 
 
 @pytest.fixture
@@ -29,11 +29,18 @@ def panel():
 def test_lifting_a_live_lead_opens_the_secondary_with_its_current(panel):
     v = check_operations(panel, [{"lift": ["CB-1-A:X1", "TB-1:A"]}, {"note": "wait"}])
     first = v.steps[1].findings[0]
-    assert (first.code, first.phase, first.ct) == ("open_secondary", "after", "CB-1-A")
+    assert (first.code, first.stage, first.ct) == ("open_secondary", "after", "CB-1-A")
     assert "4.00 A secondary" in first.message and "320 A" in first.message
     # reported in every state where it holds
     assert ("open_secondary", "after", "CB-1-A", None) in _codes(v, 2)
-    assert v.first_danger == {"step": 1, "phase": "after", "code": "open_secondary", "ct": "CB-1-A"}
+    assert v.first_danger == {
+        "step": 1,
+        "stage": "after",
+        "code": "open_secondary",
+        "ct": "CB-1-A",
+        "device": None,
+        "input": None,
+    }
     assert not v.safe
 
 
@@ -63,7 +70,7 @@ def test_an_open_ct_in_the_normal_state_is_listed_at_step_0():
     b = wye_panel()
     b.doc["wires"] = [w for w in b.doc["wires"] if w["from"] != "CB-1-B:X1"]
     v = check_operations(build_netlist(b.build()), [{"note": "look"}], ["R-1"])
-    assert [(f.code, f.phase, f.ct) for f in v.steps[0].findings] == [
+    assert [(f.code, f.stage, f.ct) for f in v.steps[0].findings] == [
         ("open_secondary", "before", "CB-1-B")
     ]
 
@@ -81,21 +88,23 @@ def test_make_before_break_pole_shorts_before_it_opens(panel):
 def test_break_before_make_pole_opens_the_ct_during_its_transition():
     nl = build_netlist(wye_panel(test_switch=True, transition="break_before_make").build())
     v = check_operations(nl, [{"set": "TS-1/B", "to": "open"}])
-    assert [(f.code, f.phase, f.ct) for f in v.steps[1].findings if f.code == "open_secondary"] == [
+    assert [(f.code, f.stage, f.ct) for f in v.steps[1].findings if f.code == "open_secondary"] == [
         ("open_secondary", "transition", "CB-1-B")
     ]
     assert v.first_danger == {
         "step": 1,
-        "phase": "transition",
+        "stage": "transition",
         "code": "open_secondary",
         "ct": "CB-1-B",
+        "device": None,
+        "input": None,
     }
 
 
 def test_simultaneous_switch_has_no_transition_state():
     nl = build_netlist(wye_panel(test_switch=True, transition="simultaneous").build())
     v = check_operations(nl, [{"set": "TS-1/B", "to": "open"}])
-    assert {f.phase for f in v.steps[1].findings} == {"after"}
+    assert {f.stage for f in v.steps[1].findings} == {"after"}
     assert v.safe
 
 
@@ -105,7 +114,7 @@ def test_simultaneous_switch_has_no_transition_state():
 def test_rule_a_input_change_of_the_device_worked_on_while_its_trip_is_connected(panel):
     v = check_operations(panel, [{"set": "TS-1/A", "to": "open"}], ["R-1"])
     trips = [f for f in v.steps[1].findings if f.code == "trip_not_isolated"]
-    assert [(f.phase, f.device, f.input) for f in trips] == [
+    assert [(f.stage, f.device, f.input) for f in trips] == [
         ("transition", "R-1", "IA"),
         ("after", "R-1", "IA"),
     ]
@@ -122,7 +131,7 @@ def test_rule_a_device_removed_while_its_trip_is_connected(panel):
     # no current changes at step 5, but the trip comes back while the inputs are still shorted
     # (restore the CT circuits before the trips; common practice, no source)
     (early,) = v.steps[5].findings
-    assert (early.code, early.phase, early.device, early.input) == (
+    assert (early.code, early.stage, early.device, early.input) == (
         "trip_not_isolated",
         "after",
         "R-1",
@@ -251,7 +260,7 @@ def test_residual_trip_restored_with_two_phases_still_shorted_is_flagged():
     v = check_operations(nl, ops, ["R-50"])
     assert [f.code for f in v.steps[6].findings] == []  # IN goes 0 A -> 4 A with its trip open
     (f,) = v.steps[7].findings
-    assert (f.code, f.severity, f.phase, f.device, f.input) == (
+    assert (f.code, f.severity, f.stage, f.device, f.input) == (
         "trip_not_isolated",
         "danger",
         "after",
@@ -265,7 +274,14 @@ def test_residual_trip_restored_with_two_phases_still_shorted_is_flagged():
     )
     assert f.numbers["now_a"] == pytest.approx(4.0, abs=1e-6)
     assert f.numbers["normal_a"] == pytest.approx(0.0, abs=1e-6)
-    assert v.first_danger == {"step": 7, "phase": "after", "code": "trip_not_isolated", "ct": None}
+    assert v.first_danger == {
+        "step": 7,
+        "stage": "after",
+        "code": "trip_not_isolated",
+        "ct": None,
+        "device": "R-50N",
+        "input": "IN",
+    }
 
 
 def test_residual_trip_restored_after_every_phase_is_not_flagged():
@@ -302,7 +318,7 @@ def test_trip_made_during_a_transition_only_is_flagged_in_the_transition():
         ],
         ["R-50"],
     )
-    trips = [(f.phase, f.device, f.input) for f in bad.steps[3].findings]
+    trips = [(f.stage, f.device, f.input) for f in bad.steps[3].findings]
     assert trips == [("transition", "R-50N", "IN")]
     assert "carries 4.00 A against 0 A" in bad.steps[3].findings[0].message
     # with the secondary as normal the same movement is no finding
@@ -342,7 +358,7 @@ def test_energizing_with_one_phase_shorted_and_the_trips_connected_is_flagged():
     v = check_operations(nl, [*SHORT_A_DEAD, {"energize": "CB-1"}], ["R-50"])
     assert [f.code for f in v.steps[6].findings] == []
     trips = [f for f in v.steps[7].findings if f.code == "trip_not_isolated"]
-    assert [(f.severity, f.phase, f.device, f.input) for f in trips] == [
+    assert [(f.severity, f.stage, f.device, f.input) for f in trips] == [
         ("danger", "after", "R-50", "IA"),
         ("danger", "after", "R-50N", "IN"),
     ]
@@ -357,7 +373,14 @@ def test_energizing_with_one_phase_shorted_and_the_trips_connected_is_flagged():
     assert f.numbers["normal_a"] == pytest.approx(0.0, abs=1e-6)
     assert f.numbers["energized"] == ["CB-1"]
     assert "input IA carries 0 A against 4.00 A" in trips[0].message
-    assert v.first_danger == {"step": 7, "phase": "after", "code": "trip_not_isolated", "ct": None}
+    assert v.first_danger == {
+        "step": 7,
+        "stage": "after",
+        "code": "trip_not_isolated",
+        "ct": None,
+        "device": "R-50",
+        "input": "IA",
+    }
 
 
 def test_energizing_after_the_shorted_phase_is_restored_is_not_flagged():
@@ -464,7 +487,7 @@ def test_lifting_the_only_ground_leaves_no_ground_and_a_second_ground_is_multipl
 
 def test_a_circuit_without_ground_is_listed_at_step_0():
     v = check_operations(build_netlist(wye_panel(ground=False).build()), [], ["R-1"])
-    assert [(f.code, f.phase) for f in v.steps[0].findings] == [("no_ground", "before")]
+    assert [(f.code, f.stage) for f in v.steps[0].findings] == [("no_ground", "before")]
 
 
 # --- operations -----------------------------------------------------------------------------
