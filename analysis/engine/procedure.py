@@ -31,10 +31,11 @@ from analysis.engine.state import (
     evaluate_states,
     normal_state,
     op_kind,
+    record_names,
     state_findings,
-    validate_op,
 )
 from analysis.engine.topology import components
+from siterules.procedure_refs import procedure_problems
 
 
 @dataclass(frozen=True, slots=True)
@@ -278,20 +279,20 @@ def check_operations(
     *,
     code: str | None = None,
     start: State | None = None,
+    prefix: tuple[str | int, ...] = (),
 ) -> ProcedureVerdict:
     """Check a list of operations from the normal state (an unsaved procedure).
 
     ``devices`` are the devices the work is for (rule (a) of ``trip_not_isolated``). Raises
-    ``ProcedureError`` for a step that names an unknown switch, position, jumper, terminal,
-    wire, device or equipment.
+    ``ProcedureError`` listing every step that names a switch, position, terminal, wire or
+    link, device or equipment the site does not have, removes a jumper that is not in place,
+    reuses the id of one that is, or lifts (lands) what is already lifted (landed): the rule
+    of ``siterules.procedure_refs``, the one the site-file import applies. ``prefix`` is the
+    JSON pointer of the procedure in its site document, for the messages.
     """
     ops = list(ops)
     devices = tuple(devices)
-    for d in devices:
-        if d not in netlist.devices:
-            raise ProcedureError(f"devices: unknown device {d!r}")
-    for n, op in enumerate(ops, start=1):
-        validate_op(netlist, op, n)
+    _refuse_problems(netlist, ops, devices, start, prefix)
     nl = netlist
     if start is None:
         seeds, jumps = touched_terminals(netlist, ops, devices)
@@ -324,4 +325,26 @@ def check_procedure(netlist: Netlist, code: str) -> ProcedureVerdict:
     if proc is None:
         known = ", ".join(sorted(netlist.procedures)) or "none"
         raise ProcedureError(f"unknown procedure {code!r} (procedures: {known})")
-    return check_operations(netlist, list(proc.steps), proc.devices, code=proc.code)
+    prefix = ("procedures", list(netlist.procedures).index(code))
+    return check_operations(netlist, list(proc.steps), proc.devices, code=proc.code, prefix=prefix)
+
+
+def _refuse_problems(
+    nl: Netlist,
+    ops: list[dict[str, Any]],
+    devices: tuple[str, ...],
+    start: State | None,
+    prefix: tuple[str | int, ...],
+) -> None:
+    """Raise ``ProcedureError`` with every problem of the procedure rule."""
+    jumpers: list[str] = []
+    lifted: list[frozenset[str]] = []
+    if start is not None:
+        jumpers = [j[0] for j in start.jumpers]
+        lifted = [frozenset(nl.wires[k].ends) for k in start.lifted_wires]
+        lifted += [frozenset(nl.links[k].ends) for k in start.lifted_links]
+    problems = procedure_problems(
+        record_names(nl), ops, devices, prefix=prefix, jumpers=jumpers, lifted=lifted
+    )
+    if problems:
+        raise ProcedureError.of(problems, prefix)

@@ -28,6 +28,7 @@ from analysis.engine import findings as fc
 from analysis.engine.findings import Finding
 from analysis.engine.netlist import Netlist
 from analysis.engine.topology import components, solve, topology
+from siterules.procedure_refs import Problem, RecordNames, default_jumper_id, procedure_problems
 
 # Thresholds of the findings table (design.md), as fractions of the largest CT current of the
 # circuit.
@@ -43,7 +44,41 @@ _GOLDEN_RAD = math.pi * (3.0 - math.sqrt(5.0))
 
 
 class ProcedureError(ValueError):
-    """A step names something the site does not have, or cannot be carried out."""
+    """A step names something the site does not have, or cannot be carried out.
+
+    ``problems`` holds every problem found (``siterules.procedure_refs.Problem``) when the
+    error comes from the procedure rule; the message lists them, one per line."""
+
+    def __init__(self, message: str, problems: tuple[Problem, ...] = ()) -> None:
+        super().__init__(message)
+        self.problems = problems
+
+    @classmethod
+    def of(cls, problems: list[Problem], prefix: tuple[str | int, ...] = ()) -> ProcedureError:
+        """The error for the problems of one procedure (``prefix``: its JSON pointer tokens in
+        the site document), each line naming the step as the verdict numbers it (1-based, step
+        0 being the state before) and the pointer of the value at fault."""
+        lines = [
+            (f"step {p.step + 1} " if p.step is not None else "")
+            + f"({p.pointer(*prefix)}): {p.message}"
+            for p in problems
+        ]
+        return cls("\n".join(lines), tuple(problems))
+
+
+def record_names(nl: Netlist) -> RecordNames:
+    """What a procedure on this netlist may name (``siterules.procedure_refs``), built once."""
+    hit = nl.cache.get("record_names")
+    if hit is None:
+        hit = nl.cache["record_names"] = RecordNames(
+            terminals=frozenset(nl.index),
+            switches={code: sw.positions for code, sw in nl.switches.items()},
+            devices=frozenset(nl.devices),
+            equipment=frozenset(nl.equipment),
+            wires=frozenset(frozenset(w.ends) for w in nl.wires if w.a != w.b),
+            links=frozenset(frozenset(k.ends) for k in nl.links if k.a != k.b),
+        )
+    return hit
 
 
 @dataclass(frozen=True, slots=True)
@@ -72,16 +107,8 @@ def normal_state(nl: Netlist) -> State:
     )
 
 
-def _terminal(nl: Netlist, name: Any, step: int, what: str) -> int:
-    if not isinstance(name, str) or name not in nl.index:
-        raise ProcedureError(f"step {step}: {what}: unknown terminal {name!r}")
-    return nl.index[name]
-
-
-def _pair(op: dict[str, Any], key: str, step: int) -> tuple[str, str]:
-    pair = op.get(key)
-    if not isinstance(pair, list | tuple) or len(pair) != 2:
-        raise ProcedureError(f"step {step}: '{key}' needs a pair of terminals, got {pair!r}")
+def _pair(op: dict[str, Any], key: str) -> tuple[str, str]:
+    pair = op[key]
     return str(pair[0]), str(pair[1])
 
 
@@ -112,39 +139,14 @@ def op_kind(op: dict[str, Any]) -> str:
 
 
 def validate_op(nl: Netlist, op: Any, step: int) -> None:
-    """Raise ``ProcedureError`` when ``op`` names an unknown switch, position, jumper
-    terminal, wire, device or equipment (jumper ids are checked while simulating)."""
-    if not isinstance(op, dict):
-        raise ProcedureError(f"step {step}: an operation is an object, got {op!r}")
-    kind = op_kind(op)
-    if kind == "set":
-        sw = nl.switches.get(str(op["set"]))
-        if sw is None:
-            raise ProcedureError(f"step {step}: unknown switch {op['set']!r}")
-        if op.get("to") not in sw.positions:
-            raise ProcedureError(
-                f"step {step}: switch {sw.code} has no position {op.get('to')!r} "
-                f"(positions: {', '.join(sw.positions)})"
-            )
-    elif kind == "add_jumper":
-        a, b = _pair(op, "add_jumper", step)
-        _terminal(nl, a, step, "add_jumper")
-        _terminal(nl, b, step, "add_jumper")
-    elif kind in ("lift", "land"):
-        a, b = _pair(op, kind, step)
-        wires, links = _between(nl, a, b)
-        if not wires and not links:
-            raise ProcedureError(f"step {step}: {kind}: no wire between {a} and {b}")
-    elif kind in ("remove_device", "insert_device"):
-        if str(op[kind]) not in nl.devices:
-            raise ProcedureError(f"step {step}: {kind}: unknown device {op[kind]!r}")
-    elif kind in ("deenergize", "energize"):
-        if str(op[kind]) not in nl.equipment:
-            raise ProcedureError(f"step {step}: {kind}: unknown equipment {op[kind]!r}")
-    elif kind == "":
-        raise ProcedureError(
-            f"step {step}: unknown operation {sorted(op)!r}; expected one of set, add_jumper, "
-            "remove_jumper, lift, land, remove_device, insert_device, deenergize, energize, note"
+    """Raise ``ProcedureError`` when ``op``, taken alone, names a switch, position, terminal,
+    wire or link, device or equipment the site does not have (the names part of
+    ``siterules.procedure_refs``; jumper ids and lifted conductors depend on the steps before,
+    see ``check_operations``). ``step`` is the step's number (1-based)."""
+    problems = procedure_problems(record_names(nl), [op], sequence=False)
+    if problems:
+        raise ProcedureError.of(
+            [replace(p, step=step - 1, at=("steps", step - 1, *p.at[2:])) for p in problems]
         )
 
 
@@ -175,8 +177,8 @@ def apply_op(
             return None, after
         return replace(st, override=(sw.code, during)), after
     if kind == "add_jumper":
-        a, b = _pair(op, "add_jumper", step)
-        jid = str(op.get("id") or f"J{step}")
+        a, b = _pair(op, "add_jumper")
+        jid = str(op.get("id") or default_jumper_id(step - 1))
         if any(j[0] == jid for j in st.jumpers):
             raise ProcedureError(f"step {step}: jumper {jid!r} is already in place")
         jumpers = (*st.jumpers, (jid, nl.index[a], nl.index[b]))
@@ -190,7 +192,7 @@ def apply_op(
             )
         return None, replace(st, jumpers=tuple(j for j in st.jumpers if j[0] != jid))
     if kind in ("lift", "land"):
-        a, b = _pair(op, kind, step)
+        a, b = _pair(op, kind)
         wires, links = _between(nl, a, b)
         if kind == "lift":
             return None, replace(

@@ -33,6 +33,7 @@ from jsonschema import Draft202012Validator
 from jsonschema.exceptions import ValidationError
 
 from inventory.sitefile.fastcheck import compile_schema
+from siterules.procedure_refs import OPERATIONS, RecordNames, procedure_problems
 
 __all__ = [
     "FORMAT",
@@ -48,19 +49,8 @@ __all__ = [
 FORMAT = "loopkeep.site/1"
 SCHEMA_PATH = Path(__file__).with_name("schema.json")
 
-# The operations of a procedure step, in the order of the schema's oneOf branches.
-OPERATIONS = (
-    "set",
-    "add_jumper",
-    "remove_jumper",
-    "lift",
-    "land",
-    "remove_device",
-    "insert_device",
-    "deenergize",
-    "energize",
-    "note",
-)
+# The operations of a procedure step (``OPERATIONS``) are in the order of the schema's oneOf
+# branches.
 _OPERATION_COMPANIONS = ("to", "id")
 
 
@@ -522,19 +512,15 @@ class _SenseChecker:
 
         # Owners other than CTs: devices, equipment, terminal blocks, switch groups.
         self.owners: set[str] = set(self.devices) | set(self.equipment) | set(self.blocks)
-        self.switch_positions: dict[str, list[str]] = {}
-        for index, switch in _items(self.doc, "switches"):
+        for _, switch in _items(self.doc, "switches"):
             code = switch.get("code")
             if isinstance(code, str):
                 self.owners.add(code.split("/", 1)[0])
-                positions = switch.get("positions")
-                if self.switches.get(code) == index and isinstance(positions, list):
-                    self.switch_positions[code] = [p for p in positions if isinstance(p, str)]
 
         self.check_equipment()
         self.check_cts()
         self.check_devices()
-        self.wire_ends = self.check_wires()
+        self.check_wires()
         self.check_links_and_grounds()
         self.check_switches()
         self.check_procedures()
@@ -803,17 +789,14 @@ class _SenseChecker:
             else:
                 seen[name] = index
 
-    def check_wires(self) -> set[frozenset[str]]:
-        ends: set[frozenset[str]] = set()
+    def check_wires(self) -> None:
         for index, wire in _items(self.doc, "wires"):
             here = ("wires", index)
             start, end = wire.get("from"), wire.get("to")
             self.terminal(start, *here, "from")
             self.terminal(end, *here, "to")
-            if isinstance(start, str) and isinstance(end, str):
-                ends.add(frozenset((start, end)))
-                if start == end:
-                    self.add(f"a wire from a terminal to itself ({end!r})", *here, "to")
+            if isinstance(start, str) and isinstance(end, str) and start == end:
+                self.add(f"a wire from a terminal to itself ({end!r})", *here, "to")
 
             has_r = "r_ohm" in wire
             has_size = "size" in wire
@@ -836,7 +819,6 @@ class _SenseChecker:
                 problem = self.wire_size_check(size, material if material in ("cu", "al") else "cu")
                 if problem:
                     self.add(problem, *here, "size")
-        return ends
 
     def check_links_and_grounds(self) -> None:
         links = self.doc.get("links")
@@ -895,96 +877,94 @@ class _SenseChecker:
                     listed.add(position)
 
     def check_procedures(self) -> None:
+        """Every procedure against the one rule of what a step may name
+        (``siterules.procedure_refs``, which the engine applies too)."""
+        names = record_names(self.doc)
         for index, procedure in _items(self.doc, "procedures"):
             here = ("procedures", index)
             devices = procedure.get("devices")
-            listed: set[str] = set()
-            for number, code in enumerate(devices if isinstance(devices, list) else ()):
-                if not isinstance(code, str):
-                    continue
-                if code not in self.devices:
-                    self.add(f"unknown device {code!r}", *here, "devices", number)
-                elif code in listed:
-                    self.add(f"device {code!r} is listed twice", *here, "devices", number)
-                listed.add(code)
             steps = procedure.get("steps")
-            self.steps(steps if isinstance(steps, list) else [], *here, "steps")
-
-    def steps(self, steps: list[Any], *where: Any) -> None:
-        added: dict[str, int] = {}
-        removed: dict[str, int] = {}
-        for index, step in enumerate(steps):
-            if not isinstance(step, dict):
-                continue
-            ops = [key for key in step if key in OPERATIONS]
-            if len(ops) != 1:
-                continue  # the schema layer says what is wrong with the step's shape
-            op = ops[0]
-            value = step[op]
-            here = (*where, index)
-            if op == "set":
-                position = step.get("to")
-                if not isinstance(value, str):
-                    continue
-                if value not in self.switches:
-                    self.add(f"unknown switch {value!r}", *here, "set")
-                elif isinstance(position, str) and value in self.switch_positions:
-                    known = self.switch_positions[value]
-                    if position not in known:
-                        self.add(
-                            f"switch {value!r} has no position {position!r} (it has "
-                            f"{_names(known)})",
-                            *here,
-                            "to",
-                        )
-            elif op == "add_jumper":
-                self.two_ends(value, "a jumper", *here, "add_jumper")
-                jumper = step.get("id")
-                if isinstance(jumper, str):
-                    if jumper in added:
-                        self.add(
-                            f"jumper id {jumper!r} is already used at "
-                            f"{_pointer(*where, added[jumper])}",
-                            *here,
-                            "id",
-                        )
-                    else:
-                        added[jumper] = index
-            elif op == "remove_jumper":
-                if not isinstance(value, str):
-                    continue
-                if value in removed:
-                    self.add(
-                        f"jumper {value!r} was already removed at "
-                        f"{_pointer(*where, removed[value])}",
-                        *here,
-                        "remove_jumper",
-                    )
-                elif value not in added:
-                    self.add(f"no earlier step adds a jumper {value!r}", *here, "remove_jumper")
-                else:
-                    removed[value] = index
-            elif op in ("lift", "land"):
-                if not _is_pair(value):
-                    continue
-                for end, terminal in enumerate(value):
-                    self.terminal(terminal, *here, op, end)
-                if frozenset(value) not in self.wire_ends or value[0] == value[1]:
-                    self.add(
-                        f"no wire runs between {value[0]!r} and {value[1]!r}; {op} names the "
-                        "two ends of a wire of this site",
-                        *here,
-                        op,
-                    )
-            elif op in ("remove_device", "insert_device"):
-                if isinstance(value, str) and value not in self.devices:
-                    self.add(f"unknown device {value!r}", *here, op)
-            elif (
-                op in ("deenergize", "energize")
-                and isinstance(value, str)
-                and value not in self.equipment
+            for problem in procedure_problems(
+                names,
+                steps if isinstance(steps, list) else [],
+                devices if isinstance(devices, list) else [],
+                prefix=here,
+                check_shape=False,
             ):
-                self.add(f"unknown equipment {value!r}", *here, op)
+                self.add(problem.message, *here, *problem.at)
+
+
+def record_names(doc: dict) -> RecordNames:
+    """The names a procedure of ``doc`` may refer to: every terminal an element of the record
+    touches (as the engine's netlist indexes them), switches with their positions, devices,
+    equipment, and the ends of every wire and link."""
+    terminals: set[str] = set()
+
+    def term(value: Any) -> None:
+        if isinstance(value, str):
+            terminals.add(value)
+
+    def ends(pair: Any) -> frozenset[str] | None:
+        if _is_pair(pair) and all(isinstance(t, str) for t in pair) and pair[0] != pair[1]:
+            return frozenset(pair)
+        return None
+
+    for _, ct in _items(doc, "cts"):
+        code, positions = ct.get("code"), ct.get("terminals")
+        if isinstance(code, str) and isinstance(positions, dict):
+            terminals.update(f"{code}:{name}" for name in positions)
+    for _, device in _items(doc, "devices"):
+        for key, fields in (("inputs", ("from", "to")), ("outputs", ("terminal", "target"))):
+            items = device.get(key)
+            for item in items if isinstance(items, list) else ():
+                if isinstance(item, dict):
+                    for field in fields:
+                        term(item.get(field))
+    wires: set[frozenset[str]] = set()
+    for _, wire in _items(doc, "wires"):
+        term(wire.get("from"))
+        term(wire.get("to"))
+        pair = ends([wire.get("from"), wire.get("to")])
+        if pair:
+            wires.add(pair)
+    links: set[frozenset[str]] = set()
+    raw_links = doc.get("links")
+    for link in raw_links if isinstance(raw_links, list) else ():
+        if isinstance(link, list):
+            for value in link:
+                term(value)
+            pair = ends(link)
+            if pair:
+                links.add(pair)
+    grounds = doc.get("grounds")
+    for ground in grounds if isinstance(grounds, list) else ():
+        term(ground)
+    switches: dict[str, tuple[str, ...]] = {}
+    for _, switch in _items(doc, "switches"):
+        code, positions = switch.get("code"), switch.get("positions")
+        if isinstance(code, str) and code not in switches:
+            switches[code] = tuple(
+                p for p in (positions if isinstance(positions, list) else ()) if isinstance(p, str)
+            )
+        contacts = switch.get("contacts")
+        for contact in contacts if isinstance(contacts, list) else ():
+            between = contact.get("between") if isinstance(contact, dict) else None
+            for value in between if isinstance(between, list) else ():
+                term(value)
+    codes = {
+        section: frozenset(
+            item["code"] for _, item in _items(doc, section) if isinstance(item.get("code"), str)
+        )
+        for section in ("devices", "equipment")
+    }
+    return RecordNames(
+        terminals=frozenset(terminals),
+        switches=switches,
+        devices=codes["devices"],
+        equipment=codes["equipment"],
+        wires=frozenset(wires),
+        links=frozenset(links),
+    )
 
 
 def _wire_size_checker() -> Callable[[str, str], str | None]:

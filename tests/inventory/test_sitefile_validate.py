@@ -216,6 +216,11 @@ OWNER = "not a CT, device, equipment, terminal block or switch group of this sit
 CT_HAS = "(it has X1, X2, X3, X4, X5)"
 
 # (id, edit, expected error lines)
+NO_TB101_1 = (
+    "the record has no terminal 'TB-101:1': nothing is wired, linked or switched there "
+    "(did you mean 'TB-101:N' or 'TS-101:1R' or 'TS-101:1L'?)"
+)
+
 BAD = [
     # --- structure (design.md site file contract) ---
     (
@@ -235,12 +240,11 @@ BAD = [
     (
         "misspelt-top-level",
         lambda d: d.update(wirez=d.pop("wires")),
-        # the lift/land steps now name wires that do not exist
+        # the procedure's steps now name a terminal only the wires touched
         [
-            "/procedures/0/steps/3/lift: no wire runs between 'TB-101:1' and 'TS-101:1L'; lift "
-            "names the two ends of a wire of this site",
-            "/procedures/0/steps/6/land: no wire runs between 'TS-101:1L' and 'TB-101:1'; land "
-            "names the two ends of a wire of this site",
+            f"/procedures/0/steps/2/add_jumper/0: {NO_TB101_1}",
+            f"/procedures/0/steps/3/lift/0: {NO_TB101_1}",
+            f"/procedures/0/steps/6/land/1: {NO_TB101_1}",
             "/wirez: unknown field (did you mean 'wires'?)",
         ],
     ),
@@ -361,7 +365,10 @@ BAD = [
     (
         "duplicate-jumper-id",
         _set("procedures/0/steps/4", {"add_jumper": ["TB-101:N", "TS-101:SB"], "id": "J1"}),
-        ["/procedures/0/steps/4/id: jumper id 'J1' is already used at /procedures/0/steps/2"],
+        [
+            "/procedures/0/steps/4/id: jumper 'J1' is already in place (added at "
+            "/procedures/0/steps/2); give this jumper an id of its own"
+        ],
     ),
     # --- references ---
     (
@@ -406,7 +413,8 @@ BAD = [
             _set("procedures/0/steps/1", {"set": "TS-101/1", "to": "shorted"}),
         ),
         [
-            "/procedures/0/steps/0/set: unknown switch 'TS-101/T9'",
+            "/procedures/0/steps/0/set: unknown switch 'TS-101/T9' (did you mean 'TS-101/T1' "
+            "or 'TS-101/1'?)",
             "/procedures/0/steps/1/to: switch 'TS-101/1' has no position 'shorted' (it has closed, "
             "open)",
         ],
@@ -421,13 +429,16 @@ BAD = [
         [
             "/procedures/0/devices/1: unknown device 'R-9'",
             "/procedures/0/steps/4/remove_device: unknown device 'R-9'",
-            "/procedures/0/steps/8/deenergize: unknown equipment 'CB-9'",
+            "/procedures/0/steps/8/deenergize: unknown equipment 'CB-9' (did you mean 'CB-101'?)",
         ],
     ),
     (
         "remove-jumper-never-added",
         _set("procedures/0/steps/7", {"remove_jumper": "J2"}),
-        ["/procedures/0/steps/7/remove_jumper: no earlier step adds a jumper 'J2'"],
+        [
+            "/procedures/0/steps/7/remove_jumper: no earlier step adds a jumper 'J2' (jumpers "
+            "in place: 'J1')"
+        ],
     ),
     (
         "remove-jumper-twice",
@@ -441,8 +452,11 @@ BAD = [
         "lift-no-such-wire",
         _set("procedures/0/steps/3", {"lift": ["TB-101:1", "TB-101:N"]}),
         [
-            "/procedures/0/steps/3/lift: no wire runs between 'TB-101:1' and 'TB-101:N'; "
-            "lift names the two ends of a wire of this site"
+            "/procedures/0/steps/3/lift: no wire or link joins TB-101:1 and TB-101:N; lift "
+            "names the two ends of a wire or link of this site",
+            # and the land that was to put the wire back now lands one that was never lifted
+            "/procedures/0/steps/6/land: the wire between TS-101:1L and TB-101:1 is not lifted "
+            "(no earlier step lifts it)",
         ],
     ),
     # --- impossible values ---

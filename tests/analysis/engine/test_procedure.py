@@ -77,8 +77,12 @@ def test_unknown_procedure_and_device_are_errors():
 
 def test_stored_step_error_says_which_step():
     nl = _site([{"set": "TS-1/T1", "to": "open"}, {"set": "TS-1/Q", "to": "open"}])
-    with pytest.raises(ProcedureError, match="step 2: unknown switch 'TS-1/Q'"):
+    # step 2 of the verdict is the second operation: /steps/1 in the site document
+    with pytest.raises(ProcedureError) as caught:
         check_procedure(nl, "P-BAD")
+    assert str(caught.value).startswith(
+        "step 2 (/procedures/1/steps/1/set): unknown switch 'TS-1/Q' (did you mean"
+    )
 
 
 def test_only_the_region_the_procedure_touches_is_checked():

@@ -27,7 +27,10 @@ def test_analyze_site_gives_circuits_burdens_findings_and_verdicts():
     assert [(f.code, f.circuit) for f in result.findings] == [("no_ground", "CKT-CB-1-A")]
     assert result.verdicts["P-OK"].safe
     assert not result.verdicts["P-BAD"].safe
-    assert result.procedure_errors == {"P-TYPO": "step 1: unknown switch 'TS-1/Z'"}
+    assert result.procedure_errors == {
+        "P-TYPO": "step 1 (/procedures/2/steps/0/set): unknown switch 'TS-1/Z' (did you mean "
+        "'TS-1/C' or 'TS-1/B' or 'TS-1/A'?)"
+    }
 
 
 def test_bench_runs_on_a_small_fleet(capsys):
