@@ -11,7 +11,7 @@ from typing import Any
 
 from analysis import engine
 from analysis.engine import ratings
-from analysis.engine.findings import Finding
+from analysis.engine.findings import PROCEDURE_UNCHECKED, SEVERITY, Finding
 
 CASES = ("ground_fault", "phase_fault")
 
@@ -41,6 +41,24 @@ def _finding_row(
     row["procedure"] = procedure
     row["step"] = step
     return row
+
+
+def unchecked_procedure_row(code: str, error: str) -> dict[str, Any]:
+    """The finding row of a stored procedure the engine could not check: ``danger``, because
+    a procedure nobody could check must never pass for a safe one (a notice would sink below
+    every verdict a planner looks at)."""
+    return {
+        "code": PROCEDURE_UNCHECKED,
+        "severity": SEVERITY[PROCEDURE_UNCHECKED],
+        "ct": None,
+        "device": None,
+        "input": None,
+        "circuit": None,
+        "procedure": code,
+        "step": None,
+        "message": f"procedure {code} could not be checked: {error}",
+        "numbers": {},
+    }
 
 
 def devices_fed_by(feeds: dict[str, set[str]]) -> dict[str, list[str]]:
@@ -118,21 +136,7 @@ def compute_site(doc: dict) -> SiteResults:
     for f in analysis.findings:
         out.findings.append(_finding_row(f))
     for code, error in analysis.procedure_errors.items():
-        # A stored procedure that cannot be simulated is never shown as safe.
-        out.findings.append(
-            {
-                "code": "missing_data",
-                "severity": "notice",
-                "ct": None,
-                "device": None,
-                "input": None,
-                "circuit": None,
-                "procedure": code,
-                "step": None,
-                "message": f"procedure {code} could not be checked: {error}",
-                "numbers": {},
-            }
-        )
+        out.findings.append(unchecked_procedure_row(code, error))
     site_code = doc["site"]["code"]
     for code, verdict in analysis.verdicts.items():
         body = verdict.to_json(site_code) if hasattr(verdict, "to_json") else verdict

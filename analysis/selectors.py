@@ -61,12 +61,18 @@ def with_stale(qs: QuerySet) -> QuerySet:
     )
 
 
-def findings_queryset(*, site: str | None = None, severity: str | None = None) -> QuerySet:
-    """Findings with ``stale``, most severe first within each site (one query)."""
+def findings_queryset(
+    *, site: str | None = None, severity: str | None = None, or_worse: bool = False
+) -> QuerySet:
+    """Findings with ``stale``, most severe first within each site (one query). With
+    ``or_worse``, ``severity`` keeps that severity and every worse one (danger > warning >
+    caution > notice)."""
     qs = models.Finding.objects.all()
     if site:
         qs = qs.filter(site_code=site)
-    if severity:
+    if severity and or_worse and severity in SEVERITY_ORDER:
+        qs = qs.filter(severity__in=SEVERITY_ORDER[: SEVERITY_ORDER.index(severity) + 1])
+    elif severity:
         qs = qs.filter(severity=severity)
     rank = Case(
         *(When(severity=s, then=Value(i)) for i, s in enumerate(SEVERITY_ORDER)),
@@ -99,9 +105,12 @@ def finding_json(row: models.Finding) -> dict[str, Any]:
     }
 
 
-def findings_list(*, site: str | None = None, severity: str | None = None) -> list[dict]:
+def findings_list(
+    *, site: str | None = None, severity: str | None = None, or_worse: bool = False
+) -> list[dict]:
     """The findings JSON of design.md (the ``findings --json`` body), one query."""
-    return [finding_json(row) for row in findings_queryset(site=site, severity=severity)]
+    rows = findings_queryset(site=site, severity=severity, or_worse=or_worse)
+    return [finding_json(row) for row in rows]
 
 
 def site_status(*, site: str) -> dict[str, Any]:

@@ -99,8 +99,22 @@ OPERATIONS = (
 )
 
 
+def nearest(value: str, names: Iterable[str], n: int = 3, cutoff: float = 0.6) -> list[str]:
+    """The ``n`` names most like ``value`` (difflib's similarity ratio at least ``cutoff``),
+    most similar first and, among equally similar ones, in alphabetical order."""
+    scored = []
+    matcher = difflib.SequenceMatcher(b=value)
+    for name in set(names):
+        matcher.set_seq1(name)
+        if matcher.real_quick_ratio() >= cutoff and matcher.quick_ratio() >= cutoff:
+            ratio = matcher.ratio()
+            if ratio >= cutoff:
+                scored.append((-ratio, name))
+    return [name for _, name in sorted(scored)[:n]]
+
+
 def _near(value: str, names: Iterable[str]) -> str:
-    close = difflib.get_close_matches(value, list(names), n=3, cutoff=0.6)
+    close = nearest(value, names)
     return f" (did you mean {' or '.join(repr(c) for c in close)}?)" if close else ""
 
 

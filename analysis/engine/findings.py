@@ -29,6 +29,9 @@ NO_GROUND = "no_ground"
 MULTIPLE_GROUNDS = "multiple_grounds"
 INPUT_BYPASSED = "input_bypassed"
 MISSING_DATA = "missing_data"
+# A stored procedure the engine cannot check (it names something the record does not have, or
+# cannot be carried out): never presented as safe, and as serious as an unsafe verdict.
+PROCEDURE_UNCHECKED = "procedure_unchecked"
 
 SEVERITY: dict[str, str] = {
     OPEN_SECONDARY: DANGER,
@@ -43,6 +46,7 @@ SEVERITY: dict[str, str] = {
     MULTIPLE_GROUNDS: WARNING,
     INPUT_BYPASSED: CAUTION,
     MISSING_DATA: NOTICE,
+    PROCEDURE_UNCHECKED: DANGER,
 }
 
 # Findings that belong to a circuit state (checked in every step of a procedure); the others

@@ -1,6 +1,10 @@
 """The shape shared by the analysis commands that answer a JSON body for one thing of one site:
 ``SITE THING`` or ``--file FILE THING``, with ``--json`` printing exactly the API's body and a
-readable text otherwise."""
+readable text otherwise.
+
+Exit statuses (``analysis.sources``): 0 when every answer is fine, 2 (``EXIT_INPUT``) for a
+usage or input error, 3 (``EXIT_UNSAFE``) for an unsafe verdict or an impossible plan. The body
+is printed in full before the command exits with 3, so a script gets both."""
 
 from __future__ import annotations
 
@@ -10,16 +14,37 @@ from typing import Any
 from django.core.management.base import BaseCommand, CommandError
 
 from analysis.engine import ProcedureError
-from analysis.sources import load_document, split_targets
+from analysis.sources import (
+    EXIT_UNSAFE,
+    InputError,
+    Source,
+    codes_of,
+    load_source,
+    require,
+    split_targets,
+)
+
+EXIT_STATUS_HELP = (
+    "Exit status: 0 {ok}; 3 {bad}; 2 for a usage or input error (an unknown site or {thing}, a "
+    "site file with errors)."
+)
 
 
 class SiteBodyCommand(BaseCommand):
-    """Subclasses name the thing (``thing``), compute the body and render it as text."""
+    """Subclasses name the thing (``thing``), compute the body, render it as text and say
+    whether it is a bad answer (``unsafe``: exit status 3).
+
+    With ``many``, any number of things may be named, and none means every one; each is
+    answered that can be, and the others' errors are reported after them (on stderr)."""
 
     thing = "thing"
+    many = False
 
     def add_arguments(self, parser) -> None:
-        parser.add_argument("targets", nargs="+", metavar=f"SITE {self.thing.upper()}")
+        word = self.thing.upper()
+        more = f" [{word} ...]" if self.many else f" {word}"
+        parser.usage = f"%(prog)s SITE{more} [--json]\n       %(prog)s --file FILE{more} [--json]"
+        parser.add_argument("targets", nargs="*", metavar="SITE " + word)
         parser.add_argument("--file", help="use a site file instead of a stored site")
         parser.add_argument(
             "--json", action="store_true", dest="as_json", help="print the API's JSON body"
@@ -31,13 +56,64 @@ class SiteBodyCommand(BaseCommand):
     def text(self, body: dict[str, Any]) -> str:
         raise NotImplementedError
 
+    def unsafe(self, body: dict[str, Any]) -> str | None:
+        """Why the answer is a bad one (exit status 3), or None."""
+        return None
+
     def handle(self, *args, targets: list[str], file: str | None, as_json: bool, **options):
-        site, name = split_targets(targets, file=file, what=self.thing)
-        doc = load_document(site=site, file=file)
+        site, names = split_targets(targets, file=file, what=self.thing, many=self.many)
+        source = load_source(site=site, file=file)
+        if not self.many:
+            body = self._answer(source, names[0])
+            self._print([body], as_json, single=True)
+            self._exit([body], [])
+            return
+        single = len(names) == 1
+        if not names:
+            names = [*codes_of(source.doc, self.thing), *source.unchecked]
+        bodies: list[dict[str, Any]] = []
+        errors: list[str] = []
+        for name in names:
+            try:
+                bodies.append(self._answer(source, name))
+            except CommandError as exc:
+                if single:
+                    raise
+                errors.append(str(exc))
+        self._print(bodies, as_json, single=single)
+        for error in errors:
+            self.stderr.write(error)
+        self._exit(bodies, errors)
+
+    def _answer(self, source: Source, name: str) -> dict[str, Any]:
+        if name in source.unchecked:
+            raise InputError(
+                f"{self.thing} {name} could not be checked:\n  "
+                + "\n  ".join(source.unchecked[name])
+            )
+        require(source.doc, self.thing, name)
         try:
-            body = self.body(doc, name)
+            return self.body(source.doc, name)
         except (KeyError, ProcedureError) as exc:
-            raise CommandError(str(exc).strip('"')) from exc
-        self.stdout.write(
-            json.dumps(body, indent=2, ensure_ascii=False) if as_json else self.text(body)
-        )
+            raise InputError(
+                f"{self.thing} {name} could not be checked:\n  "
+                + str(exc).strip('"').replace("\n", "\n  ")
+            ) from exc
+
+    def _print(self, bodies: list[dict[str, Any]], as_json: bool, *, single: bool) -> None:
+        if as_json:
+            self.stdout.write(
+                json.dumps(bodies[0] if single else bodies, indent=2, ensure_ascii=False)
+            )
+        else:
+            self.stdout.write("\n\n".join(self.text(body) for body in bodies))
+
+    def _exit(self, bodies: list[dict[str, Any]], errors: list[str]) -> None:
+        reasons = [r for r in map(self.unsafe, bodies) if r]
+        if reasons:
+            raise CommandError("; ".join(reasons), returncode=EXIT_UNSAFE)
+        if errors:
+            raise InputError(
+                f"{len(errors)} {self.thing}(s) could not be checked (listed above); "
+                f"{len(bodies)} checked"
+            )

@@ -165,3 +165,9 @@ LOGGING = {
     "handlers": {"console": {"class": "logging.StreamHandler"}},
     "root": {"handlers": ["console"], "level": os.environ.get("LOG_LEVEL", "INFO")},
 }
+if CELERY_TASK_ALWAYS_EAGER:
+    # In-process jobs run inside the command (or request) that asked for them: Celery's line
+    # per task ("Task ... succeeded in ...") and kombu's note that no broker host was given
+    # would be printed among the command's own output. Only their errors are logged; the run
+    # rows keep status, counts and timings. Workers (with a broker) keep Celery's logging.
+    LOGGING["loggers"] = {"celery": {"level": "ERROR"}, "kombu": {"level": "ERROR"}}

@@ -305,7 +305,7 @@ def test_findings_command_json_and_text(django_capture_on_commit_callbacks):
     out = io.StringIO()
     call_command("findings", "--severity", "danger", stdout=out)
     assert f"{len(selectors.findings_list(severity='danger'))} finding(s)" in out.getvalue()
-    with pytest.raises(CommandError, match="no such site"):
+    with pytest.raises(CommandError, match="no site 'NOPE'"):
         call_command("findings", "--site", "NOPE")
 
 
@@ -316,7 +316,7 @@ def test_recompute_command_in_process(django_capture_on_commit_callbacks):
     call_command("recompute", "--site", "TST", stdout=out)
     assert "success" in out.getvalue() and "1/1 sites" in out.getvalue()
     assert selectors.site_status(site="TST")["stale"] is False
-    with pytest.raises(CommandError, match="no such site: NOPE"):
+    with pytest.raises(CommandError, match="no site .NOPE. \\(there are 1: TST\\)"):
         call_command("recompute", "--site", "NOPE")
 
 

@@ -45,11 +45,11 @@ def test_import_and_engine_refuse_the_same_steps_with_the_same_words():
     at_import = [str(e) for e in validate_site_document(doc)]
     assert at_import == [
         "/procedures/1/devices/1: unknown device 'R-2' (did you mean 'R-1'?)",
-        "/procedures/1/steps/1/set: unknown switch 'TS-1/D' (did you mean 'TS-1/C' or "
-        "'TS-1/B' or 'TS-1/A'?)",
+        "/procedures/1/steps/1/set: unknown switch 'TS-1/D' (did you mean 'TS-1/A' or "
+        "'TS-1/B' or 'TS-1/C'?)",
         "/procedures/1/steps/2/to: switch 'TS-1/A' has no position 'shorted' (it has closed, open)",
         "/procedures/1/steps/3/add_jumper/1: the record has no terminal 'TB-1:Q': nothing is "
-        "wired, linked or switched there (did you mean 'TB-1:N' or 'TB-1:C' or 'TB-1:B'?)",
+        "wired, linked or switched there (did you mean 'TB-1:A' or 'TB-1:B' or 'TB-1:C'?)",
         "/procedures/1/steps/5/id: jumper 'J5' is already in place (added at "
         "/procedures/1/steps/4); give this jumper an id of its own",
         "/procedures/1/steps/6/remove_jumper: no earlier step adds a jumper 'J9' (jumpers in "

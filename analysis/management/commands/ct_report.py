@@ -10,7 +10,10 @@ from analysis.textout import report_text
 
 
 class Command(SiteBodyCommand):
-    help = "Report a CT's ratings at its tap in use."
+    help = (
+        "Report a CT's ratings at its tap in use. Exit status: 0, or 2 for a usage or input "
+        "error (an unknown site or CT, a site file with errors)."
+    )
     thing = "ct"
 
     def body(self, doc: dict, name: str) -> dict:

@@ -1,29 +1,38 @@
 """``findings [--site SITE] [--severity S] [--json]``: the stored findings, each saying whether
-the record changed after it was computed (``stale``)."""
+the record changed after it was computed (``stale``). ``--severity S`` keeps S and every worse
+severity (danger > warning > caution > notice): ``--severity warning`` lists the dangers too."""
 
 from __future__ import annotations
 
 import json
 
-from django.core.management.base import BaseCommand, CommandError
+from django.core.management.base import BaseCommand
 
 from analysis.engine.findings import SEVERITY_ORDER
 from analysis.selectors import findings_list
+from analysis.sources import unknown
 from inventory.models import Site
 
 
 class Command(BaseCommand):
-    help = "List the findings of the last recompute (design.md's findings JSON with --json)."
+    help = (
+        "List the findings of the last recompute (design.md's findings JSON with --json), most "
+        "severe first. Exit status: 0, or 2 for a usage or input error (an unknown site)."
+    )
 
     def add_arguments(self, parser) -> None:
         parser.add_argument("--site", help="site code")
-        parser.add_argument("--severity", choices=SEVERITY_ORDER)
+        parser.add_argument(
+            "--severity",
+            choices=SEVERITY_ORDER,
+            help="this severity or worse (danger > warning > caution > notice)",
+        )
         parser.add_argument("--json", action="store_true", help="print the API's JSON body")
 
     def handle(self, *args, site: str | None, severity: str | None, json: bool, **options):
         if site and not Site.objects.filter(code=site).exists():
-            raise CommandError(f"no such site: {site}")
-        rows = findings_list(site=site, severity=severity)
+            raise unknown("site", site, Site.objects.values_list("code", flat=True))
+        rows = findings_list(site=site, severity=severity, or_worse=True)
         if json:
             self.stdout.write(_dumps(rows))
             return

@@ -9,6 +9,7 @@ from django.core.management.base import BaseCommand, CommandError
 
 from analysis import services
 from analysis.models import AnalysisRun, RunKind, RunStatus
+from analysis.sources import InputError, unknown
 from config.celery import app
 from inventory.models import Site
 
@@ -36,7 +37,8 @@ class Command(BaseCommand):
             found = dict(Site.objects.filter(code__in=site).values_list("code", "pk"))
             missing = sorted(set(site) - set(found))
             if missing:
-                raise CommandError(f"no such site: {', '.join(missing)}")
+                codes = list(Site.objects.values_list("code", flat=True))
+                raise InputError("; ".join(str(unknown("site", code, codes)) for code in missing))
             run = services.run_create(kind=RunKind.SITES, site_ids=found.values(), force=force)
             services.run_dispatch(run=run, on_commit=False)
         else:

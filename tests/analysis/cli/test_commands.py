@@ -17,6 +17,7 @@ from django.core.management import call_command
 from django.core.management.base import CommandError
 
 from analysis.engine.cautions import CAUTIONS
+from analysis.sources import EXIT_INPUT, EXIT_UNSAFE
 from inventory.services import site_import
 from inventory.sitefile.validate import load_site_file
 from tests.analysis.engine.test_ratings_report import CASE_KEYS, TOP_KEYS
@@ -37,6 +38,16 @@ def run(*args: str) -> str:
     return out.getvalue()
 
 
+def run_status(*args: str) -> tuple[str, str, int]:
+    """(stdout, stderr, exit status) of a command, as the shell would see the status."""
+    out, err = io.StringIO(), io.StringIO()
+    try:
+        call_command(*args, stdout=out, stderr=err)
+    except CommandError as exc:
+        return out.getvalue(), err.getvalue() + str(exc), exc.returncode
+    return out.getvalue(), err.getvalue(), 0
+
+
 @pytest.fixture
 def stored(db):
     site_import(doc=load_site_file(QUILLFEN))
@@ -44,7 +55,11 @@ def stored(db):
 
 
 def test_unsafe_procedure_verdict_json(stored):
-    verdict = json.loads(run("check_procedure", stored, "P-R133-OUT-DRAFT", "--json"))
+    out, err, status = run_status("check_procedure", stored, "P-R133-OUT-DRAFT", "--json")
+    # the whole verdict is printed, then the command exits with the unsafe status
+    assert status == EXIT_UNSAFE == 3
+    assert "P-R133-OUT-DRAFT is UNSAFE: step 3 (after) open_secondary on CB-133-A" in err
+    verdict = json.loads(out)
     assert set(verdict) == VERDICT_KEYS
     assert verdict["safe"] is False
     danger = verdict["first_danger"]
@@ -75,18 +90,39 @@ def test_safe_procedure_and_text_output(stored):
 
 
 def test_check_procedure_on_a_site_file_matches_the_stored_site(stored):
-    from_file = json.loads(
-        run("check_procedure", "--file", str(QUILLFEN), "P-R133-OUT-DRAFT", "--json")
-    )
-    from_db = json.loads(run("check_procedure", stored, "P-R133-OUT-DRAFT", "--json"))
-    assert from_file == from_db
+    from_file = run_status("check_procedure", "--file", str(QUILLFEN), "P-R133-OUT-DRAFT", "--json")
+    from_db = run_status("check_procedure", stored, "P-R133-OUT-DRAFT", "--json")
+    assert json.loads(from_file[0]) == json.loads(from_db[0])
+    assert from_file[2] == from_db[2] == EXIT_UNSAFE
 
 
-def test_check_procedure_reports_unknown_names(stored):
-    with pytest.raises(CommandError, match="P-NOPE"):
-        run("check_procedure", stored, "P-NOPE")
-    with pytest.raises(CommandError, match="no site with code 'NOPE'"):
-        run("check_procedure", "NOPE", "P-1")
+def test_unknown_names_get_the_nearest_codes_and_the_input_status(stored):
+    cases = [
+        (
+            ("check_procedure", stored, "P-R133-OUT-DRAF"),
+            "no procedure 'P-R133-OUT-DRAF' at QFN (did you mean 'P-R133-OUT-DRAFT' or "
+            "'P-R132-OUT-DRAFT' or 'P-R132-OUT'?)",
+        ),
+        (("check_procedure", "QFM", "P-1"), "no site 'QFM' (did you mean 'QFN'?)"),
+        (
+            ("plan_isolation", stored, "R-123"),
+            "no device 'R-123' at QFN (did you mean 'R-131' or 'R-132' or 'R-133'?)",
+        ),
+        (
+            ("ct_report", stored, "CB-133-X"),
+            "no CT 'CB-133-X' at QFN (did you mean 'CB-133-A' or 'CB-133-B' or 'CB-133-C'?)",
+        ),
+        (("ct_plot", stored, "CB-133-X"), "no CT 'CB-133-X' at QFN (did you mean 'CB-133-A'"),
+        (("findings", "--site", "QNF"), "no site 'QNF' (did you mean 'QFN'?)"),
+        (("recompute", "--site", "QFNN"), "no site 'QFNN' (did you mean 'QFN'?)"),
+    ]
+    for args, message in cases:
+        out, err, status = run_status(*args)
+        assert (status, out) == (EXIT_INPUT, ""), args
+        assert message in err, (args, err)
+    # usage errors share the input status (argparse's own, 2)
+    assert run_status("check_procedure", stored, "P-1", "P-2", "--file", "x")[2] == EXIT_INPUT
+    assert run_status("plan_isolation", stored)[2] == EXIT_INPUT
 
 
 def test_check_procedure_refuses_a_bad_site_file(tmp_path, db):
@@ -94,8 +130,9 @@ def test_check_procedure_refuses_a_bad_site_file(tmp_path, db):
     doc["wires"][0]["length_ft"] = -3
     bad = tmp_path / "bad.json"
     bad.write_text(json.dumps(doc))
-    with pytest.raises(CommandError, match="/wires/0/length_ft: must be greater than 0"):
-        run("check_procedure", "--file", str(bad), "P-R132-OUT")
+    out, err, status = run_status("check_procedure", "--file", str(bad), "P-R132-OUT")
+    assert (out, status) == ("", EXIT_INPUT)
+    assert "/wires/0/length_ft: must be greater than 0" in err
 
 
 def test_plan_isolation_json_isolates_trips_first_and_passes_its_own_check(stored):
@@ -157,6 +194,7 @@ def test_ct_plot_writes_png_files(stored, tmp_path):
     from PIL import Image
 
     written = run("ct_plot", stored, "CB-133-A", "--out", str(tmp_path)).split()
+    assert all(Path(p).parent == tmp_path for p in written)
     assert sorted(Path(p).name for p in written) == [
         "QFN_CB-133-A_burden.png",
         "QFN_CB-133-A_excitation.png",

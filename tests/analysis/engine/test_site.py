@@ -29,7 +29,7 @@ def test_analyze_site_gives_circuits_burdens_findings_and_verdicts():
     assert not result.verdicts["P-BAD"].safe
     assert result.procedure_errors == {
         "P-TYPO": "step 1 (/procedures/2/steps/0/set): unknown switch 'TS-1/Z' (did you mean "
-        "'TS-1/C' or 'TS-1/B' or 'TS-1/A'?)"
+        "'TS-1/A' or 'TS-1/B' or 'TS-1/C'?)"
     }
 
 

@@ -531,7 +531,7 @@ def test_lifting_a_link_is_supported(panel):
         (
             {"add_jumper": ["TB-1:A", "TB-7:1"], "id": "J1"},
             "step 1 (/steps/0/add_jumper/1): the record has no terminal 'TB-7:1': nothing is "
-            "wired, linked or switched there (did you mean 'TB-1:N' or 'TB-1:C' or 'TB-1:B'?)",
+            "wired, linked or switched there (did you mean 'TB-1:A' or 'TB-1:B' or 'TB-1:C'?)",
         ),
         (
             {"lift": ["TB-1:A", "TB-1:B"]},
