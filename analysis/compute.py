@@ -177,9 +177,14 @@ def ct_plots(doc: dict, ct_code: str, fmt: str = "png") -> dict[str, bytes]:
     if inputs is not None:
         out["excitation"] = plots.excitation_plot(inputs, fmt)
     out["burden"] = plots.burden_plot(
-        [(e.label, e.kind, e.z_ohm) for e in b.elements],
+        [(_printable(e.label), e.kind, e.z_ohm) for e in b.elements],
         report["winding_ohm_at_tap"],
         fmt,
-        title=f"{doc['site']['code']} {ct_code}: burden by element (ground-fault case)",
+        title=_printable(f"{doc['site']['code']} {ct_code}: burden by element (ground-fault case)"),
     )
     return out
+
+
+def _printable(text: str) -> str:
+    """``text`` without control characters (codes are data; a plot title shows them as is)."""
+    return "".join(c if c.isprintable() else "?" for c in text)

@@ -59,8 +59,9 @@ class ProcedureError(ValueError):
         the site document), each line naming the step as the verdict numbers it (1-based, step
         0 being the state before) and the pointer of the value at fault."""
         lines = [
-            (f"step {p.step + 1} " if p.step is not None else "")
-            + f"({p.pointer(*prefix)}): {p.message}"
+            f"step {p.step + 1} ({p.pointer(*prefix)}): {p.message}"
+            if p.step is not None
+            else f"{p.pointer(*prefix)}: {p.message}"
             for p in problems
         ]
         return cls("\n".join(lines), tuple(problems))

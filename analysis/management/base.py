@@ -63,6 +63,11 @@ class SiteBodyCommand(BaseCommand):
     def handle(self, *args, targets: list[str], file: str | None, as_json: bool, **options):
         site, names = split_targets(targets, file=file, what=self.thing, many=self.many)
         source = load_source(site=site, file=file)
+        if source.unchecked and self.thing != "procedure":
+            self.stderr.write(
+                f"note: {source.name}: procedure(s) {', '.join(source.unchecked)} left out "
+                "(they have errors; check_procedure --file lists them)"
+            )
         if not self.many:
             body = self._answer(source, names[0])
             self._print([body], as_json, single=True)
@@ -86,7 +91,7 @@ class SiteBodyCommand(BaseCommand):
         self._exit(bodies, errors)
 
     def _answer(self, source: Source, name: str) -> dict[str, Any]:
-        if name in source.unchecked:
+        if self.thing == "procedure" and name in source.unchecked:
             raise InputError(
                 f"{self.thing} {name} could not be checked:\n  "
                 + "\n  ".join(source.unchecked[name])

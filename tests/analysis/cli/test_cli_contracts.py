@@ -92,6 +92,9 @@ def test_file_checks_every_procedure_it_can_and_reports_the_others(tmp_path, db)
     # a plan does not need the procedures: the broken one does not stop it
     out, err, status = run_status("plan_isolation", "--file", path, "R-132", "--json")
     assert status == 0 and json.loads(out)["possible"] is True
+    assert err == f"note: {path}: procedure(s) P-R131-CASE left out (they have errors; " + (
+        "check_procedure --file lists them)\n"
+    )
 
 
 def test_an_impossible_plan_exits_with_the_unsafe_status(tmp_path, db):
