@@ -143,6 +143,7 @@ class _Walk:
         self.removed: dict[str, int] = {}
         self.lifted: dict[frozenset[str], int | None] = dict.fromkeys(lifted)
         self.landed: dict[frozenset[str], int] = {}
+        self._by_owner: dict[str, list[str]] | None = None
 
     def add(self, step: int | None, message: str, *at: Token) -> None:
         self.problems.append(Problem(at=at, message=message, step=step))
@@ -163,11 +164,23 @@ class _Walk:
             self.add(
                 step,
                 f"the record has no terminal {value!r}: nothing is wired, linked or switched "
-                f"there{_near(value, self.names.terminals)}",
+                f"there{_near(value, self._like(value))}",
                 *at,
             )
             return False
         return True
+
+    def _like(self, value: str) -> Iterable[str]:
+        """The terminals to suggest from: those of the same owner (``OWNER:``), else every
+        one while there are few (a fleet-sized record is not searched whole per typo)."""
+        if self._by_owner is None:
+            self._by_owner = {}
+            for name in self.names.terminals:
+                self._by_owner.setdefault(name.split(":", 1)[0], []).append(name)
+        same = self._by_owner.get(value.split(":", 1)[0])
+        if same:
+            return same
+        return self.names.terminals if len(self.names.terminals) <= 5000 else ()
 
     def pair(self, value: Any, step: int, key: str) -> tuple[str, str] | None:
         if not isinstance(value, list | tuple) or len(value) != 2:

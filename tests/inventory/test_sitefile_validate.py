@@ -218,7 +218,7 @@ CT_HAS = "(it has X1, X2, X3, X4, X5)"
 # (id, edit, expected error lines)
 NO_TB101_1 = (
     "the record has no terminal 'TB-101:1': nothing is wired, linked or switched there "
-    "(did you mean 'TB-101:N' or 'TS-101:1L' or 'TS-101:1R'?)"
+    "(did you mean 'TB-101:N'?)"
 )
 
 BAD = [
