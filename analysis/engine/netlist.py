@@ -142,7 +142,8 @@ class Device:
 @dataclass(slots=True, eq=False)
 class CT:
     """A CT winding. ``load_secondary_a`` is the secondary current at the equipment's maximum
-    load through the tap in use (1 A where the load or the ratio is unknown)."""
+    load through the tap in use (1 A where the load or the ratio is unknown; 0 A for a
+    neutral CT, which carries only the unbalance in normal service)."""
 
     index: int
     code: str
@@ -424,7 +425,12 @@ def build_netlist(doc: dict[str, Any]) -> Netlist:
         secondary_a = float(c.get("secondary_a") or 5.0)
         tap_a = abs(positions[in_use[0]] - positions[in_use[1]])
         eq = equipment.get(str(c.get("equipment"))) if c.get("equipment") else None
-        if eq is not None and eq.max_load_a is not None and tap_a > 0:
+        if str(c.get("phase") or "").upper() == "N":
+            # A neutral CT carries the unbalance, about 0 A in normal service, not the load
+            # (common practice, no source); the fault current shows in the probe and the
+            # ratings' ground-fault case.
+            load_a = 0.0
+        elif eq is not None and eq.max_load_a is not None and tap_a > 0:
             load_a = eq.max_load_a * secondary_a / tap_a
         else:
             load_a = 1.0

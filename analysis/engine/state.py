@@ -27,6 +27,7 @@ import numpy as np
 from analysis.engine import findings as fc
 from analysis.engine.findings import Finding
 from analysis.engine.netlist import Netlist
+from analysis.engine.quantities import PROBE_ZERO_A, Computed, Roles, input_roles
 from analysis.engine.topology import components, solve, topology
 from siterules.procedure_refs import Problem, RecordNames, default_jumper_id, procedure_problems
 
@@ -35,10 +36,8 @@ from siterules.procedure_refs import Problem, RecordNames, default_jumper_id, pr
 CHANGE_FRACTION = 0.10
 APPEAR_FROM = 0.01
 APPEAR_TO = 0.10
-BYPASS_CARRIED = 0.10
+# input_bypassed: the probe current left, as a fraction of the probe current at the start.
 BYPASS_NOW = 0.01
-# A probe current below this (per 1 A injected) counts as no current at all.
-PROBE_ZERO_A = 1e-6
 
 _GOLDEN_RAD = math.pi * (3.0 - math.sqrt(5.0))
 
@@ -223,6 +222,7 @@ class _StateBatch:
     live: np.ndarray
     ct_open: np.ndarray
     ct_circ: np.ndarray
+    ct_parts: np.ndarray  # conduction component of each CT's first and second terminal in use
     inp_cur: np.ndarray
     inp_probe: np.ndarray
     inp_circ: np.ndarray
@@ -238,16 +238,13 @@ class StateEval:
     """What the checks need to know about one solved state (row ``row`` of a batch); the
     per-circuit views are built on first use."""
 
-    __slots__ = ("_b", "_cache", "_row", "bypass_keys", "bypass_limit", "carried", "state")
+    __slots__ = ("_b", "_cache", "_row", "state")
 
     def __init__(self, batch: _StateBatch, row: int, state: State) -> None:
         self._b = batch
         self._row = row
         self.state = state
         self._cache: dict[str, Any] = {}
-        self.carried: np.ndarray | None = None  # set on a starting state by check_bypassed
-        self.bypass_limit: np.ndarray | None = None
-        self.bypass_keys: list[tuple[Any, ...]] = []
 
     def _get(self, name: str) -> Any:
         hit = self._cache.get(name)
@@ -547,6 +544,7 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
         live=live,
         ct_open=ct_open,
         ct_circ=ct_circ,
+        ct_parts=np.stack([topo.node_imp[f], topo.node_imp[s2]], axis=-1),
         inp_cur=cur,
         inp_probe=prb,
         inp_circ=inp_circ,
@@ -593,9 +591,66 @@ def _fmt_a(x: float) -> str:
     return f"{x:.3g} A" if x < 0.01 else f"{x:.2f} A"
 
 
+def _ground_fault_secondary(nl: Netlist, ct: Any) -> tuple[float, str, float] | None:
+    """(bus ground-fault kA, bus code, secondary A through the tap in use) for the CT's
+    equipment, from the site document; None where the record does not say."""
+    doc = nl.doc or {}
+    eq = next((e for e in doc.get("equipment") or () if e.get("code") == ct.equipment), None)
+    if eq is None or not eq.get("bus") or ct.tap_primary_a <= 0:
+        return None
+    bus = next((b for b in doc.get("buses") or () if b.get("code") == eq["bus"]), None)
+    ka = None if bus is None else bus.get("ground_fault_ka")
+    if not isinstance(ka, int | float) or isinstance(ka, bool) or ka <= 0:
+        return None
+    return float(ka), str(eq["bus"]), float(ka) * 1000.0 * ct.secondary_a / ct.tap_primary_a
+
+
+def _fault_text(nl: Netlist, ct: Any) -> tuple[str, float | None]:
+    gf = _ground_fault_secondary(nl, ct)
+    if gf is None:
+        return "the ground-fault current through its ratio (no bus fault level recorded)", None
+    ka, bus, sec = gf
+    return f"{_fmt_a(sec)} secondary for {bus}'s {ka:g} kA ground fault at {ct.ratio_text}", sec
+
+
+def _open_returns(nl: Netlist, ev: StateEval) -> dict[str, list[Any]]:
+    """Set name -> its live open phase CTs, for each three-phase set whose return (neutral)
+    is open while its phases still form a loop: every open CT of the set has its first
+    terminal in one conduction component and its second in another, the same for all, and
+    their load currents add up to about 0 there (a balanced set). The load then circulates
+    through the phases; only the zero-sequence current has no path."""
+    groups: dict[str, list[Any]] = {}
+    lo = ev.live_open
+    for ct in nl.ct_list:
+        if lo[ct.index] and ct.set_name and (ct.phase or "") in ("A", "B", "C"):
+            groups.setdefault(ct.set_name, []).append(ct)
+    if not groups:
+        return {}
+    parts = ev._b.ct_parts[ev._row]
+    load = nl.arrays.ct_load
+    out = {}
+    for name, cts in groups.items():
+        ends = {(int(parts[c.index, 0]), int(parts[c.index, 1])) for c in cts}
+        if len(cts) < 2 or len(ends) != 1:
+            continue
+        net = abs(sum(load[c.index] for c in cts))
+        if net <= APPEAR_FROM * max(abs(load[c.index]) for c in cts):
+            out[name] = cts
+    return out
+
+
 def check_open_secondary(nl: Netlist, ev: StateEval, stage: str | None) -> list[Finding]:
-    """``open_secondary``: a live CT whose terminals in use are not joined by a closed path."""
+    """``open_secondary``: a live CT whose terminals in use are not joined by a closed path.
+
+    The message states what really flows: a phase CT drives its load current into the open
+    circuit; a neutral CT carries only the unbalance in normal service but the ground-fault
+    current in a fault; a three-phase set whose return (neutral) is open still circulates its
+    balanced load through the phases, and the hazard is the zero-sequence current of a ground
+    fault, which has no path (common practice, no source)."""
     out = []
+    if not ev.live_open.any():
+        return out
+    returns = {c.code: name for name, cts in _open_returns(nl, ev).items() for c in cts}
     for ct in nl.ct_list:
         k = ct.index
         if not (ev.live[k] and ev.ct_open[k]):
@@ -606,18 +661,44 @@ def check_open_secondary(nl: Netlist, ev: StateEval, stage: str | None) -> list[
             if eq and eq.max_load_a is not None
             else "load unknown, 1 A assumed"
         )
+        head = (
+            f"CT {ct.code} ({ct.ratio_text}, tap {ct.in_use[0]}-{ct.in_use[1]}) is live and "
+            f"its secondary is open"
+        )
+        numbers: dict[str, Any] = {"secondary_a": round(ct.load_secondary_a, 4)}
+        if (ct.phase or "") == "N":
+            fault, sec = _fault_text(nl, ct)
+            message = (
+                f"{head}: as a neutral CT it carries the unbalance, about 0 A in normal "
+                f"service, but a ground fault drives {fault} into the open circuit"
+            )
+            numbers["ground_fault_secondary_a"] = None if sec is None else round(sec, 2)
+        elif ct.code in returns:
+            name = returns[ct.code]
+            fault, sec = _fault_text(nl, ct)
+            message = (
+                f"{head} for zero-sequence current: the return (neutral) of set {name} is "
+                f"open. The balanced load still circulates through the phases "
+                f"({_fmt_a(ct.load_secondary_a)} secondary in each, {load}, returning through "
+                f"the other phase CTs), but the zero-sequence current 3I0 of a ground fault "
+                f"has no path: a ground fault on this phase drives {fault} into the open "
+                f"circuit"
+            )
+            numbers["open_return"] = name
+            numbers["ground_fault_secondary_a"] = None if sec is None else round(sec, 2)
+        else:
+            message = (
+                f"{head}: it would be driving {_fmt_a(ct.load_secondary_a)} secondary ({load}) "
+                f"into an open circuit"
+            )
         out.append(
             Finding(
                 code=fc.OPEN_SECONDARY,
-                message=(
-                    f"CT {ct.code} ({ct.ratio_text}, tap {ct.in_use[0]}-{ct.in_use[1]}) is "
-                    f"live and its secondary is open: it would be driving "
-                    f"{_fmt_a(ct.load_secondary_a)} secondary ({load}) into an open circuit"
-                ),
+                message=message,
                 ct=ct.code,
                 circuit=ev.circ_id.get(ev.ct_circ[k]),
                 stage=stage,
-                numbers={"secondary_a": round(ct.load_secondary_a, 4)},
+                numbers=numbers,
             )
         )
     return out
@@ -631,25 +712,73 @@ def _changed(old: complex, new: complex, ref_a: float) -> bool:
     return abs(new - old) > CHANGE_FRACTION * max(abs(old), CHANGE_FRACTION * ref_a)
 
 
+def _appears(i0: float, i1: float, normal: float, ref: float) -> bool:
+    """Rule (c): a current compared with its normal-state value appears, i.e. its excess over
+    the normal magnitude goes from under 1 % to over 10 % of the circuit's largest CT current.
+    A current that falls, or comes back to its normal value, is no false operating quantity
+    (an overcurrent, residual or negative-sequence element operates on a magnitude above its
+    setting; common practice, no source)."""
+    return max(0.0, i0 - normal) < APPEAR_FROM * ref and max(0.0, i1 - normal) > APPEAR_TO * ref
+
+
+def input_roles_of(nl: Netlist) -> Roles:
+    """``quantities.input_roles`` of the netlist, from its reference solve (every switch,
+    lead and link normal, every piece of equipment energized); cached on the netlist."""
+    hit = nl.cache.get("input_roles")
+    if hit is None:
+        ref = replace(normal_state(nl), energized=frozenset(nl.equipment))
+        b = evaluate_states(nl, [ref])[0]._b
+        hit = input_roles(nl, b.inp_cur[0], b.inp_probe[0], b.inp_ref_a[0], b.inp_circ[0])
+        nl.cache["input_roles"] = hit
+    return hit
+
+
+def _computed_appears(
+    before: StateEval, ev: StateEval, dev: Any, roles: Roles
+) -> tuple[Computed, float, float, float, float] | None:
+    """Rule (c) on the quantities ``dev`` computes from its phase inputs (a calculated
+    residual or negative-sequence current): (quantity, value before, value now, normal value,
+    circuit's largest CT current) of the first that appears, else None."""
+    for q in roles.computed.get(dev.code, ()):
+        ref = max(max(before.inp_ref_a[k], ev.inp_ref_a[k]) for k in q.inputs)
+        if ref <= 0:
+            continue
+        q0, q1 = abs(q.value(before.inp_cur)), abs(q.value(ev.inp_cur))
+        if q1 - q0 <= (APPEAR_TO - APPEAR_FROM) * ref:
+            continue  # cannot appear (the excess moves by at most |q1| - |q0|)
+        qn = abs(q.value(ev.normal_ref.inp_cur))
+        if _appears(q0, q1, qn, ref):
+            return q, q0, q1, qn, ref
+    return None
+
+
 def check_trip(
     nl: Netlist, before: StateEval, ev: StateEval, work: frozenset[str], stage: str | None
 ) -> list[Finding]:
-    """``trip_not_isolated``: the three rules of the findings table, while an output of the
-    device is still connected to its target; an output reconnected while an input of the
-    device carries other than its normal current (``_reconnected_early``); and equipment
+    """``trip_not_isolated``: the rules (a)–(c) of the findings table, while an output of the
+    device is still connected to its target; rule (d), an output reconnected while an input of
+    the device carries other than its normal current (``_reconnected_early``) or equipment
     energized while a connected device's input carries other than its normal current
-    (``_energized_abnormal``)."""
+    (``_energized_abnormal``).
+
+    Rule (c) judges each input's current, and each quantity a relay computes from its phase
+    inputs (``quantities``: a calculated residual 3I0 or negative-sequence I2), against its
+    value in the normal state with the same primary (``_appears``)."""
     out = []
+    roles: Roles | None = None
     for dev in nl.devices.values():
         conn = [o for o in dev.outputs if ev.out_connected[o.index]]
         if not conn:
             continue
         reason = None
         which: str | None = None
+        circuit: str | None = None
         numbers: dict[str, Any] = {}
         in_work = dev.code in work
         if in_work and dev.code in ev.state.removed:
             reason = f"{dev.code}, a device the work is for, is removed"
+            if dev.inputs:
+                circuit = ev.circ_id.get(ev.inp_circ[dev.inputs[0].index])
         # Energizing or de-energizing the primary changes every current for a true reason;
         # the input-change rules are about what the secondary work does to them.
         same_primary = before.state.energized == ev.state.energized
@@ -666,26 +795,59 @@ def check_trip(
                 if dev.differential and ch
                 else None
             )
+            normal: float | None = None
             if (
                 why is None
                 and dev.is_relay
                 and ref > 0
-                and abs(i0) < APPEAR_FROM * ref
-                and abs(i1) > APPEAR_TO * ref
+                and abs(i1) - abs(i0) > (APPEAR_TO - APPEAR_FROM) * ref
             ):
-                why = "a relay that sees a current appear (a false operating quantity)"
+                normal = abs(ev.normal_ref.inp_cur[di.index])
+                if _appears(abs(i0), abs(i1), normal, ref):
+                    why = (
+                        "a relay that sees a current rise above its normal value (a false "
+                        "operating quantity)"
+                    )
             if why is not None:
                 which = di.name
+                circuit = ev.circ_id.get(ev.inp_circ[di.index])
                 pct = (abs(i1 - i0) / abs(i0) * 100) if abs(i0) > 1e-12 else float("inf")
+                against = "" if normal is None else f", {_fmt_a(normal)} in the normal state"
                 reason = (
                     f"input {di.name} current goes from {_fmt_a(abs(i0))} to "
                     f"{_fmt_a(abs(i1))} ({'new' if math.isinf(pct) else f'{pct:.0f} %'}"
-                    f" change; {dev.code} is {why})"
+                    f" change{against}; {dev.code} is {why})"
                 )
                 numbers = {
                     "from_a": round(abs(i0), 4),
                     "to_a": round(abs(i1), 4),
                     "circuit_max_a": round(ref, 4),
+                }
+                if normal is not None:
+                    numbers["normal_a"] = round(normal, 4)
+        if reason is None and same_primary and dev.is_relay:
+            if roles is None:
+                roles = input_roles_of(nl)
+            hit = _computed_appears(before, ev, dev, roles)
+            if hit is not None:
+                q, q0, q1, qn, ref = hit
+                which = q.name
+                circuit = ev.circ_id.get(ev.inp_circ[q.inputs[0]])
+                what = "residual" if q.name == "3I0" else "negative-sequence current"
+                reason = (
+                    f"its calculated {what} {q.name} = {q.formula} goes from {_fmt_a(q0)} to "
+                    f"{_fmt_a(q1)} ({_fmt_a(qn)} in the normal state; more than 10 % of the "
+                    f"circuit's largest CT current, {_fmt_a(ref)}): {dev.code} computes it for "
+                    f"{'/'.join(q.functions)}, a false operating quantity"
+                )
+                numbers = {
+                    "quantity": q.name,
+                    "inputs": [nl.inputs[k].name for k in q.inputs],
+                    "from_a": round(q0, 4),
+                    "to_a": round(q1, 4),
+                    "normal_a": round(qn, 4),
+                    "circuit_max_a": round(ref, 4),
+                    "functions": list(q.functions),
                 }
         early = _reconnected_early(nl, before, ev, dev, conn, stage)
         if early is not None:
@@ -702,6 +864,7 @@ def check_trip(
                 message=f"{dev.code} trip output still connected ({outs}) while {reason}",
                 device=dev.code,
                 input=which,
+                circuit=circuit,
                 stage=stage,
                 numbers=numbers,
             )
@@ -744,6 +907,7 @@ def _reconnected_early(
         ),
         device=dev.code,
         input=di.name,
+        circuit=ev.circ_id.get(ev.inp_circ[di.index]),
         stage=stage,
         numbers={
             "now_a": round(abs(i_now), 4),
@@ -793,6 +957,7 @@ def _energized_abnormal(
         ),
         device=dev.code,
         input=di.name,
+        circuit=ev.circ_id.get(ev.inp_circ[di.index]),
         stage=stage,
         numbers={
             "now_a": round(abs(i_now), 4),
@@ -832,6 +997,31 @@ def _off_normal(ev: StateEval, dev: Any) -> tuple[Any, complex, complex, float, 
     return di, i_now, i_norm, ref, others
 
 
+def _bypass_base(nl: Netlist, base: StateEval) -> dict[str, Any]:
+    """What ``check_bypassed`` needs of the starting state, computed once per starting state:
+    the probe current of each input, the CTs that fed it (live, closed and in its circuit),
+    the finding keys and the roles of the inputs."""
+    hit = base._cache.get("bypass")
+    if hit is None:
+        b, r = base._b, base._row
+        probe0 = np.abs(b.inp_probe[r])
+        feeders = (
+            (b.inp_circ[r][:, None] == b.ct_circ[r][None, :])
+            & b.live[r][None, :]
+            & ~b.ct_open[r][None, :]
+        )
+        hit = base._cache["bypass"] = {
+            "fed": probe0 >= PROBE_ZERO_A,
+            "limit": BYPASS_NOW * probe0,
+            "feeders": feeders,
+            "keys": [
+                (fc.INPUT_BYPASSED, None, di.device, di.name, base.circ_id.get(base.inp_circ[k]))
+                for k, di in enumerate(nl.inputs)
+            ],
+        }
+    return hit
+
+
 def check_bypassed(
     nl: Netlist,
     base: StateEval,
@@ -840,21 +1030,30 @@ def check_bypassed(
     skip: set[tuple[Any, ...]] | None = None,
     keys: set[tuple[Any, ...]] | None = None,
 ) -> list[Finding]:
-    """``input_bypassed``: an input that carried ≥ 10 % of its circuit's largest CT current in
-    the starting state carries under 1 % now. (``keys`` collects the key of every finding
-    that holds; no finding is built for a key in ``skip``.)"""
+    """``input_bypassed``: an input that could see the current of its CTs in the starting
+    state can no longer see it: the probe column (every live CT injects a test current at its
+    own angle) drives under 1 % of what it drove through the input at the start. This names
+    the inputs that carry load and also the residual, neutral and differential inputs that
+    carry about 0 A in normal service and the fault current in a fault. An input none of
+    whose CTs (live, closed and in its circuit at the start) is still live and closed is not
+    bypassed: de-energizing the equipment is no loss of protection. Nor is an input while one
+    of those CTs is live and open: that is ``open_secondary``, and the input's currents are
+    not what they will be once it is closed. (``keys`` collects the key of every finding that
+    holds; no finding is built for a key in ``skip``.)"""
     out = []
-    if base.carried is None:
-        ref_arr = np.asarray(base.inp_ref_a, dtype=np.float64)
-        base.carried = (ref_arr > 0) & (base.inp_abs >= BYPASS_CARRIED * ref_arr)
-        base.bypass_limit = BYPASS_NOW * ref_arr
-        base.bypass_keys = [
-            (fc.INPUT_BYPASSED, None, di.device, di.name, base.circ_id.get(base.inp_circ[k]))
-            for k, di in enumerate(nl.inputs)
-        ]
-    hits = np.flatnonzero(base.carried & (ev.inp_abs < base.bypass_limit)).tolist()
+    bb = _bypass_base(nl, base)
+    b, r = ev._b, ev._row
+    lost = bb["fed"] & (np.abs(b.inp_probe[r]) < bb["limit"])
+    if not lost.any():
+        return out
+    live, opened = b.live[r], b.ct_open[r]
+    feeders = bb["feeders"]
+    lost &= (feeders & (live & ~opened)[None, :]).any(axis=1)
+    lost &= ~(feeders & (live & opened)[None, :]).any(axis=1)
+    hits = np.flatnonzero(lost).tolist()
+    roles = input_roles_of(nl) if hits else None
     for k in hits:
-        key = base.bypass_keys[k]
+        key = bb["keys"][k]
         if keys is not None:
             keys.add(key)
         if skip is not None and key in skip:
@@ -863,15 +1062,22 @@ def check_bypassed(
         i0, i1 = abs(base.inp_cur[k]), abs(ev.inp_cur[k])
         cid = key[4]
         dev = nl.devices[di.device]
-        funcs = "/".join(dev.functions) or dev.kind
+        lost_f = roles.functions_lost(dev, k) if roles is not None else dev.functions
+        funcs = "/".join(lost_f) or dev.kind
         how = "is removed" if di.device in ev.state.removed else "is bypassed"
+        if roles is not None and roles.quiet[k]:
+            seen = (
+                f"it carried {_fmt_a(i0)} (about 0 A in normal service, as a residual, neutral "
+                f"or differential input does; a fault drives current through it) and now no "
+                f"current of its CTs reaches it"
+            )
+        else:
+            seen = f"it carried {_fmt_a(i0)} and now carries {_fmt_a(i1)}"
         out.append(
             Finding(
                 code=fc.INPUT_BYPASSED,
-                message=(
-                    f"{dev.code} input {di.name} {how}: it carried {_fmt_a(i0)} and now "
-                    f"carries {_fmt_a(i1)}; functions {funcs} lose their current"
-                ),
+                message=f"{dev.code} input {di.name} {how}: {seen}; functions {funcs} lose "
+                f"their current",
                 device=dev.code,
                 input=di.name,
                 circuit=cid,
@@ -879,7 +1085,7 @@ def check_bypassed(
                 numbers={
                     "from_a": round(i0, 4),
                     "to_a": round(i1, 4),
-                    "functions": list(dev.functions),
+                    "functions": list(lost_f),
                 },
             )
         )

@@ -258,6 +258,7 @@ def evaluate_ct(
     burden at the CT terminals (complex ohms), None where open or unknown."""
     ct = index.ct(ct_code)
     burdens = burdens or {}
+    neutral = str(ct.get("phase") or "").upper() == "N"
     out: list[Finding] = []
     try:
         tap = index.tap(ct)
@@ -300,9 +301,12 @@ def evaluate_ct(
 
     eq = index.equipment_of(ct)
     max_load_a = None if eq is None else _float(eq.get("max_load_a"))
-    if max_load_a is None:
+    # A neutral CT carries the unbalance of the phases, about 0 A in normal service, not the
+    # equipment's load: a thermal check against the load would be a false finding, and the
+    # record holds no unbalance to check it against (common practice, no source).
+    if max_load_a is None and not neutral:
         out.append(_missing(ct_code, "thermal check not run: equipment has no max_load_a"))
-    else:
+    elif max_load_a is not None and not neutral:
         rating_factor = _float(ct.get("rating_factor")) or 1.0
         finding = thermal_check(
             ct=ct_code, max_load_a=max_load_a, tap=tap, rating_factor=rating_factor
@@ -318,7 +322,7 @@ def evaluate_ct(
     worst_burden: tuple[float, str, complex] | None = None
     for case in CASES:
         burden = burdens.get(case)
-        if case == "phase_fault" and ct.get("phase") == "N":
+        if case == "phase_fault" and neutral:
             cases[case] = None  # a neutral CT carries no current in a balanced phase fault
             continue
         if burden is not None and (worst_burden is None or abs(burden) > worst_burden[0]):
