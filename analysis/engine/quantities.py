@@ -108,22 +108,28 @@ class Roles:
     phase: np.ndarray  # bool per input
     quiet: np.ndarray  # bool per input
     computed: dict[str, tuple[Computed, ...]]  # device code -> its computed quantities
+    lost: tuple[tuple[str, ...], ...]  # per input: the functions lost when it is bypassed
 
-    def functions_lost(self, dev: Any, k: int) -> tuple[str, ...]:
-        """The functions of ``dev`` that lose their current when input ``k`` is bypassed: a
-        quiet input serves the zero-sequence (and differential) elements; a phase input
-        serves every element except the zero-sequence ones that a quiet input of the device
-        measures. All functions where that leaves none."""
-        funcs = tuple(dev.functions)
-        zero = set(zero_sequence(funcs))
-        if self.quiet[k]:
-            own = tuple(f for f in funcs if set(elements([f])) & zero)
-            return own or funcs
-        measured = any(self.quiet[i.index] for i in dev.inputs)
-        if measured and zero:
-            rest = tuple(f for f in funcs if not set(elements([f])) <= zero)
-            return rest or funcs
-        return funcs
+    def functions_lost(self, k: int) -> tuple[str, ...]:
+        """The functions of input ``k``'s device that lose their current when it is
+        bypassed (``_functions_lost``)."""
+        return self.lost[k]
+
+
+def _functions_lost(dev: Any, k: int, quiet: np.ndarray) -> tuple[str, ...]:
+    """A quiet input serves the zero-sequence (and differential) elements; a phase input
+    serves every element except the zero-sequence ones that a quiet input of the device
+    measures. All functions where that leaves none."""
+    funcs = tuple(dev.functions)
+    zero = set(zero_sequence(funcs))
+    if quiet[k]:
+        own = tuple(f for f in funcs if set(elements([f])) & zero)
+        return own or funcs
+    measured = any(quiet[i.index] for i in dev.inputs)
+    if measured and zero:
+        rest = tuple(f for f in funcs if not set(elements([f])) <= zero)
+        return rest or funcs
+    return funcs
 
 
 def input_roles(
@@ -175,4 +181,5 @@ def input_roles(
                 mine.append(Computed(dev.code, "I2", idx, coef, tuple(neg), formula))
         if mine:
             computed[dev.code] = tuple(mine)
-    return Roles(phase=phase, quiet=quiet, computed=computed)
+    lost = tuple(_functions_lost(nl.devices[i.device], i.index, quiet) for i in nl.inputs)
+    return Roles(phase=phase, quiet=quiet, computed=computed, lost=lost)

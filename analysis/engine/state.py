@@ -727,10 +727,26 @@ def input_roles_of(nl: Netlist) -> Roles:
     hit = nl.cache.get("input_roles")
     if hit is None:
         ref = replace(normal_state(nl), energized=frozenset(nl.equipment))
-        b = evaluate_states(nl, [ref])[0]._b
-        hit = input_roles(nl, b.inp_cur[0], b.inp_probe[0], b.inp_ref_a[0], b.inp_circ[0])
+        # usually the normal state itself, already solved by the procedure or plan
+        ev = nl.cache.get(("normal_ref", ref.energized)) or evaluate_states(nl, [ref])[0]
+        b, r = ev._b, ev._row
+        hit = input_roles(nl, b.inp_cur[r], b.inp_probe[r], b.inp_ref_a[r], b.inp_circ[r])
         nl.cache["input_roles"] = hit
     return hit
+
+
+def _moved(before: StateEval, ev: StateEval, dev: Any) -> bool:
+    """Whether the inputs of ``dev`` moved enough for a quantity computed from them to
+    appear: a residual or negative-sequence current changes by at most the sum of the
+    changes of its inputs (its coefficients are of magnitude 1 or 1/3)."""
+    if before is ev:
+        return False
+    total = ref = 0.0
+    for di in dev.inputs:
+        k = di.index
+        total += abs(ev.inp_cur[k] - before.inp_cur[k])
+        ref = max(ref, before.inp_ref_a[k], ev.inp_ref_a[k])
+    return total > (APPEAR_TO - APPEAR_FROM) * ref
 
 
 def _computed_appears(
@@ -825,7 +841,7 @@ def check_trip(
                 }
                 if normal is not None:
                     numbers["normal_a"] = round(normal, 4)
-        if reason is None and same_primary and dev.is_relay:
+        if reason is None and same_primary and dev.is_relay and _moved(before, ev, dev):
             if roles is None:
                 roles = input_roles_of(nl)
             hit = _computed_appears(before, ev, dev, roles)
@@ -1040,17 +1056,23 @@ def check_bypassed(
     of those CTs is live and open: that is ``open_secondary``, and the input's currents are
     not what they will be once it is closed. (``keys`` collects the key of every finding that
     holds; no finding is built for a key in ``skip``.)"""
-    out = []
+    out: list[Finding] = []
     bb = _bypass_base(nl, base)
-    b, r = ev._b, ev._row
-    lost = bb["fed"] & (np.abs(b.inp_probe[r]) < bb["limit"])
-    if not lost.any():
+    b = ev._b
+    batch_hit = bb.get("lost")
+    if batch_hit is None or batch_hit[0] is not b:
+        # every state of the batch at once: (states × inputs)
+        lost = bb["fed"][None, :] & (np.abs(b.inp_probe) < bb["limit"][None, :])
+        if lost.any():
+            feeders = bb["feeders"].T.astype(np.int32)
+            closed_feeders = (b.live & ~b.ct_open).astype(np.int32) @ feeders
+            open_feeders = (b.live & b.ct_open).astype(np.int32) @ feeders
+            lost &= (closed_feeders > 0) & (open_feeders == 0)
+        batch_hit = bb["lost"] = (b, lost)
+    row = batch_hit[1][ev._row]
+    if not row.any():
         return out
-    live, opened = b.live[r], b.ct_open[r]
-    feeders = bb["feeders"]
-    lost &= (feeders & (live & ~opened)[None, :]).any(axis=1)
-    lost &= ~(feeders & (live & opened)[None, :]).any(axis=1)
-    hits = np.flatnonzero(lost).tolist()
+    hits = np.flatnonzero(row).tolist()
     roles = input_roles_of(nl) if hits else None
     for k in hits:
         key = bb["keys"][k]
@@ -1062,7 +1084,7 @@ def check_bypassed(
         i0, i1 = abs(base.inp_cur[k]), abs(ev.inp_cur[k])
         cid = key[4]
         dev = nl.devices[di.device]
-        lost_f = roles.functions_lost(dev, k) if roles is not None else dev.functions
+        lost_f = roles.functions_lost(k) if roles is not None else dev.functions
         funcs = "/".join(lost_f) or dev.kind
         how = "is removed" if di.device in ev.state.removed else "is bypassed"
         if roles is not None and roles.quiet[k]:
