@@ -594,7 +594,7 @@ def _fmt_a(x: float) -> str:
 def _ground_fault_secondary(nl: Netlist, ct: Any) -> tuple[float, str, float] | None:
     """(bus ground-fault kA, bus code, secondary A through the tap in use) for the CT's
     equipment, from the site document; None where the record does not say."""
-    doc = nl.doc or {}
+    doc = getattr(nl, "doc", None) or {}
     eq = next((e for e in doc.get("equipment") or () if e.get("code") == ct.equipment), None)
     if eq is None or not eq.get("bus") or ct.tap_primary_a <= 0:
         return None
@@ -1015,8 +1015,8 @@ def _off_normal(ev: StateEval, dev: Any) -> tuple[Any, complex, complex, float, 
 
 def _bypass_base(nl: Netlist, base: StateEval) -> dict[str, Any]:
     """What ``check_bypassed`` needs of the starting state, computed once per starting state:
-    the probe current of each input, the CTs that fed it (live, closed and in its circuit),
-    the finding keys and the roles of the inputs."""
+    the probe current of each input, the CTs that fed it (live, closed and in its circuit)
+    and the finding keys; ``lost`` is added per solved batch by ``check_bypassed``."""
     hit = base._cache.get("bypass")
     if hit is None:
         b, r = base._b, base._row
@@ -1073,7 +1073,7 @@ def check_bypassed(
     if not row.any():
         return out
     hits = np.flatnonzero(row).tolist()
-    roles = input_roles_of(nl) if hits else None
+    roles = input_roles_of(nl)
     for k in hits:
         key = bb["keys"][k]
         if keys is not None:
@@ -1084,10 +1084,10 @@ def check_bypassed(
         i0, i1 = abs(base.inp_cur[k]), abs(ev.inp_cur[k])
         cid = key[4]
         dev = nl.devices[di.device]
-        lost_f = roles.functions_lost(k) if roles is not None else dev.functions
+        lost_f = roles.functions_lost(k)
         funcs = "/".join(lost_f) or dev.kind
         how = "is removed" if di.device in ev.state.removed else "is bypassed"
-        if roles is not None and roles.quiet[k]:
+        if roles.quiet[k]:
             seen = (
                 f"it carried {_fmt_a(i0)} (about 0 A in normal service, as a residual, neutral "
                 f"or differential input does; a fault drives current through it) and now no "
