@@ -1,0 +1,316 @@
+"""A tapped CT winding as coupled sections of one core.
+
+A multi-ratio CT is one secondary winding on one core, with terminals X1..Xn at cumulative
+primary-ampere positions (design.md, "Terminal positions"). Section k, between two consecutive
+positions, has N_k = Δposition / secondary rating turns (the primary is one turn), so the full
+winding has N = (highest − lowest position) / secondary rating turns.
+
+Model (an ideal core with resistive windings; what coupled inductors give with a coupling
+factor → 1 and a magnetizing inductance → ∞):
+
+- every section has the same EMF per turn e: its terminal voltage is V_k = N_k·e − R_k·j_k, with
+  j_k the current that leaves the winding at the section's lower-position end;
+- the secondary ampere-turns balance the primary's: Σ N_k·j_k = ±I_p (the sign is the
+  winding's polarity: current leaves the first terminal in use);
+- R_k = R·N_k / N, the full-winding resistance ``winding_ohm`` shared by turns (an even mean
+  turn length, as ``ratings.taps.winding_ohm_at_tap`` assumes; common practice, no source).
+  Where the record has no winding resistance, 2.5 mΩ per turn is used (a typical figure for
+  relaying CTs, from memory); it only matters once part of the winding is shorted.
+
+Eliminating e and the j_k gives an exact nodal stamp that the existing solver takes as plain
+branches and injections (the algebra is in the tests, tests/reference/test_windings_reference):
+
+- a resistor R_k across every section (between consecutive terminal positions);
+- a *negative* resistor −R between the two ends of the whole winding;
+- a current source I_p / N from the far end of the winding into the end on the side of the first
+  terminal in use (for the tap current I_tap that is I_tap · N_tap / N).
+
+With only the terminals in use joined by the external circuit the section resistors and the
+negative resistor cancel (R_tap ∥ −R_tap seen from the tap) and the tap delivers exactly
+I_p / N_tap: the ideal current source of the single-source model. So the engine keeps that model
+(and its exact figures) for every CT whose winding no other pair of terminals is joined across,
+and stamps the sections only for a *coupled* CT: one where an external conducting path joins two
+terminals other than the pair in use (a jumper across a section inside the tap, or across an
+unused section outside it). A shorted section's voltage is then ~0, so the flux is small, the
+shorted turns carry current in proportion to the ampere-turns they take, and the devices see
+less current; with no winding resistance at all the tap would deliver nothing.
+
+Everything here is numpy over the batched states of ``state.evaluate_states``.
+"""
+
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from analysis.engine.netlist import Netlist
+
+# Winding resistance per turn where the record gives none (from memory: relaying CTs run about
+# 2 to 3 mΩ per turn at 75 °C).
+DEFAULT_OHM_PER_TURN = 0.0025
+# Floor of the resistance per turn, so that a recorded 0 Ω still gives a finite solve.
+MIN_OHM_PER_TURN = 1e-6
+
+
+@dataclass(frozen=True, eq=False)
+class WindingArrays:
+    """The tapped CTs (more than two terminals) of a netlist as flat arrays.
+
+    ``m`` indexes the tapped CTs; terminals and sections are grouped per CT in position order.
+    """
+
+    ct: np.ndarray  # CT index (in ``Netlist.ct_list``) of each tapped CT
+    names: list[list[str]]  # terminal names in position order, per tapped CT
+    term: np.ndarray  # terminal index of each winding terminal
+    term_m: np.ndarray  # tapped CT of each winding terminal
+    use_a: np.ndarray  # position (in ``term``) of the first and second terminal in use
+    use_b: np.ndarray
+    sec_m: np.ndarray  # tapped CT of each section
+    sec_a: np.ndarray  # terminal index of the lower-position end of each section
+    sec_b: np.ndarray  # terminal index of the higher-position end
+    sec_k: np.ndarray  # position of the section within its CT (0 = lowest)
+    sec_turns: np.ndarray
+    sec_r: np.ndarray  # ohms
+    sec_tap: np.ndarray  # True for a section inside the tap in use
+    src: np.ndarray  # terminal index of the winding end on the first terminal's side
+    snk: np.ndarray  # the other end
+    r_full: np.ndarray  # ohms, whole winding
+    scale: np.ndarray  # N_tap / N: the full-winding current per ampere of tap current
+    sign: np.ndarray  # +1 when the first terminal in use is the lower position, else −1
+    first: np.ndarray  # terminal index of the first terminal in use
+
+    @property
+    def n(self) -> int:
+        return len(self.ct)
+
+
+def winding_arrays(nl: Netlist) -> WindingArrays:
+    """The ``WindingArrays`` of a netlist (cached on it).
+
+    A CT with two terminals, with two terminals at one position, or with a tap of no turns
+    keeps the single-source model only (the site-file validator refuses equal positions).
+    """
+    hit = nl.cache.get("windings")
+    if hit is not None:
+        return hit
+    rows: dict[str, list[Any]] = {
+        k: []
+        for k in (
+            "ct",
+            "names",
+            "term",
+            "term_m",
+            "use_a",
+            "use_b",
+            "sec_m",
+            "sec_a",
+            "sec_b",
+            "sec_k",
+            "sec_turns",
+            "sec_r",
+            "sec_tap",
+            "src",
+            "snk",
+            "r_full",
+            "scale",
+            "sign",
+            "first",
+        )
+    }
+    for ct in nl.ct_list:
+        if len(ct.terminals) < 3 or ct.secondary_a <= 0:
+            continue
+        order = sorted(ct.terminals, key=lambda n: (ct.positions[n], n))
+        pos = [ct.positions[n] for n in order]
+        steps = np.diff(pos)
+        lo_use, hi_use = sorted((ct.positions[ct.in_use[0]], ct.positions[ct.in_use[1]]))
+        if (steps <= 0).any() or hi_use <= lo_use:
+            continue
+        m = len(rows["ct"])
+        turns_full = (pos[-1] - pos[0]) / ct.secondary_a
+        winding_ohm = getattr(ct, "winding_ohm", None)
+        per_turn = DEFAULT_OHM_PER_TURN if winding_ohm is None else float(winding_ohm) / turns_full
+        per_turn = max(per_turn, MIN_OHM_PER_TURN)
+        base = len(rows["term"])
+        rows["ct"].append(ct.index)
+        rows["names"].append(order)
+        rows["term"] += [ct.terminals[n] for n in order]
+        rows["term_m"] += [m] * len(order)
+        rows["use_a"].append(base + order.index(ct.in_use[0]))
+        rows["use_b"].append(base + order.index(ct.in_use[1]))
+        for k, (a, b) in enumerate(itertools.pairwise(order)):
+            turns = (ct.positions[b] - ct.positions[a]) / ct.secondary_a
+            rows["sec_m"].append(m)
+            rows["sec_a"].append(ct.terminals[a])
+            rows["sec_b"].append(ct.terminals[b])
+            rows["sec_k"].append(k)
+            rows["sec_turns"].append(turns)
+            rows["sec_r"].append(per_turn * turns)
+            rows["sec_tap"].append(ct.positions[a] >= lo_use and ct.positions[b] <= hi_use)
+        first_low = ct.positions[ct.in_use[0]] < ct.positions[ct.in_use[1]]
+        lo, hi = ct.terminals[order[0]], ct.terminals[order[-1]]
+        rows["src"].append(lo if first_low else hi)
+        rows["snk"].append(hi if first_low else lo)
+        rows["r_full"].append(per_turn * turns_full)
+        rows["scale"].append((hi_use - lo_use) / (pos[-1] - pos[0]))
+        rows["sign"].append(1.0 if first_low else -1.0)
+        rows["first"].append(ct.first)
+
+    def ints(key: str) -> np.ndarray:
+        return np.asarray(rows[key], dtype=np.int64)
+
+    def floats(key: str) -> np.ndarray:
+        return np.asarray(rows[key], dtype=np.float64)
+
+    hit = WindingArrays(
+        ct=ints("ct"),
+        names=rows["names"],
+        term=ints("term"),
+        term_m=ints("term_m"),
+        use_a=ints("use_a"),
+        use_b=ints("use_b"),
+        sec_m=ints("sec_m"),
+        sec_a=ints("sec_a"),
+        sec_b=ints("sec_b"),
+        sec_k=ints("sec_k"),
+        sec_turns=floats("sec_turns"),
+        sec_r=floats("sec_r"),
+        sec_tap=np.asarray(rows["sec_tap"], dtype=bool),
+        src=ints("src"),
+        snk=ints("snk"),
+        r_full=floats("r_full"),
+        scale=floats("scale"),
+        sign=floats("sign"),
+        first=ints("first"),
+    )
+    nl.cache["windings"] = hit
+    return hit
+
+
+def coupled_mask(wa: WindingArrays, labels: np.ndarray) -> np.ndarray:
+    """(states × tapped CTs): True where a pair of winding terminals other than the pair in use
+    shares a conduction label (``labels``: states × winding terminals)."""
+    n_states = labels.shape[0]
+    if wa.n == 0 or n_states == 0:
+        return np.zeros((n_states, wa.n), dtype=bool)
+    group = np.arange(n_states)[:, None] * wa.n + wa.term_m[None, :]
+    g = group.ravel()
+    lab = labels.ravel()
+    order = np.lexsort((lab, g))
+    gs, ls = g[order], lab[order]
+    dup = (gs[1:] == gs[:-1]) & (ls[1:] == ls[:-1])
+    n_dup = np.bincount(gs[1:][dup], minlength=n_states * wa.n).reshape(n_states, wa.n)
+    joined = labels[:, wa.use_a] == labels[:, wa.use_b]
+    return n_dup > joined.astype(np.int64)
+
+
+@dataclass(eq=False)
+class Stamp:
+    """Extra branches (node pairs and admittances) of the coupled windings of a batch."""
+
+    na: np.ndarray
+    nb: np.ndarray
+    y: np.ndarray
+    rows: np.ndarray  # state of each coupled (state, tapped CT) pair
+    ms: np.ndarray  # tapped CT of each pair
+
+
+def stamp(wa: WindingArrays, coupled: np.ndarray, node_of: Any) -> Stamp:
+    """Section resistors and the negative whole-winding resistor of every coupled winding.
+
+    ``node_of(rows, terminals)`` maps terminal indices of the given states to solver nodes."""
+    rows, ms = np.nonzero(coupled)
+    # sections of each coupled pair: repeat the pair once per section of its CT
+    counts = np.bincount(wa.sec_m, minlength=wa.n)
+    starts = np.concatenate([[0], np.cumsum(counts)[:-1]])
+    per = counts[ms]
+    pair = np.repeat(np.arange(len(ms)), per)
+    sec = starts[ms][pair] + (np.arange(per.sum()) - np.repeat(np.cumsum(per) - per, per))
+    srow = rows[pair]
+    na = np.concatenate([node_of(srow, wa.sec_a[sec]), node_of(rows, wa.src[ms])])
+    nb = np.concatenate([node_of(srow, wa.sec_b[sec]), node_of(rows, wa.snk[ms])])
+    y = np.concatenate([1.0 / wa.sec_r[sec], -1.0 / wa.r_full[ms]]).astype(np.complex128)
+    return Stamp(na=na, nb=nb, y=y, rows=rows, ms=ms)
+
+
+def section_currents(
+    wa: WindingArrays,
+    coupled: np.ndarray,
+    i_src: np.ndarray,
+    dv: Any,
+    node_of: Any,
+    ideal: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray]:
+    """(states × sections) current of every section, leaving the winding at the section's
+    lower-position end, and (states × tapped CTs) current the winding delivers into the node of
+    its first terminal in use.
+
+    For a coupled winding (the module docstring's algebra, R_k = ρ·N_k):
+    j_k = I_src + (V_lo − V_hi) / R − (V_a,k − V_b,k) / R_k, with I_src the injected
+    full-winding current into the lower end (``i_src``: states × tapped CTs, already signed).
+    Elsewhere the single-source values: ``ideal`` (states × tapped CTs: the signed tap current)
+    in the sections of the tap, 0 outside it.
+    ``dv(node_a, node_b)`` gives solved voltage differences of the load column."""
+    n_states = coupled.shape[0]
+    cur = np.where(wa.sec_tap[None, :], ideal[:, wa.sec_m], 0.0).astype(np.complex128)
+    if coupled.any():
+        sel = np.nonzero(coupled[:, wa.sec_m])
+        srow, sec = sel
+        m = wa.sec_m[sec]
+        lo = np.where(wa.sign[m] > 0, wa.src[m], wa.snk[m])
+        hi = np.where(wa.sign[m] > 0, wa.snk[m], wa.src[m])
+        i_lo = i_src[srow, m] * wa.sign[m]
+        v_ends = dv(node_of(srow, lo), node_of(srow, hi))
+        v_sec = dv(node_of(srow, wa.sec_a[sec]), node_of(srow, wa.sec_b[sec]))
+        cur[srow, sec] = i_lo + v_ends / wa.r_full[m] - v_sec / wa.sec_r[sec]
+    # current into the first terminal's node: sections leaving there minus those entering
+    delivered = np.zeros((n_states, wa.n), dtype=np.complex128)
+    if wa.n and n_states:
+        s_idx = np.arange(n_states)[:, None]
+        nf = node_of(s_idx, wa.first[wa.sec_m][None, :])
+        out_a = node_of(s_idx, wa.sec_a[None, :]) == nf
+        in_b = node_of(s_idx, wa.sec_b[None, :]) == nf
+        contrib = cur * (out_a.astype(np.float64) - in_b.astype(np.float64))
+        np.add.at(
+            delivered,
+            (np.broadcast_to(s_idx, contrib.shape), np.broadcast_to(wa.sec_m, contrib.shape)),
+            contrib,
+        )
+    return cur, delivered
+
+
+def shorted_sections(
+    order: list[str], positions: dict[str, float], in_use: tuple[str, str], labels: list[int]
+) -> list[tuple[str, str, bool]]:
+    """Winding sections joined end to end by an external conducting path: (lower terminal,
+    higher terminal, inside the tap in use).
+
+    Every pair of terminals p < q other than the pair in use that one conducting part joins
+    shorts the sections between them; where the pair spans the whole tap in use (the tap's own
+    loop joined to an unused end, say X1 joined to X5 with X1-X4 in use) the sections outside
+    the tap are the shorted ones (the tap in use is what the devices are across)."""
+    lo, hi = sorted((positions[in_use[0]], positions[in_use[1]]))
+    use = set(in_use)
+    shorted: set[int] = set()
+    for i, p in enumerate(order):
+        for j in range(i + 1, len(order)):
+            q = order[j]
+            if labels[i] != labels[j] or {p, q} == use:
+                continue
+            whole_tap = positions[p] <= lo and positions[q] >= hi
+            for k in range(i, j):
+                a, b = positions[order[k]], positions[order[k + 1]]
+                outside = a < lo or b > hi
+                if outside or not whole_tap:
+                    shorted.add(k)
+    return [
+        (
+            order[k],
+            order[k + 1],
+            positions[order[k]] >= lo and positions[order[k + 1]] <= hi,
+        )
+        for k in sorted(shorted)
+    ]
