@@ -19,6 +19,7 @@ to cancel here" (a residual input in a balanced load). Many states are solved in
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -244,9 +245,11 @@ class _StateBatch:
     gpoint: np.ndarray
     windings: WindingArrays
     wind_imp: np.ndarray  # conduction label of each winding terminal (external paths only)
-    wind_joined: np.ndarray  # tapped CT with terminals other than the pair in use joined
-    sec_cur: np.ndarray  # current of each winding section (see ``windings.section_currents``)
-    delivered: np.ndarray  # current each tapped winding delivers at its first terminal
+    wind_joined: np.ndarray  # live tapped CT with terminals other than the pair in use joined
+    any_joined: list[bool]  # per state: any such CT
+    # row -> (current of each winding section, current each tapped winding delivers at its
+    # first terminal): ``windings.section_currents`` for one state, solved on first use
+    row_sections: Callable[[int], tuple[np.ndarray, np.ndarray]]
 
 
 class StateEval:
@@ -367,11 +370,9 @@ class StateEval:
             hit = {}
             b = self._b
             wa = b.windings
-            lv = b.live[self._row]
-            for m in np.flatnonzero(b.wind_joined[self._row]).tolist():
+            joined = b.wind_joined[self._row]
+            for m in np.flatnonzero(joined).tolist() if b.any_joined[self._row] else ():
                 c = b.nl.ct_list[int(wa.ct[m])]
-                if not lv[c.index]:
-                    continue
                 sel = wa.term_m == m
                 labels = b.wind_imp[self._row][sel].tolist()
                 sec = shorted_sections(wa.names[m], c.positions, c.in_use, labels)
@@ -379,8 +380,9 @@ class StateEval:
                 # tap delivers (a path at a mid-tap terminal that closes through the tap's own
                 # burden joins every terminal of the tap; only the sections the path really
                 # bypasses carry a different current).
-                cur = b.sec_cur[self._row, wa.sec_m == m].tolist()
-                out_i = b.delivered[self._row, m]
+                sec_cur, delivered = self._sections()
+                cur = sec_cur[wa.sec_m == m].tolist()
+                out_i = delivered[m]
                 floor = INSIDE_SHORT_FRACTION * c.load_secondary_a
                 k_of = {n: k for k, n in enumerate(wa.names[m])}
                 sec = [
@@ -391,6 +393,12 @@ class StateEval:
                 if sec:
                     hit[c.code] = sec
             self._cache["partial"] = hit
+        return hit
+
+    def _sections(self) -> tuple[np.ndarray, np.ndarray]:
+        hit = self._cache.get("sections")
+        if hit is None:
+            hit = self._cache["sections"] = self._b.row_sections(self._row)
         return hit
 
     def sections(self, ct_code: str) -> list[tuple[str, str, float, complex]]:
@@ -407,7 +415,7 @@ class StateEval:
         m = int(hits[0])
         sel = np.flatnonzero(wa.sec_m == m)
         names = wa.names[m]
-        cur = b.sec_cur[self._row, sel].tolist()
+        cur = self._sections()[0][sel].tolist()
         turns = wa.sec_turns[sel].tolist()
         return [(names[k], names[k + 1], turns[k], cur[k]) for k in range(len(sel))]
 
@@ -417,7 +425,7 @@ class StateEval:
         two terminals."""
         b = self._b
         hits = np.flatnonzero(b.windings.ct == b.nl.cts[ct_code].index)
-        return complex(b.delivered[self._row, int(hits[0])]) if len(hits) else None
+        return complex(self._sections()[1][int(hits[0])]) if len(hits) else None
 
 
 def _cached_row(nl: Netlist, key: tuple[Any, ...], make: Any) -> np.ndarray:
@@ -600,11 +608,19 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
     ncols = np.zeros(topo.n_circ, dtype=np.int64)
     ncols[ct_circ[inj]] = 2
     sol = solve(solve_topo, solve_y, inj_node, inj_col, inj_val, ncols)
-    ideal = np.where(live[:, wa.ct] & ~ct_open[:, wa.ct], load[:, wa.ct] * wa.sign[None, :], 0.0)
-    i_src = np.where(live[:, wa.ct] & coupled, load[:, wa.ct] * wa.scale[None, :], 0.0)
-    sec_cur, delivered = section_currents(
-        wa, coupled, i_src, lambda a, b: sol.dv(a, b, 0), node_of, ideal
-    )
+
+    def row_sections(row: int) -> tuple[np.ndarray, np.ndarray]:
+        r = slice(row, row + 1)
+        lv, cts = live[r, wa.ct], wa.ct
+        cur, out = section_currents(
+            wa,
+            coupled[r],
+            np.where(lv & coupled[r], load[r, cts] * wa.scale[None, :], 0.0),
+            lambda a, b: sol.dv(a, b, 0),
+            lambda _rows, terms: tn[terms + offs[row]],
+            np.where(lv & ~ct_open[r, cts], load[r, cts] * wa.sign[None, :], 0.0),
+        )
+        return cur[0], out[0]
 
     # device input currents, both columns
     n_in = len(nl.inputs)
@@ -641,9 +657,9 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
         gpoint=topo.term_point[gv].reshape(n_states, len(ar.grounds)),
         windings=wa,
         wind_imp=wind_imp,
-        wind_joined=wind_joined,
-        sec_cur=sec_cur,
-        delivered=delivered,
+        wind_joined=wind_joined & live[:, wa.ct],
+        any_joined=(wind_joined & live[:, wa.ct]).any(axis=1).tolist(),
+        row_sections=row_sections,
     )
     return [StateEval(batch, s, st) for s, st in enumerate(states)]
 

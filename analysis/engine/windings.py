@@ -66,8 +66,9 @@ class WindingArrays:
     names: list[list[str]]  # terminal names in position order, per tapped CT
     term: np.ndarray  # terminal index of each winding terminal
     term_m: np.ndarray  # tapped CT of each winding terminal
-    use_a: np.ndarray  # position (in ``term``) of the first and second terminal in use
-    use_b: np.ndarray
+    pair_i: np.ndarray  # every pair of winding terminals (positions in ``term``) but the
+    pair_j: np.ndarray  # pair in use, and its tapped CT
+    pair_m: np.ndarray
     sec_m: np.ndarray  # tapped CT of each section
     sec_a: np.ndarray  # terminal index of the lower-position end of each section
     sec_b: np.ndarray  # terminal index of the higher-position end
@@ -103,8 +104,9 @@ def winding_arrays(nl: Netlist) -> WindingArrays:
             "names",
             "term",
             "term_m",
-            "use_a",
-            "use_b",
+            "pair_i",
+            "pair_j",
+            "pair_m",
             "sec_m",
             "sec_a",
             "sec_b",
@@ -139,8 +141,12 @@ def winding_arrays(nl: Netlist) -> WindingArrays:
         rows["names"].append(order)
         rows["term"] += [ct.terminals[n] for n in order]
         rows["term_m"] += [m] * len(order)
-        rows["use_a"].append(base + order.index(ct.in_use[0]))
-        rows["use_b"].append(base + order.index(ct.in_use[1]))
+        use = {order.index(ct.in_use[0]), order.index(ct.in_use[1])}
+        for i, j in itertools.combinations(range(len(order)), 2):
+            if {i, j} != use:
+                rows["pair_i"].append(base + i)
+                rows["pair_j"].append(base + j)
+                rows["pair_m"].append(m)
         for k, (a, b) in enumerate(itertools.pairwise(order)):
             turns = (ct.positions[b] - ct.positions[a]) / ct.secondary_a
             rows["sec_m"].append(m)
@@ -170,8 +176,9 @@ def winding_arrays(nl: Netlist) -> WindingArrays:
         names=rows["names"],
         term=ints("term"),
         term_m=ints("term_m"),
-        use_a=ints("use_a"),
-        use_b=ints("use_b"),
+        pair_i=ints("pair_i"),
+        pair_j=ints("pair_j"),
+        pair_m=ints("pair_m"),
         sec_m=ints("sec_m"),
         sec_a=ints("sec_a"),
         sec_b=ints("sec_b"),
@@ -193,18 +200,11 @@ def winding_arrays(nl: Netlist) -> WindingArrays:
 def coupled_mask(wa: WindingArrays, labels: np.ndarray) -> np.ndarray:
     """(states × tapped CTs): True where a pair of winding terminals other than the pair in use
     shares a conduction label (``labels``: states × winding terminals)."""
-    n_states = labels.shape[0]
-    if wa.n == 0 or n_states == 0:
-        return np.zeros((n_states, wa.n), dtype=bool)
-    group = np.arange(n_states)[:, None] * wa.n + wa.term_m[None, :]
-    g = group.ravel()
-    lab = labels.ravel()
-    order = np.lexsort((lab, g))
-    gs, ls = g[order], lab[order]
-    dup = (gs[1:] == gs[:-1]) & (ls[1:] == ls[:-1])
-    n_dup = np.bincount(gs[1:][dup], minlength=n_states * wa.n).reshape(n_states, wa.n)
-    joined = labels[:, wa.use_a] == labels[:, wa.use_b]
-    return n_dup > joined.astype(np.int64)
+    out = np.zeros((labels.shape[0], wa.n), dtype=bool)
+    if wa.n and labels.shape[0]:
+        rows, pairs = np.nonzero(labels[:, wa.pair_i] == labels[:, wa.pair_j])
+        out[rows, wa.pair_m[pairs]] = True
+    return out
 
 
 @dataclass(eq=False)
