@@ -247,6 +247,7 @@ class _StateBatch:
     wind_imp: np.ndarray  # conduction label of each winding terminal (external paths only)
     wind_joined: np.ndarray  # live tapped CT with terminals other than the pair in use joined
     any_joined: list[bool]  # per state: any such CT
+    ends_shorted: np.ndarray  # tapped CT whose lowest and highest terminals are one node
     # row -> (current of each winding section, current each tapped winding delivers at its
     # first terminal): ``windings.section_currents`` for one state, solved on first use
     row_sections: Callable[[int], tuple[np.ndarray, np.ndarray]]
@@ -385,11 +386,16 @@ class StateEval:
                 out_i = delivered[m]
                 floor = INSIDE_SHORT_FRACTION * c.load_secondary_a
                 k_of = {n: k for k, n in enumerate(wa.names[m])}
-                sec = [
-                    (a, bb, inside)
-                    for a, bb, inside in sec
-                    if not inside or abs(abs(cur[k_of[a]]) - abs(out_i)) > floor
-                ]
+                if floor > 0:
+                    sec = [
+                        (a, bb, inside)
+                        for a, bb, inside in sec
+                        if not inside or abs(abs(cur[k_of[a]]) - abs(out_i)) > floor
+                    ]
+                # The whole winding shorted end to end (its lowest and highest terminals
+                # joined with no impedance) is a short of the CT, not of part of it.
+                if b.ends_shorted[self._row][m]:
+                    sec = []
                 if sec:
                     hit[c.code] = sec
             self._cache["partial"] = hit
@@ -609,18 +615,24 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
     ncols[ct_circ[inj]] = 2
     sol = solve(solve_topo, solve_y, inj_node, inj_col, inj_val, ncols)
 
+    all_sections: list[tuple[np.ndarray, np.ndarray]] = []
+
     def row_sections(row: int) -> tuple[np.ndarray, np.ndarray]:
-        r = slice(row, row + 1)
-        lv, cts = live[r, wa.ct], wa.ct
-        cur, out = section_currents(
-            wa,
-            coupled[r],
-            np.where(lv & coupled[r], load[r, cts] * wa.scale[None, :], 0.0),
-            lambda a, b: sol.dv(a, b, 0),
-            lambda _rows, terms: tn[terms + offs[row]],
-            np.where(lv & ~ct_open[r, cts], load[r, cts] * wa.sign[None, :], 0.0),
-        )
-        return cur[0], out[0]
+        # every state at once on the first request (one vectorized pass), then by row
+        if not all_sections:
+            lv, cts = live[:, wa.ct], wa.ct
+            all_sections.append(
+                section_currents(
+                    wa,
+                    coupled,
+                    np.where(lv & coupled, load[:, cts] * wa.scale[None, :], 0.0),
+                    lambda a, b: sol.dv(a, b, 0),
+                    node_of,
+                    np.where(lv & ~ct_open[:, cts], load[:, cts] * wa.sign[None, :], 0.0),
+                )
+            )
+        cur, out = all_sections[0]
+        return cur[row], out[row]
 
     # device input currents, both columns
     n_in = len(nl.inputs)
@@ -659,6 +671,8 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
         wind_imp=wind_imp,
         wind_joined=wind_joined & live[:, wa.ct],
         any_joined=(wind_joined & live[:, wa.ct]).any(axis=1).tolist(),
+        ends_shorted=topo.term_point[wa.src[None, :] + offs[:, None]]
+        == topo.term_point[wa.snk[None, :] + offs[:, None]],
         row_sections=row_sections,
     )
     return [StateEval(batch, s, st) for s, st in enumerate(states)]

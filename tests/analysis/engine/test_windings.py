@@ -143,3 +143,32 @@ def test_a_jumper_from_a_mid_tap_terminal_names_only_the_sections_it_bypasses():
     nl = build_netlist(tapped_panel().build())
     ev = _state(nl, [("CB-1-C:X1", "CB-1-C:X2")])
     assert ev.partial == {"CB-1-C": [("X1", "X2", True)]}
+
+
+def test_the_whole_winding_shorted_end_to_end_is_no_partial_short():
+    """X1-X5 of phase A jumpered with X1-X4 in use: the full winding (120 turns) is shorted, so
+    no section is partly shorted (shorting the full winding of a multi-ratio CT is a usual way
+    to short it; common practice, no source).
+
+    Seen from its tap the CT is then no source at all but a small impedance: in the stamp of
+    windings.py the source and the −0.30 Ω resistor sit between X1 and X5, now one node, and
+    what is left is X1-X4 (0.20 Ω) in parallel with X4-X5 (0.10 Ω): 0.0667 Ω. Phases B and C
+    still drive 4∠−120° + 4∠120° = 4∠180° A back from the relay star, split between the IA
+    path (relay 0.1 + lead 0.5 + 0.0667 Ω) and the IN path (0.2 + 0.5 Ω):
+    |IA| = 4 · 0.7 / 1.3667 = 2.049 A, |IN| = 4 · 0.6667 / 1.3667 = 1.951 A.
+    """
+    nl = build_netlist(tapped_panel().build())
+    ev = _state(nl, [("CB-1-A:X1", "CB-1-A:X5")])
+    cur = dict(zip(nl.input_keys, ev.inp_cur, strict=True))
+    z_a = 0.6 + 0.2 * 0.1 / 0.3
+    assert abs(cur[("R-1", "IA")]) == pytest.approx(4 * 0.7 / (z_a + 0.7), rel=1e-9)
+    assert abs(cur[("R-1", "IN")]) == pytest.approx(4 * z_a / (z_a + 0.7), rel=1e-9)
+    assert ev.partial == {}
+    # the primary's 320 A-turns are balanced by the winding: Σ N_k j_k = 320
+    total = sum(t * i for *_, t, i in ev.sections("CB-1-A"))
+    assert abs(total) == pytest.approx(320, rel=1e-9)
+    v = check_operations(nl, [{"add_jumper": ["CB-1-A:X1", "CB-1-A:X5"], "id": "J"}])
+    codes = [(f.code, f.device, f.input) for f in v.steps[1].findings]
+    assert "partial_winding_short" not in [c[0] for c in codes]
+    # the residual that appears (0 → 1.95 A) with R-1's trip connected is still rule (c)
+    assert ("trip_not_isolated", "R-1", "IN") in codes
