@@ -14,6 +14,12 @@ load current (equipment maximum load / ratio; 1 A where unknown) at its phase an
 B −120°, C +120°). A second, *probe* column injects unit currents at unrelated angles so that
 "this input carries no current whatever the CTs do" can be told from "the load currents happen
 to cancel here" (a residual input in a balanced load). Many states are solved in one batch.
+
+A tapped CT whose winding is joined across anywhere but at the pair in use (a jumper across a
+section inside the tap, or across an unused section outside it) is solved as coupled sections
+of one core instead (``windings.py``): the shorted turns take their share of the ampere-turns,
+so the devices' currents change and the trip rules see it; ``partial_winding_short`` gives the
+section currents.
 """
 
 from __future__ import annotations

@@ -17,8 +17,16 @@ factor → 1 and a magnetizing inductance → ∞):
   Where the record has no winding resistance, 2.5 mΩ per turn is used (a typical figure for
   relaying CTs, from memory); it only matters once part of the winding is shorted.
 
-Eliminating e and the j_k gives an exact nodal stamp that the existing solver takes as plain
-branches and injections (the algebra is in the tests, tests/reference/test_windings_reference):
+Eliminating e gives an exact nodal stamp that the existing solver takes as plain branches and
+injections. With v_k = V(a_k) − V(b_k) across section k (a_k its lower end, b_k its upper),
+j_k = (N_k·e − v_k) / R_k; put in the balance with R_k = ρ·N_k (I = ±I_p):
+Σ (N_k·e − v_k) / ρ = I, and Σ v_k = V_lo − V_hi telescopes, so e = (ρ·I + V_lo − V_hi) / N and
+
+    j_k = I / N + (V_lo − V_hi) / R − v_k / R_k.
+
+The last term is a resistor R_k across the section; the first two are the same in every section
+of the series chain, so at the inner terminals they cancel and only the two ends of the winding
+see them:
 
 - a resistor R_k across every section (between consecutive terminal positions);
 - a *negative* resistor −R between the two ends of the whole winding;
@@ -31,9 +39,11 @@ I_p / N_tap: the ideal current source of the single-source model. So the engine 
 (and its exact figures) for every CT whose winding no other pair of terminals is joined across,
 and stamps the sections only for a *coupled* CT: one where an external conducting path joins two
 terminals other than the pair in use (a jumper across a section inside the tap, or across an
-unused section outside it). A shorted section's voltage is then ~0, so the flux is small, the
-shorted turns carry current in proportion to the ampere-turns they take, and the devices see
-less current; with no winding resistance at all the tap would deliver nothing.
+unused section outside it). A section shorted with no impedance has v_k = 0, so it carries
+j_k = e / ρ: every such section the same current, i.e. ampere-turns in proportion to its turns.
+Those ampere-turns are taken from the tap's, so the flux and the devices' currents drop; with no
+winding resistance at all (ρ → 0) the shorted turns would take them all and the tap deliver
+nothing. The oracle: ngspice with coupled inductors (tests/reference/test_windings_reference.py).
 
 Everything here is numpy over the batched states of ``state.evaluate_states``.
 """
