@@ -172,3 +172,28 @@ def test_the_whole_winding_shorted_end_to_end_is_no_partial_short():
     assert "partial_winding_short" not in [c[0] for c in codes]
     # the residual that appears (0 → 1.95 A) with R-1's trip connected is still rule (c)
     assert ("trip_not_isolated", "R-1", "IN") in codes
+
+
+def test_a_differential_relay_sees_the_shorted_section_rule_b():
+    """Two 600:5 CTs at X1-X4 (400:5) into the restraint inputs of an 87 relay, each in its own
+    loop (lead 0.3 Ω out and back, input 0.1 Ω: Z = 0.7 Ω). X4-X5 of CT-1 jumpered: its input
+    goes from 4.00 A to 320 / (120 + 40 · 0.7 / (0.0025 · 80)) = 320 / 260 = 1.23 A (the
+    hand-worked case of test_windings_reference), a 69 % change on a differential relay with
+    its trip connected: rule (b) of the findings table (common practice, no source)."""
+    from tests.analysis.engine.builders import SiteBuilder
+
+    b = SiteBuilder("DIF")
+    b.equipment("CB", max_load_a=320)
+    inputs = []
+    for k in (1, 2):
+        b.ct(f"CT-{k}", equipment="CB", terminals=POSITIONS, in_use=("X1", "X4"))
+        inputs.append((f"IR{k}", f"R87:{k}A", f"R87:{k}B", 0.1))
+        b.wire(f"CT-{k}:X1", f"R87:{k}A", 0.3)
+        b.wire(f"R87:{k}B", f"CT-{k}:X4", 0.3)
+        b.ground(f"R87:{k}B")
+    b.device("R87", functions=("87T",), inputs=inputs, outputs=[("TRIP", "R87:T", "CB:TC")])
+    b.wire("R87:T", "CB:TC", 1.0)
+    v = check_operations(build_netlist(b.build()), [{"add_jumper": ["CT-1:X4", "CT-1:X5"]}])
+    trips = [f for f in v.steps[1].findings if f.code == "trip_not_isolated"]
+    assert [(f.device, f.input) for f in trips] == [("R87", "IR1")]
+    assert "from 4.00 A to 1.23 A (69 % change; R87 is a differential relay)" in trips[0].message
