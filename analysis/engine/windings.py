@@ -98,110 +98,158 @@ class WindingArrays:
         return len(self.ct)
 
 
+@dataclass(frozen=True, eq=False)
+class _Shape:
+    """What tapped CTs of one nameplate and tap share; indices are positions in ``order``."""
+
+    order: list[str]
+    pair_i: np.ndarray
+    pair_j: np.ndarray
+    sec_turns: np.ndarray
+    sec_r: np.ndarray
+    sec_tap: np.ndarray
+    src: int
+    snk: int
+    r_full: float
+    scale: float
+    sign: float
+
+
+def _shape(ct: Any) -> _Shape | None:
+    if len(ct.terminals) < 3 or ct.secondary_a <= 0:
+        return None
+    order = sorted(ct.terminals, key=lambda n: (ct.positions[n], n))
+    pos = np.asarray([ct.positions[n] for n in order], dtype=np.float64)
+    lo_use, hi_use = sorted((ct.positions[ct.in_use[0]], ct.positions[ct.in_use[1]]))
+    if (np.diff(pos) <= 0).any() or hi_use <= lo_use:
+        return None
+    turns = np.diff(pos) / ct.secondary_a
+    turns_full = float(turns.sum())
+    winding_ohm = getattr(ct, "winding_ohm", None)
+    per_turn = DEFAULT_OHM_PER_TURN if winding_ohm is None else float(winding_ohm) / turns_full
+    per_turn = max(per_turn, MIN_OHM_PER_TURN)
+    use = {order.index(ct.in_use[0]), order.index(ct.in_use[1])}
+    pairs = [(i, j) for i, j in itertools.combinations(range(len(order)), 2) if {i, j} != use]
+    first_low = ct.positions[ct.in_use[0]] < ct.positions[ct.in_use[1]]
+    last = len(order) - 1
+    return _Shape(
+        order=order,
+        pair_i=np.asarray([i for i, _ in pairs], dtype=np.int64),
+        pair_j=np.asarray([j for _, j in pairs], dtype=np.int64),
+        sec_turns=turns,
+        sec_r=per_turn * turns,
+        sec_tap=(pos[:-1] >= lo_use) & (pos[1:] <= hi_use),
+        src=0 if first_low else last,
+        snk=last if first_low else 0,
+        r_full=per_turn * turns_full,
+        scale=(hi_use - lo_use) / (pos[-1] - pos[0]),
+        sign=1.0 if first_low else -1.0,
+    )
+
+
 def winding_arrays(nl: Netlist) -> WindingArrays:
     """The ``WindingArrays`` of a netlist (cached on it).
 
     A CT with two terminals, with two terminals at one position, or with a tap of no turns
     keeps the single-source model only (the site-file validator refuses equal positions).
+    The per-nameplate part is worked out once per distinct (positions, tap, secondary rating,
+    winding resistance), so a fleet of like CTs costs one list of terminal indices each.
     """
     hit = nl.cache.get("windings")
     if hit is not None:
         return hit
-    rows: dict[str, list[Any]] = {
-        k: []
-        for k in (
-            "ct",
-            "names",
-            "term",
-            "term_m",
-            "pair_i",
-            "pair_j",
-            "pair_m",
-            "sec_m",
-            "sec_a",
-            "sec_b",
-            "sec_k",
-            "sec_turns",
-            "sec_r",
-            "sec_tap",
-            "src",
-            "snk",
-            "r_full",
-            "scale",
-            "sign",
-            "first",
-        )
-    }
+    shapes: dict[Any, _Shape | None] = {}
+    shape_list: list[_Shape] = []
+    shape_id: dict[int, int] = {}
+    cts: list[int] = []
+    of: list[int] = []
+    names: list[list[str]] = []
+    term: list[int] = []
+    first: list[int] = []
     for ct in nl.ct_list:
-        if len(ct.terminals) < 3 or ct.secondary_a <= 0:
+        if len(ct.terminals) < 3:
             continue
-        order = sorted(ct.terminals, key=lambda n: (ct.positions[n], n))
-        pos = [ct.positions[n] for n in order]
-        steps = np.diff(pos)
-        lo_use, hi_use = sorted((ct.positions[ct.in_use[0]], ct.positions[ct.in_use[1]]))
-        if (steps <= 0).any() or hi_use <= lo_use:
+        key = (
+            tuple(ct.positions.items()),
+            ct.in_use,
+            ct.secondary_a,
+            getattr(ct, "winding_ohm", None),
+        )
+        if key not in shapes:
+            shapes[key] = _shape(ct)
+        sh = shapes[key]
+        if sh is None:
             continue
-        m = len(rows["ct"])
-        turns_full = (pos[-1] - pos[0]) / ct.secondary_a
-        winding_ohm = getattr(ct, "winding_ohm", None)
-        per_turn = DEFAULT_OHM_PER_TURN if winding_ohm is None else float(winding_ohm) / turns_full
-        per_turn = max(per_turn, MIN_OHM_PER_TURN)
-        base = len(rows["term"])
-        rows["ct"].append(ct.index)
-        rows["names"].append(order)
-        rows["term"] += [ct.terminals[n] for n in order]
-        rows["term_m"] += [m] * len(order)
-        use = {order.index(ct.in_use[0]), order.index(ct.in_use[1])}
-        for i, j in itertools.combinations(range(len(order)), 2):
-            if {i, j} != use:
-                rows["pair_i"].append(base + i)
-                rows["pair_j"].append(base + j)
-                rows["pair_m"].append(m)
-        for k, (a, b) in enumerate(itertools.pairwise(order)):
-            turns = (ct.positions[b] - ct.positions[a]) / ct.secondary_a
-            rows["sec_m"].append(m)
-            rows["sec_a"].append(ct.terminals[a])
-            rows["sec_b"].append(ct.terminals[b])
-            rows["sec_k"].append(k)
-            rows["sec_turns"].append(turns)
-            rows["sec_r"].append(per_turn * turns)
-            rows["sec_tap"].append(ct.positions[a] >= lo_use and ct.positions[b] <= hi_use)
-        first_low = ct.positions[ct.in_use[0]] < ct.positions[ct.in_use[1]]
-        lo, hi = ct.terminals[order[0]], ct.terminals[order[-1]]
-        rows["src"].append(lo if first_low else hi)
-        rows["snk"].append(hi if first_low else lo)
-        rows["r_full"].append(per_turn * turns_full)
-        rows["scale"].append((hi_use - lo_use) / (pos[-1] - pos[0]))
-        rows["sign"].append(1.0 if first_low else -1.0)
-        rows["first"].append(ct.first)
+        sid = shape_id.setdefault(id(sh), len(shape_list))
+        if sid == len(shape_list):
+            shape_list.append(sh)
+        cts.append(ct.index)
+        of.append(sid)
+        names.append(sh.order)
+        t = ct.terminals
+        term += [t[n] for n in sh.order]
+        first.append(ct.first)
+    n = len(cts)
+    term_a = np.asarray(term, dtype=np.int64)
+    of_a = np.asarray(of, dtype=np.int64)
+    width = np.asarray([len(sh.order) for sh in shape_list], dtype=np.int64)
+    n_terms = width[of_a] if n else np.zeros(0, dtype=np.int64)
+    base = np.concatenate([[0], np.cumsum(n_terms)[:-1]]).astype(np.int64) if n else n_terms
 
-    def ints(key: str) -> np.ndarray:
-        return np.asarray(rows[key], dtype=np.int64)
+    def spread(local: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """Per-shape local arrays laid out for every CT: (CT m, index of the entry within its
+        shape array, position in ``term`` of ``local``'s value), grouped by m."""
+        ms_parts, k_parts, at_parts = [], [], []
+        for sid, arr in enumerate(local):
+            ms = np.flatnonzero(of_a == sid)
+            if not len(ms) or not len(arr):
+                continue
+            ms_parts.append(np.repeat(ms, len(arr)))
+            k_parts.append(np.tile(np.arange(len(arr)), len(ms)))
+            at_parts.append((base[ms][:, None] + arr[None, :]).ravel())
+        if not ms_parts:
+            empty = np.zeros(0, dtype=np.int64)
+            return empty, empty, empty
+        m_all = np.concatenate(ms_parts)
+        o = np.argsort(m_all, kind="stable")
+        return m_all[o], np.concatenate(k_parts)[o], np.concatenate(at_parts)[o]
 
-    def floats(key: str) -> np.ndarray:
-        return np.asarray(rows[key], dtype=np.float64)
+    pair_m, _, pair_i = spread([sh.pair_i for sh in shape_list])
+    _, _, pair_j = spread([sh.pair_j for sh in shape_list])
+    sec_m, sec_k, sec_lo = spread([np.arange(len(sh.order) - 1) for sh in shape_list])
 
+    def per_sec(attr: str) -> np.ndarray:
+        flat = [getattr(sh, attr) for sh in shape_list]
+        offs = np.concatenate([[0], np.cumsum([len(f) for f in flat])[:-1]]).astype(np.int64)
+        cat = np.concatenate(flat) if flat else np.zeros(0)
+        return cat[offs[of_a[sec_m]] + sec_k] if len(sec_m) else cat[:0]
+
+    def per_ct(values: list[float]) -> np.ndarray:
+        return np.asarray(values, dtype=np.float64)[of_a] if n else np.zeros(0)
+
+    src_l = np.asarray([sh.src for sh in shape_list], dtype=np.int64)
+    snk_l = np.asarray([sh.snk for sh in shape_list], dtype=np.int64)
     hit = WindingArrays(
-        ct=ints("ct"),
-        names=rows["names"],
-        term=ints("term"),
-        term_m=ints("term_m"),
-        pair_i=ints("pair_i"),
-        pair_j=ints("pair_j"),
-        pair_m=ints("pair_m"),
-        sec_m=ints("sec_m"),
-        sec_a=ints("sec_a"),
-        sec_b=ints("sec_b"),
-        sec_k=ints("sec_k"),
-        sec_turns=floats("sec_turns"),
-        sec_r=floats("sec_r"),
-        sec_tap=np.asarray(rows["sec_tap"], dtype=bool),
-        src=ints("src"),
-        snk=ints("snk"),
-        r_full=floats("r_full"),
-        scale=floats("scale"),
-        sign=floats("sign"),
-        first=ints("first"),
+        ct=np.asarray(cts, dtype=np.int64),
+        names=names,
+        term=term_a,
+        term_m=np.repeat(np.arange(n), n_terms),
+        pair_i=pair_i,
+        pair_j=pair_j,
+        pair_m=pair_m,
+        sec_m=sec_m,
+        sec_a=term_a[sec_lo],
+        sec_b=term_a[sec_lo + 1],
+        sec_k=sec_k,
+        sec_turns=per_sec("sec_turns"),
+        sec_r=per_sec("sec_r"),
+        sec_tap=per_sec("sec_tap").astype(bool),
+        src=term_a[base + src_l[of_a]] if n else term_a,
+        snk=term_a[base + snk_l[of_a]] if n else term_a,
+        r_full=per_ct([sh.r_full for sh in shape_list]),
+        scale=per_ct([sh.scale for sh in shape_list]),
+        sign=per_ct([sh.sign for sh in shape_list]),
+        first=np.asarray(first, dtype=np.int64),
     )
     nl.cache["windings"] = hit
     return hit
