@@ -250,7 +250,7 @@ class _StateBatch:
     gnode: np.ndarray
     gpoint: np.ndarray
     windings: WindingArrays
-    wind_imp: np.ndarray  # conduction label of each winding terminal (external paths only)
+    wind_imp: np.ndarray  # conduction label of each winding terminal, its own winding left out
     wind_joined: np.ndarray  # live tapped CT with terminals other than the pair in use joined
     any_joined: list[bool]  # per state: any such CT
     ends_shorted: np.ndarray  # tapped CT whose lowest and highest terminals are one node
@@ -593,11 +593,12 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
         return tn[terms + offs[rows]]
 
     wind_imp = topo.node_imp[tn[wa.term[None, :] + offs[:, None]]]
-    wind_joined = coupled_mask(wa, wind_imp)
-    coupled = wind_joined
+    coupled = coupled_mask(wa, wind_imp)
     solve_topo, solve_y = topo, br_y
-    if coupled.any():
-        solve_topo, solve_y, coupled = _coupled_topology(topo, br_y, wa, coupled, node_of, tn, offs)
+    if wa.n:
+        solve_topo, solve_y, coupled, wind_imp = _coupled_windings(
+            topo, br_y, wa, coupled, ct_open[:, wa.ct], ar, node_of, offs
+        )
     cr, cm = np.nonzero(coupled)
     ct_coupled = np.zeros((n_states, n_ct), dtype=bool)
     ct_coupled[cr, wa.ct[cm]] = True
@@ -675,8 +676,8 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
         gpoint=topo.term_point[gv].reshape(n_states, len(ar.grounds)),
         windings=wa,
         wind_imp=wind_imp,
-        wind_joined=wind_joined & live[:, wa.ct],
-        any_joined=(wind_joined & live[:, wa.ct]).any(axis=1).tolist(),
+        wind_joined=coupled & live[:, wa.ct],
+        any_joined=(coupled & live[:, wa.ct]).any(axis=1).tolist(),
         ends_shorted=topo.term_point[wa.src[None, :] + offs[:, None]]
         == topo.term_point[wa.snk[None, :] + offs[:, None]],
         row_sections=row_sections,
@@ -684,41 +685,76 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
     return [StateEval(batch, s, st) for s, st in enumerate(states)]
 
 
-def _coupled_topology(
+def _coupled_windings(
     topo: Any,
     br_y: np.ndarray,
     wa: WindingArrays,
-    coupled: np.ndarray,
+    joined: np.ndarray,
+    open_tap: np.ndarray,
+    ar: Any,
     node_of: Any,
-    tn: np.ndarray,
     offs: np.ndarray,
-) -> tuple[Any, np.ndarray, np.ndarray]:
-    """The solve's topology with the coupled windings' branches added: (topology, branch
-    admittances, coupled mask). A coupled winding conducts between its terminals, which may
-    join the terminals of another tapped CT across: that one is coupled too (a few rounds
-    settle it). The conduction components (one datum shunt each in ``topology.solve``)
-    then include the windings."""
-    wterm = wa.term[None, :] + offs[:, None]
-    for _ in range(len(wa.ct) + 1):
-        st = stamp(wa, coupled, node_of)
-        imp = components(
-            topo.n_nodes,
-            np.concatenate([topo.br_na, st.na]),
-            np.concatenate([topo.br_nb, st.nb]),
-        )
-        more = coupled | coupled_mask(wa, imp[tn[wterm]])
-        if (more == coupled).all():
-            break
-        coupled = more
+) -> tuple[Any, np.ndarray, np.ndarray, np.ndarray]:
+    """Which tapped windings to solve as coupled sections, and the solve's topology with their
+    branches: (topology, branch admittances, coupled mask: states × tapped CTs, conduction label
+    of each winding terminal as the rest of the network joins them: external paths, and for a
+    winding joined only through others, those windings too).
+
+    A winding must be coupled when a pair of its terminals other than the pair in use is joined
+    by the rest of the network: external paths (``joined``), or paths through other coupled
+    windings, which conduct between all their terminals. That is a fixed point: two CTs whose
+    unused taps are wired to each other (with their taps closed) are each joined only through
+    the other, and both are coupled: the EMFs of their unused sections drive a current round
+    the loop. So: start from every tapped winding whose tap is closed and that has a terminal
+    other than the pair in use wired to anything, and drop those that no other candidate joins
+    across, until none drops. A winding whose tap is open is coupled only by external paths
+    (it is reported open either way, and a loop of open windings has no solution)."""
+    tn = topo.term_node
+    wnodes = tn[wa.term[None, :] + offs[:, None]]
+    cand = joined.copy()
+    in_use = (wa.term == ar.ct_first[wa.ct][wa.term_m]) | (
+        wa.term == ar.ct_second[wa.ct][wa.term_m]
+    )
+    per_node = np.bincount(tn, minlength=topo.n_nodes)
+    degree = np.bincount(topo.br_na, minlength=topo.n_nodes) + np.bincount(
+        topo.br_nb, minlength=topo.n_nodes
+    )
+    wired = ((per_node[wnodes] > 1) | (degree[wnodes] > 0)) & ~in_use[None, :]
+    rows, cols = np.nonzero(wired)
+    cand[rows, wa.term_m[cols]] |= ~open_tap[rows, wa.term_m[cols]]
+    unsure = cand & ~joined
+    labels = topo.node_imp[wnodes]
+    changed = unsure.any()
+    while changed:
+        changed = False
+        for m in np.unique(np.nonzero(unsure)[1]).tolist():
+            others = cand.copy()
+            others[:, m] = False
+            st = stamp(wa, others, node_of)
+            imp = components(
+                topo.n_nodes,
+                np.concatenate([topo.br_na, st.na]),
+                np.concatenate([topo.br_nb, st.nb]),
+            )
+            seen = imp[wnodes]
+            keep = coupled_mask(wa, seen)[:, m]
+            own = wa.term_m == m
+            labels[:, own] = np.where(unsure[:, m : m + 1], seen[:, own], labels[:, own])
+            drop = cand[:, m] & ~keep
+            if drop.any():
+                cand[:, m] &= keep
+                unsure[:, m] &= keep
+                changed = True
+    if not cand.any():
+        return topo, br_y, cand, labels
+    st = stamp(wa, cand, node_of)
+    na = np.concatenate([topo.br_na, st.na])
+    nb = np.concatenate([topo.br_nb, st.nb])
     return (
-        replace(
-            topo,
-            br_na=np.concatenate([topo.br_na, st.na]),
-            br_nb=np.concatenate([topo.br_nb, st.nb]),
-            node_imp=imp,
-        ),
+        replace(topo, br_na=na, br_nb=nb, node_imp=components(topo.n_nodes, na, nb)),
         np.concatenate([br_y, st.y]),
-        coupled,
+        cand,
+        labels,
     )
 
 

@@ -14,9 +14,12 @@ magnetizing reactance of the 120-turn winding is ω·N²·L₁ ≈ 54 kΩ agains
 section resistances of 25–100 mΩ. So the oracle is an ideal core to about 10⁻⁴, and the engine
 must agree with it within 0.1 %.
 
-The circuit (600:5 multi-ratio positions X1 0, X2 100, X3 150, X4 400, X5 600; S4 of
-reference.md): 320 A primary load, winding resistance 0.30 Ω for the full 120 turns (2.5 mΩ per
-turn), leads 0.3 Ω out and back, relay input 0.1 Ω (or 0.2 + j0.3 Ω), ground at the relay.
+The circuits (600:5 multi-ratio positions X1 0, X2 100, X3 150, X4 400, X5 600; S4 of
+reference.md; 320 A primary load, winding resistance 0.30 Ω for the full 120 turns, 2.5 mΩ per
+turn): one CT into one relay input (leads 0.3 Ω out and back, input 0.1 Ω or 0.2 + j0.3 Ω,
+ground at the relay), and the tapped wye panel of tests/analysis/engine/test_windings.py (three
+cores at 0°, −120°, +120°, shared neutral, residual input), where every relay input and every
+section of every CT is compared.
 """
 
 from __future__ import annotations
@@ -69,73 +72,78 @@ def _engine(doc: dict[str, Any], jumpers: list[tuple[str, str]]) -> dict[str, An
     ev = evaluate_states(nl, [st])[0]
     return {
         "relay": ev.inp_cur[0],
-        "sections": {(a, b): i for a, b, _, i in ev.sections("CT")},
+        "inputs": dict(zip(nl.input_keys, ev.inp_cur, strict=True)),
+        "sections": {(c.code, a, b): i for c in nl.ct_list for a, b, _, i in ev.sections(c.code)},
     }
 
 
 def _spice(doc: dict[str, Any], jumpers: list[tuple[str, str]]) -> dict[str, Any]:
-    """Solve the same circuit with coupled inductors in ngspice; currents as complex A."""
+    """Solve the same circuit with coupled inductors in ngspice; currents as complex A.
+
+    Every CT is its own core: a one-turn primary driven by its equipment's load at its phase
+    angle (A 0°, B −120°, C +120°), coupled only with its own sections. Wires are resistors,
+    links 1 µΩ, relay inputs R + L (X at 60 Hz) with an ammeter, jumpers 0 V sources, grounds
+    1 µΩ to node 0, and every node 1 GΩ to node 0 (a path to ground for SPICE)."""
     require_ngspice()
-    ct = doc["cts"][0]
-    order = sorted(ct["terminals"], key=lambda t: ct["terminals"][t])
     node: dict[str, str] = {}
 
     def n(t: str) -> str:
-        if t == doc["grounds"][0]:
-            return "0"
         return node.setdefault(t, f"n{len(node) + 1}")
 
-    turns_full = (ct["terminals"][order[-1]] - ct["terminals"][order[0]]) / ct["secondary_a"]
-    # The record's polarity: secondary current leaves the first terminal in use. With the dots
-    # at the lower-position ends, a first terminal above the second means the primary current
-    # enters the other way.
-    pos = ct["terminals"]
-    primary = "0 pri" if pos[ct["in_use"][0]] < pos[ct["in_use"][1]] else "pri 0"
-    lines = ["* tapped CT, coupled sections", f"Ip {primary} AC {LOAD_A:g} 0", "Rpri pri 0 1e9"]
-    lines.append(f"Lpri pri 0 {L_PER_TURN2_H:g}")
-    inductors = ["Lpri"]
-    for k, (a, b) in enumerate(itertools.pairwise(order)):
-        turns = (ct["terminals"][b] - ct["terminals"][a]) / ct["secondary_a"]
-        # dot at the lower-position end: the secondary current leaves the winding there
-        lines.append(f"Ls{k} {n('CT:' + a)} s{k}m {turns * turns * L_PER_TURN2_H:.12g}")
-        lines.append(f"Rs{k} s{k}m Vs{k}p {WINDING_OHM * turns / turns_full:.12g}")
-        # ammeter: current from b into the section, i.e. leaving at a
-        lines.append(f"Vs{k} {n('CT:' + b)} Vs{k}p 0")
-        inductors.append(f"Ls{k}")
-    m = 0
-    for i in range(len(inductors)):
-        for j in range(i + 1, len(inductors)):
-            m += 1
-            lines.append(f"K{m} {inductors[i]} {inductors[j]} {COUPLING:.12f}")
-    first = f"CT:{ct['in_use'][0]}"
-    for w in doc["wires"]:
-        if w["from"] == first:
-            # ammeter in the lead from the first terminal in use: the relay current
-            lines.append(f"Vrel {n(w['from'])} lead1 0")
-            lines.append(f"Rw0 lead1 {n(w['to'])} {w['r_ohm']:.12g}")
-        else:
-            lines.append(f"Rw{len(lines)} {n(w['from'])} {n(w['to'])} {w['r_ohm']:.12g}")
+    loads = {e["code"]: e.get("max_load_a") for e in doc["equipment"]}
+    lines = ["* tapped CTs, coupled sections"]
+    probes: list[tuple[str, Any]] = []
+    for c_i, ct in enumerate(doc["cts"]):
+        pos = ct["terminals"]
+        order = sorted(pos, key=lambda t: pos[t])
+        turns_full = (pos[order[-1]] - pos[order[0]]) / ct["secondary_a"]
+        angle = {"A": 0.0, "B": -120.0, "C": 120.0}.get(ct.get("phase", "A"), 0.0)
+        # The record's polarity: secondary current leaves the first terminal in use. With the
+        # dots at the lower-position ends, a first terminal above the second means the primary
+        # current enters the other way.
+        primary = f"0 p{c_i}" if pos[ct["in_use"][0]] < pos[ct["in_use"][1]] else f"p{c_i} 0"
+        lines.append(f"Ip{c_i} {primary} AC {loads[ct['equipment']]:g} {angle:g}")
+        lines.append(f"Rp{c_i} p{c_i} 0 1e9")
+        lines.append(f"Lp{c_i} p{c_i} 0 {L_PER_TURN2_H:g}")
+        inductors = [f"Lp{c_i}"]
+        for k, (a, b) in enumerate(itertools.pairwise(order)):
+            turns = (pos[b] - pos[a]) / ct["secondary_a"]
+            name = f"{c_i}_{k}"
+            # dot at the lower-position end: the secondary current leaves the winding there
+            lines.append(
+                f"Ls{name} {n(ct['code'] + ':' + a)} m{name} {turns**2 * L_PER_TURN2_H:.12g}"
+            )
+            lines.append(f"Rs{name} m{name} a{name} {WINDING_OHM * turns / turns_full:.12g}")
+            # ammeter: current from b into the section, i.e. leaving the winding at a
+            lines.append(f"Vs{name} {n(ct['code'] + ':' + b)} a{name} 0")
+            inductors.append(f"Ls{name}")
+            probes.append((f"vs{name}", ("section", ct["code"], a, b)))
+        for i, j in itertools.combinations(inductors, 2):
+            lines.append(f"K{i}{j} {i} {j} {COUPLING:.12f}")
+    for k, w in enumerate(doc["wires"]):
+        lines.append(f"Rw{k} {n(w['from'])} {n(w['to'])} {w['r_ohm']:.12g}")
+    for k, (a, b) in enumerate(doc["links"]):
+        lines.append(f"Rl{k} {n(a)} {n(b)} 1e-6")
     for d in doc["devices"]:
         for inp in d["inputs"]:
             r, x = inp["burden_ohm"]
-            lines.append(f"Rin {n(inp['from'])} inm {r:.12g}")
-            if x:
-                lines.append(f"Lin inm {n(inp['to'])} {x / (2 * math.pi * 60):.12g}")
-            else:
-                lines.append(f"Rinx inm {n(inp['to'])} 1e-9")
+            tag = f"{d['code']}_{inp['name']}".replace("-", "_")
+            lines.append(f"Vi{tag} {n(inp['from'])} i{tag} 0")
+            lines.append(f"Ri{tag} i{tag} j{tag} {r:.12g}")
+            lines.append(f"Li{tag} j{tag} {n(inp['to'])} {max(x, 1e-9) / (2 * math.pi * 60):.12g}")
+            probes.append((f"vi{tag}".lower(), ("input", d["code"], inp["name"])))
     for k, (a, b) in enumerate(jumpers):
         lines.append(f"Vj{k} {n(a)} {n(b)} 0")
+    for k, g in enumerate(doc["grounds"]):
+        lines.append(f"Rg{k} {n(g)} 0 1e-6")
     for t in list(node.values()):
         lines.append(f"Rleak{t} {t} 0 1e9")
-    probes = ["vrel"] + [f"vs{k}" for k in range(len(order) - 1)]
-    lines += [
-        ".options noopac",
-        ".control",
-        "ac lin 1 60 60",
-        "print " + " ".join(f"real({p}#branch) imag({p}#branch)" for p in probes),
-        ".endc",
-        ".end",
-    ]
+    lines += [".options noopac", ".control", "ac lin 1 60 60"]
+    names = [p for p, _ in probes]
+    for k in range(0, len(names), 10):
+        part = names[k : k + 10]
+        lines.append("print " + " ".join(f"real({p}#branch) imag({p}#branch)" for p in part))
+    lines += [".endc", ".end"]
     with tempfile.TemporaryDirectory() as tmp:
         path = Path(tmp) / "tap.cir"
         path.write_text("\n".join(lines) + "\n")
@@ -143,16 +151,18 @@ def _spice(doc: dict[str, Any], jumpers: list[tuple[str, str]]) -> dict[str, Any
             ["ngspice", "-b", str(path)], capture_output=True, text=True, timeout=60, check=False
         )
     values = _parse_currents(run.stdout)
-    if "vrel" not in values:
-        raise AssertionError(f"ngspice gave no result: {run.stdout[-1500:]} {run.stderr[-1500:]}")
-
-    def cur(p: str) -> complex:
-        return values[p]
-
-    return {
-        "relay": cur("vrel"),
-        "sections": {(a, b): cur(f"vs{k}") for k, (a, b) in enumerate(itertools.pairwise(order))},
-    }
+    missing = [p for p in names if p.lower() not in values]
+    if missing:
+        raise AssertionError(
+            f"ngspice gave no {missing[:3]}: {run.stdout[-1500:]} {run.stderr[-800:]}"
+        )
+    out: dict[str, Any] = {"sections": {}, "inputs": {}}
+    for p, what in probes:
+        if what[0] == "section":
+            out["sections"][(what[1], what[2], what[3])] = values[p.lower()]
+        else:
+            out["inputs"][(what[1], what[2])] = values[p.lower()]
+    return out
 
 
 def _parse_currents(text: str) -> dict[str, complex]:
@@ -182,16 +192,42 @@ CASES = [
 ]
 
 
+def _agree(doc: dict[str, Any], jumpers: list[tuple[str, str]], scale: float) -> None:
+    ours = _engine(doc, jumpers)
+    ref = _spice(doc, jumpers)
+    for key, i_ref in ref["inputs"].items():
+        assert abs(ours["inputs"][key] - i_ref) <= TOLERANCE * scale, (key, ours, ref)
+    for key, i_ref in ref["sections"].items():
+        assert abs(ours["sections"][key] - i_ref) <= TOLERANCE * scale, (key, ours, ref)
+
+
 @pytest.mark.oracle
 @pytest.mark.parametrize(("in_use", "z", "jumpers", "tb"), CASES)
 def test_tapped_winding_currents_agree_with_coupled_inductors_in_ngspice(in_use, z, jumpers, tb):
-    doc = _site(in_use, z, tb)
-    ours = _engine(doc, jumpers)
-    ref = _spice(doc, jumpers)
-    scale = LOAD_A * 5 / 600  # the full-winding current, A: the size of every current here
-    assert abs(ours["relay"] - ref["relay"]) <= TOLERANCE * scale, (ours["relay"], ref["relay"])
-    for sec, i_ref in ref["sections"].items():
-        assert abs(ours["sections"][sec] - i_ref) <= TOLERANCE * scale, (sec, ours, ref)
+    # the full-winding current, 320 · 5 / 600 A: the size of every current here
+    _agree(_site(in_use, z, tb), jumpers, LOAD_A * 5 / 600)
+
+
+@pytest.mark.oracle
+@pytest.mark.parametrize(
+    ("wire", "jumpers"),
+    [
+        (None, [("CB-1-A:X4", "CB-1-A:X5")]),  # unused section of one phase: false residual
+        (None, [("CB-1-B:X2", "CB-1-B:X3")]),  # inside the tap of one phase
+        (None, [("CB-1-A:X1", "CB-1-A:X5")]),  # one phase's whole winding shorted
+        (("CB-1-A:X5", "CB-1-B:X5"), []),  # unused taps of two phases wired together
+    ],
+)
+def test_tapped_wye_panel_agrees_with_coupled_inductors_in_ngspice(wire, jumpers):
+    """The tapped wye panel of tests/analysis/engine/test_windings.py (three cores, phases at
+    0°, −120°, +120°, shared neutral and residual input): every relay input and every section
+    of every CT against ngspice."""
+    from tests.analysis.engine.test_windings import tapped_panel
+
+    b = tapped_panel()
+    if wire is not None:
+        b.wire(wire[0], wire[1], 0.1)
+    _agree(b.build(), jumpers, 4.0)
 
 
 def test_hand_worked_ampere_turn_balance_full_tap_with_x2_x3_shorted():
@@ -210,12 +246,13 @@ def test_hand_worked_ampere_turn_balance_full_tap_with_x2_x3_shorted():
     """
     got = _engine(_site(("X1", "X5"), 0.1), [("CT:X2", "CT:X3")])
     assert abs(got["relay"]) == pytest.approx(2.2, rel=1e-9)
-    sec = {k: abs(v) for k, v in got["sections"].items()}
+    sections = {(a, b): v for (_, a, b), v in got["sections"].items()}
+    sec = {k: abs(v) for k, v in sections.items()}
     assert sec == pytest.approx(
         {("X1", "X2"): 2.2, ("X2", "X3"): 7.8, ("X3", "X4"): 2.2, ("X4", "X5"): 2.2}, rel=1e-9
     )
     turns = {("X1", "X2"): 20, ("X2", "X3"): 10, ("X3", "X4"): 50, ("X4", "X5"): 40}
-    assert sum(turns[k] * v for k, v in got["sections"].items()) == pytest.approx(320, rel=1e-9)
+    assert sum(turns[k] * v for k, v in sections.items()) == pytest.approx(320, rel=1e-9)
 
 
 def test_hand_worked_unused_section_shorted_outside_the_tap():
@@ -227,7 +264,7 @@ def test_hand_worked_unused_section_shorted_outside_the_tap():
     ampere-turns: with no winding resistance at all the relay would get nothing."""
     got = _engine(_site(("X1", "X4"), 0.1), [("CT:X4", "CT:X5")])
     assert abs(got["relay"]) == pytest.approx(320 / 260, rel=1e-9)
-    assert abs(got["sections"][("X4", "X5")]) == pytest.approx(320 / 260 * 0.9 / 80 / 0.0025)
+    assert abs(got["sections"][("CT", "X4", "X5")]) == pytest.approx(320 / 260 * 0.9 / 80 / 0.0025)
     doc = _site(("X1", "X4"), 0.1)
     doc["cts"][0]["winding_ohm"] = 0.0  # the engine's floor, 1 µΩ per turn
     assert abs(_engine(doc, [("CT:X4", "CT:X5")])["relay"]) < 0.01 * 4.0

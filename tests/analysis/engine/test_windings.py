@@ -197,3 +197,74 @@ def test_a_differential_relay_sees_the_shorted_section_rule_b():
     trips = [f for f in v.steps[1].findings if f.code == "trip_not_isolated"]
     assert [(f.device, f.input) for f in trips] == [("R87", "IR1")]
     assert "from 4.00 A to 1.23 A (69 % change; R87 is a differential relay)" in trips[0].message
+
+
+def test_a_winding_without_recorded_resistance_takes_2_5_milliohm_per_turn():
+    """No ``winding_ohm``: 2.5 mΩ per turn (windings.py, from memory), i.e. 0.30 Ω for the 120
+    turns of a 600:5 CT, the figure the panel records: the same currents either way."""
+    with_r = tapped_panel()
+    without = tapped_panel()
+    for c in without.doc["cts"]:
+        del c["winding_ohm"]
+    jumper = [("CB-1-A:X4", "CB-1-A:X5")]
+    a = _state(build_netlist(with_r.build()), jumper).inp_cur
+    b = _state(build_netlist(without.build()), jumper).inp_cur
+    assert b == pytest.approx(a, rel=1e-12)
+
+
+def test_windings_joined_across_only_through_each_other_are_both_coupled():
+    """CT-A and CT-B (X1-X4 in use, each with its own relay loop, B's grounded, A's floating):
+    A's X5 is wired to B:X2 and A's loop to B:X3, so A's unused X4-X5 and B's X2-X3 are in one
+    loop that no external path closes by itself: each winding is joined across only through the
+    other. Both EMFs drive current round that loop (with or without a jumper on B), so both are
+    solved as coupled sections: each keeps the ampere-turn balance of its own core (320 A-turns)
+    and delivers at its first terminal what its relay carries (Kirchhoff)."""
+    from tests.analysis.engine.builders import SiteBuilder
+
+    b = SiteBuilder("CAS")
+    b.equipment("CB", max_load_a=320)
+    for k in "AB":
+        b.ct(f"CT-{k}", equipment="CB", terminals=POSITIONS, in_use=("X1", "X4"))
+        b.device(f"R{k}", inputs=[("I", f"R{k}:1", f"R{k}:2", 0.1)])
+        b.wire(f"CT-{k}:X1", f"R{k}:1", 0.3)
+        b.wire(f"R{k}:2", f"CT-{k}:X4", 0.3)
+    b.ground("RB:2")
+    b.wire("CT-A:X5", "CT-B:X2", 0.2)
+    b.wire("RA:2", "CT-B:X3", 0.2)
+    nl = build_netlist(b.build())
+    for jumpers in ([], [("CT-B:X4", "CT-B:X5")]):
+        ev = _state(nl, jumpers)
+        cur = dict(zip(nl.input_keys, ev.inp_cur, strict=True))
+        for k in "AB":
+            sections = ev.sections(f"CT-{k}")
+            assert abs(sum(t * i for *_, t, i in sections)) == pytest.approx(320, rel=1e-9)
+            assert ev.delivered(f"CT-{k}") == pytest.approx(cur[(f"R{k}", "I")], abs=1e-9)
+        # the loop current: A's unused section carries what B's X2-X3 carries beyond its tap's
+        a45 = ev.sections("CT-A")[3][3]
+        b_sec = {(x, y): i for x, y, _, i in ev.sections("CT-B")}
+        assert abs(a45) > 0.1
+        assert abs(b_sec[("X2", "X3")] - b_sec[("X1", "X2")]) == pytest.approx(abs(a45))
+        assert set(ev.partial) == {"CT-A", "CT-B"}
+
+
+def test_unused_taps_of_two_phases_wired_together_circulate_current():
+    """A wiring error: X5 of phase A wired (0.1 Ω) to X5 of phase B in the tapped wye panel.
+    Neither winding is joined across by an external path alone, but the loop A:X4 → A's X4-X5
+    (40 turns) → the wire → B's X5-X4 → the star closes through both, and the EMFs of the two
+    unused sections (phases 120° apart) drive a current round it. What holds whatever the
+    figures: the two unused sections carry the wire's current, opposite in sense; each core keeps
+    its ampere-turn balance; both CTs are named. The figures themselves are checked against
+    ngspice (tests/reference/test_windings_reference.py). The single-source model saw no
+    current in the wire at all."""
+    b = tapped_panel()
+    b.wire("CB-1-A:X5", "CB-1-B:X5", 0.1)
+    nl = build_netlist(b.build())
+    ev = _state(nl, [])
+    ia = ev.sections("CB-1-A")[3][3]
+    ib = ev.sections("CB-1-B")[3][3]
+    assert ia == pytest.approx(-ib, abs=1e-9)
+    assert abs(ia) > 1.0
+    for p in "AB":
+        total = sum(t * i for *_, t, i in ev.sections(f"CB-1-{p}"))
+        assert abs(total) == pytest.approx(320, rel=1e-9)
+    assert set(ev.partial) == {"CB-1-A", "CB-1-B"}
