@@ -1084,6 +1084,8 @@ def check_partial(nl: Netlist, ev: StateEval, stage: str | None) -> list[Finding
         ideal = ct.load_secondary_a
         if ev.ct_open[ct.index]:
             tail = "; the tap in use is open"
+        elif ideal <= 0:
+            tail = f"; the tap in use delivers {_fmt_a(now)} (no load recorded)"
         else:
             tail = (
                 f"; the tap in use delivers {_fmt_a(now)} instead of {_fmt_a(ideal)} "

@@ -268,3 +268,13 @@ def test_unused_taps_of_two_phases_wired_together_circulate_current():
         total = sum(t * i for *_, t, i in ev.sections(f"CB-1-{p}"))
         assert abs(total) == pytest.approx(320, rel=1e-9)
     assert set(ev.partial) == {"CB-1-A", "CB-1-B"}
+
+
+def test_a_partial_short_on_a_ct_whose_equipment_carries_no_load_still_reads():
+    """A 0 A maximum load: the section is still named (the jumper is there whatever the load),
+    with 0 A figures and no percentage of nothing."""
+    nl = build_netlist(tapped_panel(max_load_a=0).build())
+    v = check_operations(nl, [{"add_jumper": ["CB-1-A:X4", "CB-1-A:X5"], "id": "J1"}])
+    (f,) = [f for f in v.steps[1].findings if f.code == "partial_winding_short"]
+    assert "X4-X5 (400-600 A, 40 turns, outside the tap in use) carries 0 A" in f.message
+    assert "(no load recorded)" in f.message
