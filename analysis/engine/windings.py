@@ -272,8 +272,6 @@ class Stamp:
     na: np.ndarray
     nb: np.ndarray
     y: np.ndarray
-    rows: np.ndarray  # state of each coupled (state, tapped CT) pair
-    ms: np.ndarray  # tapped CT of each pair
 
 
 def stamp(wa: WindingArrays, coupled: np.ndarray, node_of: Any) -> Stamp:
@@ -291,7 +289,7 @@ def stamp(wa: WindingArrays, coupled: np.ndarray, node_of: Any) -> Stamp:
     na = np.concatenate([node_of(srow, wa.sec_a[sec]), node_of(rows, wa.src[ms])])
     nb = np.concatenate([node_of(srow, wa.sec_b[sec]), node_of(rows, wa.snk[ms])])
     y = np.concatenate([1.0 / wa.sec_r[sec], -1.0 / wa.r_full[ms]]).astype(np.complex128)
-    return Stamp(na=na, nb=nb, y=y, rows=rows, ms=ms)
+    return Stamp(na=na, nb=nb, y=y)
 
 
 def section_currents(
@@ -307,8 +305,9 @@ def section_currents(
     its first terminal in use.
 
     For a coupled winding (the module docstring's algebra, R_k = ρ·N_k):
-    j_k = I_src + (V_lo − V_hi) / R − (V_a,k − V_b,k) / R_k, with I_src the injected
-    full-winding current into the lower end (``i_src``: states × tapped CTs, already signed).
+    j_k = I_lo + (V_lo − V_hi) / R − (V_a,k − V_b,k) / R_k, with I_lo the full-winding current
+    injected into the lower end (``i_src``, states × tapped CTs, is the current injected into
+    the end on the first terminal's side; ``sign`` turns it into I_lo).
     Elsewhere the single-source values: ``ideal`` (states × tapped CTs: the signed tap current)
     in the sections of the tap, 0 outside it.
     ``dv(node_a, node_b)`` gives solved voltage differences of the load column."""
