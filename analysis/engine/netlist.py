@@ -158,6 +158,7 @@ class CT:
     second: int
     tap_primary_a: float
     load_secondary_a: float
+    winding_ohm: float | None = None  # full winding, ohms (``windings.py`` shares it by turns)
 
     @property
     def angle_deg(self) -> float:
@@ -448,6 +449,7 @@ def build_netlist(doc: dict[str, Any]) -> Netlist:
             second=tidx[in_use[1]],
             tap_primary_a=tap_a,
             load_secondary_a=load_a,
+            winding_ohm=float(c["winding_ohm"]) if c.get("winding_ohm") is not None else None,
         )
 
     devices: dict[str, Device] = {}

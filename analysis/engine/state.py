@@ -14,11 +14,18 @@ load current (equipment maximum load / ratio; 1 A where unknown) at its phase an
 B −120°, C +120°). A second, *probe* column injects unit currents at unrelated angles so that
 "this input carries no current whatever the CTs do" can be told from "the load currents happen
 to cancel here" (a residual input in a balanced load). Many states are solved in one batch.
+
+A tapped CT whose winding is joined across anywhere but at the pair in use (a jumper across a
+section inside the tap, or across an unused section outside it) is solved as coupled sections
+of one core instead (``windings.py``): the shorted turns take their share of the ampere-turns,
+so the devices' currents change and the trip rules see it; ``partial_winding_short`` gives the
+section currents.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -29,6 +36,14 @@ from analysis.engine.findings import Finding
 from analysis.engine.netlist import Netlist
 from analysis.engine.quantities import PROBE_ZERO_A, Computed, Roles, input_roles
 from analysis.engine.topology import components, solve, topology
+from analysis.engine.windings import (
+    WindingArrays,
+    coupled_mask,
+    section_currents,
+    shorted_sections,
+    stamp,
+    winding_arrays,
+)
 from siterules.procedure_refs import Problem, RecordNames, default_jumper_id, procedure_problems
 
 # Thresholds of the findings table (design.md), as fractions of the largest CT current of the
@@ -38,6 +53,9 @@ APPEAR_FROM = 0.01
 APPEAR_TO = 0.10
 # input_bypassed: the probe current left, as a fraction of the probe current at the start.
 BYPASS_NOW = 0.01
+# A winding section inside the tap in use is shorted when its current differs from what the
+# tap delivers by more than this fraction of the CT's load current.
+INSIDE_SHORT_FRACTION = 0.01
 
 _GOLDEN_RAD = math.pi * (3.0 - math.sqrt(5.0))
 
@@ -231,7 +249,14 @@ class _StateBatch:
     node_circ: np.ndarray
     gnode: np.ndarray
     gpoint: np.ndarray
-    multi_imp: dict[str, dict[str, np.ndarray]]
+    windings: WindingArrays
+    wind_imp: np.ndarray  # conduction label of each winding terminal, its own winding left out
+    wind_joined: np.ndarray  # live tapped CT with terminals other than the pair in use joined
+    any_joined: list[bool]  # per state: any such CT
+    ends_shorted: np.ndarray  # tapped CT whose lowest and highest terminals are one node
+    # row -> (current of each winding section, current each tapped winding delivers at its
+    # first terminal): ``windings.section_currents`` for one state, solved on first use
+    row_sections: Callable[[int], tuple[np.ndarray, np.ndarray]]
 
 
 class StateEval:
@@ -341,26 +366,75 @@ class StateEval:
         return hit
 
     @property
-    def partial(self) -> dict[str, list[tuple[str, str]]]:
-        """Live CT -> the sections outside its tap that are shorted."""
+    def partial(self) -> dict[str, list[tuple[str, str, bool]]]:
+        """Live CT -> its shorted winding sections (lower terminal, higher terminal, inside
+        the tap in use)."""
         hit = self._cache.get("partial")
         if hit is None:
             hit = {}
-            lv = self.live
-            for code, imp in self._b.multi_imp.items():
-                c = self._b.nl.cts[code]
-                if not lv[c.index]:
-                    continue
-                labels = {n: int(v[self._row]) for n, v in imp.items()}
-                distinct = len(set(labels.values()))
-                joined = labels[c.in_use[0]] == labels[c.in_use[1]]
-                if distinct == len(labels) - (1 if joined else 0):
-                    continue  # no terminal shares a conducting part with another
-                sec = _shorted_sections(c, labels)
+            b = self._b
+            wa = b.windings
+            joined = b.wind_joined[self._row]
+            for m in np.flatnonzero(joined).tolist() if b.any_joined[self._row] else ():
+                c = b.nl.ct_list[int(wa.ct[m])]
+                sel = wa.term_m == m
+                labels = b.wind_imp[self._row][sel].tolist()
+                sec = shorted_sections(wa.names[m], c.positions, c.in_use, labels)
+                # Inside the tap, a section is shorted when it carries other than what the
+                # tap delivers (a path at a mid-tap terminal that closes through the tap's own
+                # burden joins every terminal of the tap; only the sections the path really
+                # bypasses carry a different current).
+                sec_cur, delivered = self._sections()
+                cur = sec_cur[wa.sec_m == m].tolist()
+                out_i = delivered[m]
+                floor = INSIDE_SHORT_FRACTION * c.load_secondary_a
+                k_of = {n: k for k, n in enumerate(wa.names[m])}
+                if floor > 0:
+                    sec = [
+                        (a, bb, inside)
+                        for a, bb, inside in sec
+                        if not inside or abs(abs(cur[k_of[a]]) - abs(out_i)) > floor
+                    ]
+                # The whole winding shorted end to end (its lowest and highest terminals
+                # joined with no impedance) is a short of the CT, not of part of it.
+                if b.ends_shorted[self._row][m]:
+                    sec = []
                 if sec:
-                    hit[code] = sec
+                    hit[c.code] = sec
             self._cache["partial"] = hit
         return hit
+
+    def _sections(self) -> tuple[np.ndarray, np.ndarray]:
+        hit = self._cache.get("sections")
+        if hit is None:
+            hit = self._cache["sections"] = self._b.row_sections(self._row)
+        return hit
+
+    def sections(self, ct_code: str) -> list[tuple[str, str, float, complex]]:
+        """The sections of a tapped CT's winding in this state: (lower terminal, higher
+        terminal, turns, current leaving the winding at the lower terminal, A). The
+        single-source values (the tap current in the tap's sections, 0 elsewhere) unless part
+        of the winding is joined across (``windings.py``)."""
+        b = self._b
+        wa = b.windings
+        ct = b.nl.cts[ct_code]
+        hits = np.flatnonzero(wa.ct == ct.index)
+        if not len(hits):
+            return []
+        m = int(hits[0])
+        sel = np.flatnonzero(wa.sec_m == m)
+        names = wa.names[m]
+        cur = self._sections()[0][sel].tolist()
+        turns = wa.sec_turns[sel].tolist()
+        return [(names[k], names[k + 1], turns[k], cur[k]) for k in range(len(sel))]
+
+    def delivered(self, ct_code: str) -> complex | None:
+        """Current a tapped CT's winding delivers into the node of its first terminal in use
+        (the load current where no part of its winding is joined across); None for a CT with
+        two terminals."""
+        b = self._b
+        hits = np.flatnonzero(b.windings.ct == b.nl.cts[ct_code].index)
+        return complex(self._sections()[1][int(hits[0])]) if len(hits) else None
 
 
 def _cached_row(nl: Netlist, key: tuple[Any, ...], make: Any) -> np.ndarray:
@@ -506,18 +580,63 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
     s2 = tn[ar.ct_second[None, :] + offs[:, None]]
     ct_open = topo.node_imp[f] != topo.node_imp[s2]
     ct_circ = topo.node_circ[f]
-    inj = live & ~ct_open
-    probe = np.exp(1j * (0.5 + _GOLDEN_RAD * np.arange(n_ct)))
     load = np.broadcast_to(ar.ct_load, (n_states, n_ct))
+
+    # Tapped windings joined across other than at the pair in use are solved as coupled
+    # sections (windings.py); every other CT stays an ideal source across its tap.
+    wa = winding_arrays(nl)
+
+    def node_of(rows: np.ndarray, terms: np.ndarray) -> np.ndarray:
+        return tn[terms + offs[rows]]
+
+    wind_imp = topo.node_imp[tn[wa.term[None, :] + offs[:, None]]]
+    coupled = coupled_mask(wa, wind_imp)
+    solve_topo, solve_y = topo, br_y
+    if wa.n:
+        solve_topo, solve_y, coupled, wind_imp = _coupled_windings(
+            topo, br_y, wa, coupled, ct_open[:, wa.ct], ar, node_of, offs
+        )
+    cr, cm = np.nonzero(coupled)
+    ct_coupled = np.zeros((n_states, n_ct), dtype=bool)
+    ct_coupled[cr, wa.ct[cm]] = True
+    inj = live & (~ct_open | ct_coupled)
+    fn, sn = f, s2
+    mult = np.ones((n_states, n_ct))
+    if len(cm):
+        fn, sn = f.copy(), s2.copy()
+        fn[cr, wa.ct[cm]] = node_of(cr, wa.src[cm])
+        sn[cr, wa.ct[cm]] = node_of(cr, wa.snk[cm])
+        mult[cr, wa.ct[cm]] = wa.scale[cm]
+    probe = np.exp(1j * (0.5 + _GOLDEN_RAD * np.arange(n_ct)))
     pr = np.broadcast_to(probe, (n_states, n_ct))
-    fi, si = f[inj], s2[inj]
+    fi, si = fn[inj], sn[inj]
+    li, pi = load[inj] * mult[inj], pr[inj] * mult[inj]
     inj_node = np.concatenate([fi, si, fi, si])
     zeros = np.zeros(len(fi), dtype=np.int64)
     inj_col = np.concatenate([zeros, zeros, zeros + 1, zeros + 1])
-    inj_val = np.concatenate([load[inj], -load[inj], pr[inj], -pr[inj]])
+    inj_val = np.concatenate([li, -li, pi, -pi])
     ncols = np.zeros(topo.n_circ, dtype=np.int64)
     ncols[ct_circ[inj]] = 2
-    sol = solve(topo, br_y, inj_node, inj_col, inj_val, ncols)
+    sol = solve(solve_topo, solve_y, inj_node, inj_col, inj_val, ncols)
+
+    all_sections: list[tuple[np.ndarray, np.ndarray]] = []
+
+    def row_sections(row: int) -> tuple[np.ndarray, np.ndarray]:
+        # every state at once on the first request (one vectorized pass), then by row
+        if not all_sections:
+            lv, cts = live[:, wa.ct], wa.ct
+            all_sections.append(
+                section_currents(
+                    wa,
+                    coupled,
+                    np.where(lv & coupled, load[:, cts] * wa.scale[None, :], 0.0),
+                    lambda a, b: sol.dv(a, b, 0),
+                    node_of,
+                    np.where(lv & ~ct_open[:, cts], load[:, cts] * wa.sign[None, :], 0.0),
+                )
+            )
+        cur, out = all_sections[0]
+        return cur[row], out[row]
 
     # device input currents, both columns
     n_in = len(nl.inputs)
@@ -553,32 +672,88 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
         node_circ=topo.node_circ,
         gnode=tn[gv].reshape(n_states, len(ar.grounds)),
         gpoint=topo.term_point[gv].reshape(n_states, len(ar.grounds)),
-        multi_imp={
-            c.code: {name: topo.node_imp[tn[offs + t]] for name, t in c.terminals.items()}
-            for c in cts
-            if len(c.terminals) > 2
-        },
+        windings=wa,
+        wind_imp=wind_imp,
+        wind_joined=coupled & live[:, wa.ct],
+        any_joined=(coupled & live[:, wa.ct]).any(axis=1).tolist(),
+        ends_shorted=topo.term_point[wa.src[None, :] + offs[:, None]]
+        == topo.term_point[wa.snk[None, :] + offs[:, None]],
+        row_sections=row_sections,
     )
     return [StateEval(batch, s, st) for s, st in enumerate(states)]
 
 
-def _shorted_sections(ct: Any, imp: dict[str, int]) -> list[tuple[str, str]]:
-    """Winding sections outside the tap in use that a conducting path joins end to end."""
-    order = sorted(ct.terminals, key=lambda n: (ct.positions[n], n))
-    lo, hi = sorted((ct.positions[ct.in_use[0]], ct.positions[ct.in_use[1]]))
-    shorted: set[int] = set()  # index i = section order[i]–order[i+1]
-    for i, p in enumerate(order):
-        for q in order[i + 1 :]:
-            if {p, q} == set(ct.in_use) or imp[p] != imp[q]:
-                continue
-            pp, pq = ct.positions[p], ct.positions[q]
-            if pp >= lo and pq <= hi:
-                continue  # inside the tap in use
-            for m in range(i, order.index(q)):
-                a, b = ct.positions[order[m]], ct.positions[order[m + 1]]
-                if b > a and (a < lo or b > hi):
-                    shorted.add(m)
-    return [(order[m], order[m + 1]) for m in sorted(shorted)]
+def _coupled_windings(
+    topo: Any,
+    br_y: np.ndarray,
+    wa: WindingArrays,
+    joined: np.ndarray,
+    open_tap: np.ndarray,
+    ar: Any,
+    node_of: Any,
+    offs: np.ndarray,
+) -> tuple[Any, np.ndarray, np.ndarray, np.ndarray]:
+    """Which tapped windings to solve as coupled sections, and the solve's topology with their
+    branches: (topology, branch admittances, coupled mask: states × tapped CTs, conduction label
+    of each winding terminal as the rest of the network joins them: external paths, and for a
+    winding joined only through others, those windings too).
+
+    A winding must be coupled when a pair of its terminals other than the pair in use is joined
+    by the rest of the network: external paths (``joined``), or paths through other coupled
+    windings, which conduct between all their terminals. That is a fixed point: two CTs whose
+    unused taps are wired to each other (with their taps closed) are each joined only through
+    the other, and both are coupled: the EMFs of their unused sections drive a current round
+    the loop. So: start from every tapped winding whose tap is closed and that has a terminal
+    other than the pair in use wired to anything, and drop those that no other candidate joins
+    across, until none drops. A winding whose tap is open is coupled only by external paths
+    (it is reported open either way, and a loop of open windings has no solution)."""
+    tn = topo.term_node
+    wnodes = tn[wa.term[None, :] + offs[:, None]]
+    cand = joined.copy()
+    in_use = (wa.term == ar.ct_first[wa.ct][wa.term_m]) | (
+        wa.term == ar.ct_second[wa.ct][wa.term_m]
+    )
+    per_node = np.bincount(tn, minlength=topo.n_nodes)
+    degree = np.bincount(topo.br_na, minlength=topo.n_nodes) + np.bincount(
+        topo.br_nb, minlength=topo.n_nodes
+    )
+    wired = ((per_node[wnodes] > 1) | (degree[wnodes] > 0)) & ~in_use[None, :]
+    rows, cols = np.nonzero(wired)
+    cand[rows, wa.term_m[cols]] |= ~open_tap[rows, wa.term_m[cols]]
+    unsure = cand & ~joined
+    labels = topo.node_imp[wnodes]
+    changed = unsure.any()
+    while changed:
+        changed = False
+        for m in np.unique(np.nonzero(unsure)[1]).tolist():
+            others = cand.copy()
+            others[:, m] = False
+            st = stamp(wa, others, node_of)
+            imp = components(
+                topo.n_nodes,
+                np.concatenate([topo.br_na, st.na]),
+                np.concatenate([topo.br_nb, st.nb]),
+            )
+            seen = imp[wnodes]
+            keep = coupled_mask(wa, seen)[:, m]
+            own = wa.term_m == m
+            labels[:, own] = np.where(unsure[:, m : m + 1], seen[:, own], labels[:, own])
+            drop = cand[:, m] & ~keep
+            if drop.any():
+                cand[:, m] &= keep
+                unsure[:, m] &= keep
+                changed = True
+    if not cand.any():
+        return topo, br_y, cand, labels
+    st = stamp(wa, cand, node_of)
+    na = np.concatenate([topo.br_na, st.na])
+    nb = np.concatenate([topo.br_nb, st.nb])
+    return (
+        replace(topo, br_na=na, br_nb=nb, node_imp=components(topo.n_nodes, na, nb)),
+        np.concatenate([br_y, st.y]),
+        cand,
+        labels,
+    )
 
 
 # ---------------------------------------------------------------------------------------------
@@ -1115,22 +1290,54 @@ def check_bypassed(
 
 
 def check_partial(nl: Netlist, ev: StateEval, stage: str | None) -> list[Finding]:
-    """``partial_winding_short``: a section of a live CT outside the tap in use is shorted."""
+    """``partial_winding_short``: a section of a live CT's winding is shorted, inside or outside
+    the tap in use. The message gives each shorted section's current and what the tap now
+    delivers against its load current (the winding solved as coupled sections of one core,
+    ``windings.py``): the devices' currents change with it, which the trip rules see."""
     out = []
     for code, sections in ev.partial.items():
         ct = nl.cts[code]
-        txt = ", ".join(f"{a}-{b} ({ct.positions[a]:g}-{ct.positions[b]:g} A)" for a, b in sections)
+        cur = {(a, b): (t, i) for a, b, t, i in ev.sections(code)}
+        parts = []
+        section_a = []
+        for a, b, inside in sections:
+            turns, i = cur[(a, b)]
+            section_a.append(round(abs(i), 4))
+            parts.append(
+                f"{a}-{b} ({ct.positions[a]:g}-{ct.positions[b]:g} A, {turns:g} turns, "
+                f"{'inside' if inside else 'outside'} the tap in use) carries {_fmt_a(abs(i))}"
+            )
+        delivered = ev.delivered(code)
+        now = abs(delivered) if delivered is not None else 0.0
+        ideal = ct.load_secondary_a
+        if ev.ct_open[ct.index]:
+            tail = "; the tap in use is open"
+        elif ideal <= 0:
+            tail = f"; the tap in use delivers {_fmt_a(now)} (no load recorded)"
+        else:
+            tail = (
+                f"; the tap in use delivers {_fmt_a(now)} instead of {_fmt_a(ideal)} "
+                f"({now / ideal * 100:.0f} %: the shorted turns take a share of the core's "
+                f"ampere-turns)"
+            )
         out.append(
             Finding(
                 code=fc.PARTIAL_WINDING_SHORT,
                 message=(
-                    f"CT {code} (tap {ct.in_use[0]}-{ct.in_use[1]}) has winding section "
-                    f"{txt} outside the tap in use shorted"
+                    f"CT {code} ({ct.ratio_text}, tap {ct.in_use[0]}-{ct.in_use[1]}) has "
+                    f"winding section{'s' if len(parts) > 1 else ''} shorted: "
+                    f"{'; '.join(parts)}{tail}"
                 ),
                 ct=code,
                 circuit=ev.circ_id.get(ev.ct_circ[ct.index]),
                 stage=stage,
-                numbers={"sections": [list(s) for s in sections]},
+                numbers={
+                    "sections": [[a, b] for a, b, _ in sections],
+                    "inside_tap": [inside for _, _, inside in sections],
+                    "section_a": section_a,
+                    "delivered_a": round(now, 4),
+                    "load_a": round(ideal, 4),
+                },
             )
         )
     return out

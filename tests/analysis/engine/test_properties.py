@@ -6,17 +6,21 @@
 - burden never decreases when a lead gets longer (Rayleigh's monotonicity law for resistive
   networks, from memory; for the RL panels the lead is in series with the loop);
 - every plan the planner returns passes the checker, and its restoration closes no trip
-  pole before the CT circuits are back as they normally are.
+  pole before the CT circuits are back as they normally are;
+- a tapped winding with sections shorted keeps the ampere-turn balance of its core and never
+  gives a device more than the single-source current (windings.py).
 """
 
 from __future__ import annotations
 
 import random
 
+import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from analysis.engine import build_netlist, check_operations, ct_burdens, plan_isolation
+from analysis.engine.state import apply_op, evaluate_states, normal_state
 from tests.analysis.engine.builders import SiteBuilder, wye_panel
 from tests.analysis.engine.generators import random_mesh
 from tests.analysis.engine.test_state_checks import residual_panel
@@ -244,3 +248,71 @@ def test_the_fast_planner_is_as_short_as_breadth_first_search(device, transition
         assert not plan.possible or any("add_jumper" in op for op in plan.isolate)
         return
     assert (len(plan.isolate), len(plan.restore)) == (iso, back)
+
+
+@SETTINGS
+@given(
+    steps=st.lists(st.integers(1, 80), min_size=2, max_size=4),
+    tap=st.tuples(st.integers(0, 4), st.integers(0, 4)),
+    jumpers=st.lists(st.tuples(st.integers(0, 4), st.integers(0, 4)), max_size=2),
+    z=st.tuples(st.floats(0.05, 5.0), st.floats(0.0, 3.0)),
+    winding_ohm=st.floats(0.01, 2.0),
+    load=st.floats(10, 3000),
+)
+def test_tapped_winding_with_sections_shorted(steps, tap, jumpers, z, winding_ohm, load):
+    """A multi-ratio CT (3 to 5 terminals, positions in steps of 5 A) into one relay input, with
+    up to two jumpers between winding terminals (windings.py: coupled sections of one core).
+
+    - ampere-turn balance of the one core: Σ N_k · j_k = ±I_p (the primary load, one turn);
+    - Kirchhoff at the first terminal: what the sections deliver there is the relay's current;
+    - a shorted section never raises the relay current above the single-source value
+      I_p / N_tap (for an external loop of R ≥ 0 the divisor |N + c·Z| only grows, c ≥ 0);
+    - with nothing across the winding but the tap, the single-source value exactly; with a
+      1 GΩ path across part of the winding instead of a jumper, that value to 10⁻³ (the coupled
+      stamp and the ideal source agree as the diverted current vanishes; it is of the order
+      Z·(N_path / N_tap)² / 1 GΩ, at most 3·10⁻⁴ here).
+    """
+    n = len(steps) + 1
+    names = [f"X{k + 1}" for k in range(n)]
+    positions = {names[0]: 0.0}
+    for k, s in enumerate(steps):
+        positions[names[k + 1]] = positions[names[k]] + 5.0 * s
+    i, j = tap[0] % n, tap[1] % n
+    if i == j:
+        j = (i + 1) % n
+    first, second = names[i], names[j]
+    ideal = load * 5 / abs(positions[first] - positions[second])
+
+    def solve(extra: list[tuple[str, str]], high_z: tuple[str, str] | None = None):
+        b = SiteBuilder("TAPS")
+        b.equipment("CB", max_load_a=load)
+        b.ct("CT", equipment="CB", terminals=positions, in_use=(first, second))
+        b.doc["cts"][0]["winding_ohm"] = winding_ohm
+        inputs = [("I", "R:1", "R:2", complex(*z))]
+        if high_z is not None:
+            inputs.append(("HZ", f"CT:{high_z[0]}", f"CT:{high_z[1]}", 1e9))
+        b.device("R", inputs=inputs)
+        b.wire(f"CT:{first}", "R:1", 0.2)
+        b.wire("R:2", f"CT:{second}", 0.2)
+        b.ground("R:2")
+        nl = build_netlist(b.build())
+        st_ = normal_state(nl)
+        for k, (a, c) in enumerate(extra):
+            _, st_ = apply_op(nl, st_, {"add_jumper": [f"CT:{a}", f"CT:{c}"], "id": f"J{k}"}, 1)
+        return evaluate_states(nl, [st_])[0]
+
+    pairs = [(names[a % n], names[c % n]) for a, c in jumpers if a % n != c % n]
+    ev = solve(pairs)
+    relay = ev.inp_cur[0]
+    sections = ev.sections("CT")
+    balance = sum(t * cur for _, _, t, cur in sections)
+    assert abs(abs(balance) - load) <= 1e-7 * load
+    assert abs(ev.delivered("CT") - relay) <= 1e-7 * ideal + 1e-9
+    assert abs(relay) <= ideal * (1 + 1e-9)
+    if not pairs:
+        assert abs(relay) == pytest.approx(ideal, rel=1e-12)
+    else:
+        a, c = pairs[0]
+        if {a, c} != {first, second}:
+            loose = solve([], high_z=(a, c)).inp_cur[0]
+            assert abs(abs(loose) - ideal) <= 1e-3 * ideal
