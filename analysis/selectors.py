@@ -13,6 +13,7 @@ from typing import Any
 from django.db.models import (
     BooleanField,
     Case,
+    Count,
     F,
     IntegerField,
     OuterRef,
@@ -22,9 +23,11 @@ from django.db.models import (
     Value,
     When,
 )
+from django.db.models.functions import Coalesce
 
 from analysis import models
 from analysis.engine.findings import SEVERITY_ORDER
+from inventory import models as inv
 from inventory.models import Site
 from inventory.selectors import site_documents
 
@@ -220,3 +223,67 @@ def computed_revisions(site_ids: Iterable[int]) -> dict[int, int]:
             "site_id", "revision"
         )
     )
+
+
+# ---------------------------------------------------------------------------------------------
+# reads for the API (each one query, whatever the number of rows)
+
+
+def severity_or_worse(severity: str) -> list[str]:
+    """``severity`` and every severity above it (``warning`` → danger, warning)."""
+    if severity not in SEVERITY_ORDER:
+        raise ValueError(f"unknown severity {severity!r} (one of {', '.join(SEVERITY_ORDER)})")
+    return list(SEVERITY_ORDER[: SEVERITY_ORDER.index(severity) + 1])
+
+
+def findings_for_api() -> QuerySet:
+    """Every stored finding with ``stale`` (filters and the cursor order come from the API)."""
+    return with_stale(models.Finding.objects.all())
+
+
+def sites_overview() -> QuerySet:
+    """Sites with their record counts and where their stored results stand, one query."""
+    computed = models.SiteComputation.objects.filter(site_id=OuterRef("pk"))
+
+    def count(model: Any, field: str = "site_id") -> Subquery:
+        return Subquery(
+            model.objects.filter(**{field: OuterRef("pk")})
+            .order_by()
+            .values(field)
+            .annotate(n=Count("pk"))
+            .values("n")[:1],
+            output_field=IntegerField(),
+        )
+
+    return Site.objects.annotate(
+        n_cts=Coalesce(count(inv.CurrentTransformer), 0),
+        n_devices=Coalesce(count(inv.Device), 0),
+        n_procedures=Coalesce(count(inv.Procedure), 0),
+        computed_revision=Subquery(computed.values("revision")[:1]),
+        computed_at=Subquery(computed.values("computed_at")[:1]),
+        n_findings=Subquery(computed.values("findings")[:1]),
+        n_dangers=Subquery(computed.values("dangers")[:1]),
+        n_unsafe_procedures=Subquery(computed.values("unsafe_procedures")[:1]),
+    ).order_by("code")
+
+
+def ct_report_row(*, site_id: int, ct: str) -> models.CTReport | None:
+    """The stored report row of a CT with ``stale`` (None when not computed yet)."""
+    return with_stale(models.CTReport.objects.filter(site_id=site_id, ct=ct)).first()
+
+
+def procedure_verdict_rows(*, site_id: int) -> dict[str, models.ProcedureVerdict]:
+    """The stored verdict rows of a site's procedures with ``stale``, by procedure code."""
+    rows = with_stale(models.ProcedureVerdict.objects.filter(site_id=site_id))
+    return {row.procedure: row for row in rows}
+
+
+def cts_feeding_device(*, site_id: int, device: str) -> QuerySet:
+    """The CT members of every circuit the device belongs to (one query, the same indexed
+    self-join as ``circuits_sharing_ct``)."""
+    keys = models.CircuitMember.objects.filter(
+        site_id=site_id, kind=models.CircuitMember.Kind.DEVICE, code=device
+    ).values("circuit_key")
+    return models.CircuitMember.objects.filter(
+        site_id=site_id, circuit_key__in=keys, kind=models.CircuitMember.Kind.CT
+    ).order_by("circuit_key", "code")

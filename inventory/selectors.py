@@ -11,6 +11,9 @@ from collections import defaultdict
 from collections.abc import Iterable
 from typing import Any
 
+from django.db.models import Model, OuterRef, Prefetch, QuerySet, Subquery
+from django.db.models.functions import Abs
+
 from inventory import models
 
 SITE_FORMAT = "loopkeep.site/1"
@@ -255,3 +258,65 @@ def site_documents(site_ids: Iterable[int]) -> dict[int, dict]:
 def site_document(site: models.Site) -> dict:
     """The site file document of one stored site."""
     return site_documents([site.pk])[site.pk]
+
+
+# ---------------------------------------------------------------------------------------------
+# reads for the API (a constant number of queries whatever the number of rows)
+
+
+def _tap_position(role: str) -> Subquery:
+    return Subquery(
+        models.Terminal.objects.filter(ct=OuterRef("pk"), tap_role=role).values("position_a")[:1]
+    )
+
+
+def cts_queryset(*, site_id: int) -> QuerySet:
+    """A site's CTs with their equipment, terminals (by position) and the primary amperes of
+    the tap in use (``tap_primary_a``, for the ratio filter)."""
+    return (
+        models.CurrentTransformer.objects.filter(site_id=site_id)
+        .select_related("equipment")
+        .annotate(tap_primary_a=Abs(_tap_position("first") - _tap_position("second")))
+        .prefetch_related(
+            Prefetch(
+                "ct_terminals",
+                queryset=models.Terminal.objects.order_by("position_a", "name"),
+            )
+        )
+    )
+
+
+def devices_queryset(*, site_id: int) -> QuerySet:
+    """A site's devices with their inputs and outputs and the terminals they name."""
+    return models.Device.objects.filter(site_id=site_id).prefetch_related(
+        Prefetch(
+            "inputs",
+            queryset=models.DeviceInput.objects.select_related("from_terminal", "to_terminal"),
+        ),
+        Prefetch(
+            "outputs", queryset=models.DeviceOutput.objects.select_related("terminal", "target")
+        ),
+    )
+
+
+def procedures_queryset(*, site_id: int) -> QuerySet:
+    """A site's procedures with their steps in order."""
+    return models.Procedure.objects.filter(site_id=site_id).prefetch_related(
+        Prefetch("steps", queryset=models.ProcedureStep.objects.order_by("order"))
+    )
+
+
+def tap_changes_queryset() -> QuerySet:
+    """Every recorded tap change with its CT, site and the CT's terminal positions (to give
+    the ratios), oldest first."""
+    return models.TapChange.objects.select_related("ct__site").prefetch_related(
+        Prefetch(
+            "ct__ct_terminals", queryset=models.Terminal.objects.only("ct", "name", "position_a")
+        )
+    )
+
+
+def codes(model: type[Model], *, site_id: int | None = None) -> list[str]:
+    """Every code of ``model`` (of one site), for "did you mean" on a 404."""
+    qs = model.objects.all() if site_id is None else model.objects.filter(site_id=site_id)
+    return list(qs.values_list("code", flat=True))

@@ -37,8 +37,10 @@ INSTALLED_APPS = [
     "django.contrib.messages",
     "django.contrib.staticfiles",
     "rest_framework",
+    "rest_framework.authtoken",
     "django_filters",
     "drf_spectacular",
+    "drf_spectacular_sidecar",
     "simple_history",
     "inventory",
     "analysis",
@@ -108,16 +110,39 @@ STATIC_ROOT = VAR_DIR / "static"
 
 REST_FRAMEWORK = {
     "DEFAULT_SCHEMA_CLASS": "drf_spectacular.openapi.AutoSchema",
+    "DEFAULT_AUTHENTICATION_CLASSES": [
+        "rest_framework.authentication.TokenAuthentication",
+        "rest_framework.authentication.SessionAuthentication",
+    ],
+    # No endpoint falls back to AllowAny: every view needs a signed-in user with a role.
+    "DEFAULT_PERMISSION_CLASSES": ["api.permissions.RolePermission"],
     "DEFAULT_FILTER_BACKENDS": ["django_filters.rest_framework.DjangoFilterBackend"],
-    "DEFAULT_PAGINATION_CLASS": "rest_framework.pagination.PageNumberPagination",
+    "DEFAULT_PAGINATION_CLASS": "api.pagination.CodePagination",
     "PAGE_SIZE": 50,
+    "EXCEPTION_HANDLER": "api.errors.exception_handler",
+    "DEFAULT_THROTTLE_CLASSES": ["rest_framework.throttling.UserRateThrottle"],
+    "DEFAULT_THROTTLE_RATES": {"user": os.environ.get("API_USER_RATE", "6000/min")},
 }
 
 SPECTACULAR_SETTINGS = {
     "TITLE": "Loopkeep API",
-    "DESCRIPTION": "CT secondary circuits, burdens, ratings and isolation-procedure checks.",
+    "DESCRIPTION": (
+        "CT secondary circuits, burdens, ratings and isolation-procedure checks. Every "
+        "procedure verdict and isolation plan is an aid to planning, not a switching order: "
+        "verify field conditions; local codes, the utility's own switching, lockout and tagging "
+        "rules, and licensed, qualified practice take precedence."
+    ),
     "VERSION": "1",
+    "SERVE_INCLUDE_SCHEMA": False,
+    "SERVE_PERMISSIONS": ["api.permissions.RolePermission"],
+    "SWAGGER_UI_DIST": "SIDECAR",
+    "SWAGGER_UI_FAVICON_HREF": "SIDECAR",
+    "REDOC_DIST": "SIDECAR",
+    "COMPONENT_SPLIT_REQUEST": True,
 }
+
+# Largest request body the API reads (a site file of a large substation is a few MB).
+DATA_UPLOAD_MAX_MEMORY_SIZE = int(os.environ.get("API_MAX_BODY_BYTES", str(20 * 1024 * 1024)))
 
 # Background jobs. No broker configured means the embedded default: run tasks in-process.
 CELERY_BROKER_URL = os.environ.get("CELERY_BROKER_URL", "")

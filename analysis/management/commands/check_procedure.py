@@ -7,7 +7,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from analysis import engine
+from analysis import actions
 from analysis.management.base import EXIT_STATUS_HELP, SiteBodyCommand
 from analysis.textout import verdict_text
 
@@ -27,8 +27,7 @@ class Command(SiteBodyCommand):
     many = True
 
     def body(self, doc: dict, name: str) -> dict:
-        netlist = engine.build_netlist(doc)
-        return engine.check_procedure(netlist, name).to_json(doc["site"]["code"])
+        return actions.procedure_check(doc, name)
 
     def unsafe(self, body: dict[str, Any]) -> str | None:
         if body["safe"]:

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from analysis import engine
+from analysis import actions
 from analysis.management.base import EXIT_STATUS_HELP, SiteBodyCommand
 from analysis.textout import plan_text
 
@@ -22,8 +22,7 @@ class Command(SiteBodyCommand):
     thing = "device"
 
     def body(self, doc: dict, name: str) -> dict:
-        netlist = engine.build_netlist(doc)
-        return engine.plan_isolation(netlist, name).to_json(doc["site"]["code"])
+        return actions.isolation_plan(doc, name)
 
     def unsafe(self, body: dict[str, Any]) -> str | None:
         verdict = body.get("verdict") or {}

@@ -1,0 +1,82 @@
+"""Filters of the API's lists (django-filter; documented in the OpenAPI schema)."""
+
+from __future__ import annotations
+
+import django_filters as df
+from django.db.models import QuerySet
+
+from analysis import models as results
+from analysis.engine.findings import SEVERITY_ORDER
+from analysis.engine.ratings.taps import parse_ratio
+from analysis.selectors import severity_or_worse
+from inventory import models
+
+
+class CTFilter(df.FilterSet):
+    equipment = df.CharFilter(field_name="equipment__code", help_text="equipment code")
+    phase = df.ChoiceFilter(choices=[(p, p) for p in "ABCN"])
+    set = df.CharFilter(field_name="set_name", help_text="three-phase set name")
+    accuracy = df.CharFilter(
+        field_name="accuracy", lookup_expr="iexact", help_text="accuracy class, e.g. C400"
+    )
+    ratio = df.CharFilter(method="by_ratio", help_text="ratio of the tap in use, e.g. 400:5")
+
+    class Meta:
+        model = models.CurrentTransformer
+        fields: list[str] = []
+
+    def by_ratio(self, qs: QuerySet, name: str, value: str) -> QuerySet:
+        try:
+            primary, secondary = parse_ratio(value)
+        except ValueError:
+            return qs.none()
+        return qs.filter(tap_primary_a=primary, secondary_a=secondary)
+
+
+class DeviceFilter(df.FilterSet):
+    kind = df.ChoiceFilter(choices=models.Device._meta.get_field("kind").choices)
+    function = df.CharFilter(method="by_function", help_text="IEEE C37.2 device function, e.g. 87B")
+
+    class Meta:
+        model = models.Device
+        fields: list[str] = []
+
+    def by_function(self, qs: QuerySet, name: str, value: str) -> QuerySet:
+        # The functions are a JSON list: match the quoted element in its text, which works
+        # the same on PostgreSQL and SQLite.
+        return qs.filter(functions__icontains=f'"{value}"')
+
+
+class FindingFilter(df.FilterSet):
+    site = df.CharFilter(field_name="site_code")
+    severity = df.ChoiceFilter(
+        choices=[(s, s) for s in SEVERITY_ORDER],
+        method="by_severity",
+        help_text="this severity or worse (danger > warning > caution > notice)",
+    )
+    code = df.CharFilter()
+    ct = df.CharFilter()
+    device = df.CharFilter()
+    procedure = df.CharFilter()
+    stale = df.BooleanFilter()
+
+    class Meta:
+        model = results.Finding
+        fields: list[str] = []
+
+    def by_severity(self, qs: QuerySet, name: str, value: str) -> QuerySet:
+        return qs.filter(severity__in=severity_or_worse(value))
+
+
+class TapChangeFilter(df.FilterSet):
+    site = df.CharFilter(field_name="ct__site__code")
+    ct = df.CharFilter(field_name="ct__code")
+    since = df.IsoDateTimeFilter(field_name="changed_at", lookup_expr="gte")
+    until = df.IsoDateTimeFilter(field_name="changed_at", lookup_expr="lt")
+
+    class Meta:
+        model = models.TapChange
+        fields: list[str] = []
+
+
+__all__ = ["CTFilter", "DeviceFilter", "FindingFilter", "TapChangeFilter"]

@@ -1,0 +1,361 @@
+"""The API's views: thin. Reads go through the selectors of ``inventory`` and ``analysis``,
+answers computed now through ``analysis.actions`` (the same functions as the command line),
+writes through the services of ``inventory``."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from django.http import HttpResponse
+from drf_spectacular.types import OpenApiTypes
+from drf_spectacular.utils import OpenApiParameter, extend_schema
+from rest_framework import generics
+from rest_framework.request import Request
+from rest_framework.response import Response
+from rest_framework.views import APIView
+
+from analysis import actions, selectors
+from analysis.compute import ct_plots
+from analysis.engine import ProcedureError
+from api import filters, serializers
+from api.errors import CodeNotFound, FieldErrors
+from api.pagination import ResultPagination
+from inventory import models as inv
+from inventory import selectors as records
+from inventory.services import SiteImportError, site_import
+
+# ---------------------------------------------------------------------------------------------
+# helpers
+
+
+def _site(code: str) -> inv.Site:
+    site = inv.Site.objects.filter(code=code).first()
+    if site is None:
+        raise CodeNotFound("site", code, records.codes(inv.Site))
+    return site
+
+
+def _coded(model: type[Any], site: inv.Site, code: str, what: str) -> Any:
+    obj = model.objects.filter(site=site, code=code).first()
+    if obj is None:
+        raise CodeNotFound(what, code, records.codes(model, site_id=site.pk), site.code)
+    return obj
+
+
+def _document(site: inv.Site) -> dict[str, Any]:
+    return records.site_document(site)
+
+
+def _stamp(value: Any) -> str | None:
+    return None if value is None else value.isoformat().replace("+00:00", "Z")
+
+
+class SiteScoped:
+    """Views under ``/sites/{site}/``: the site is looked up once, with "did you mean"."""
+
+    kwargs: dict[str, Any]
+
+    @property
+    def site(self) -> inv.Site:
+        if not hasattr(self, "_site_obj"):
+            self._site_obj = _site(self.kwargs["site"])
+        return self._site_obj
+
+
+# ---------------------------------------------------------------------------------------------
+# sites
+
+
+class SiteList(generics.ListAPIView):
+    """Every site with its counts and whether its stored results are current."""
+
+    serializer_class = serializers.SiteSerializer
+    queryset = selectors.sites_overview()
+    pagination_class = None
+
+
+class SiteDetail(SiteScoped, APIView):
+    """One site with its counts and the state of its stored results."""
+
+    @extend_schema(responses=serializers.SiteSerializer)
+    def get(self, request: Request, site: str) -> Response:
+        row = selectors.sites_overview().filter(pk=self.site.pk).first()
+        return Response(serializers.SiteSerializer(row).data)
+
+
+class SiteExport(SiteScoped, APIView):
+    """The site file (``loopkeep.site/1``) of a stored site."""
+
+    @extend_schema(responses=OpenApiTypes.OBJECT)
+    def get(self, request: Request, site: str) -> Response:
+        return Response(_document(self.site))
+
+
+class SiteImport(APIView):
+    """Validate a site file and upsert its site atomically (``?dry_run=1``: say what would
+    change, write nothing). Every error names its JSON pointer; nothing is written on any."""
+
+    @extend_schema(
+        request=OpenApiTypes.OBJECT,
+        responses=OpenApiTypes.OBJECT,
+        parameters=[OpenApiParameter("dry_run", bool, description="validate and count only")],
+    )
+    def post(self, request: Request) -> Response:
+        dry_run = request.query_params.get("dry_run", "").lower() in {"1", "true", "yes"}
+        if not isinstance(request.data, dict):
+            raise FieldErrors("a site file is a JSON object", [("", "expected an object")])
+        try:
+            result = site_import(doc=dict(request.data), dry_run=dry_run, user=request.user)
+        except SiteImportError as exc:
+            pairs = [tuple(e.split(": ", 1)) if ": " in e else ("", e) for e in exc.errors]
+            raise FieldErrors(
+                f"{len(pairs)} error(s) in the site file; nothing was written",
+                [(p, m) for p, m in pairs],
+                key="pointer",
+            ) from exc
+        return Response(
+            {
+                "site": result.site,
+                "dry_run": result.dry_run,
+                "created": dict(result.created),
+                "updated": dict(result.updated),
+                "deleted": dict(result.deleted),
+                "tap_changes": list(result.tap_changes),
+                "summary": result.summary(),
+            }
+        )
+
+
+# ---------------------------------------------------------------------------------------------
+# the record
+
+
+class CTList(SiteScoped, generics.ListAPIView):
+    """A site's CTs with their terminal positions, tap in use and its ratio."""
+
+    serializer_class = serializers.CTSerializer
+    filterset_class = filters.CTFilter
+
+    def get_queryset(self) -> Any:
+        if getattr(self, "swagger_fake_view", False):  # the schema generator
+            return inv.CurrentTransformer.objects.none()
+        return records.cts_queryset(site_id=self.site.pk)
+
+
+class CTDetail(SiteScoped, generics.RetrieveAPIView):
+    serializer_class = serializers.CTSerializer
+
+    def get_object(self) -> Any:
+        code, site = self.kwargs["code"], self.kwargs["site"]
+        ct = records.cts_queryset(site_id=self.site.pk).filter(code=code).first()
+        if ct is None:
+            raise CodeNotFound(
+                "CT", code, records.codes(inv.CurrentTransformer, site_id=self.site.pk), site
+            )
+        return ct
+
+
+class DeviceList(SiteScoped, generics.ListAPIView):
+    """A site's devices with their inputs and outputs."""
+
+    serializer_class = serializers.DeviceSerializer
+    filterset_class = filters.DeviceFilter
+
+    def get_queryset(self) -> Any:
+        if getattr(self, "swagger_fake_view", False):  # the schema generator
+            return inv.Device.objects.none()
+        return records.devices_queryset(site_id=self.site.pk)
+
+
+class DeviceDetail(SiteScoped, generics.RetrieveAPIView):
+    serializer_class = serializers.DeviceSerializer
+
+    def get_object(self) -> Any:
+        code, site = self.kwargs["code"], self.kwargs["site"]
+        device = records.devices_queryset(site_id=self.site.pk).filter(code=code).first()
+        if device is None:
+            raise CodeNotFound(
+                "device", code, records.codes(inv.Device, site_id=self.site.pk), site
+            )
+        return device
+
+
+class ProcedureList(SiteScoped, generics.ListAPIView):
+    """A site's procedures with their steps and their stored verdict (``safe``)."""
+
+    serializer_class = serializers.ProcedureSerializer
+
+    def get_queryset(self) -> Any:
+        if getattr(self, "swagger_fake_view", False):  # the schema generator
+            return inv.Procedure.objects.none()
+        return records.procedures_queryset(site_id=self.site.pk)
+
+    def get_serializer_context(self) -> dict[str, Any]:
+        context = super().get_serializer_context()
+        context["verdicts"] = selectors.procedure_verdict_rows(site_id=self.site.pk)
+        return context
+
+
+class ProcedureDetail(SiteScoped, generics.RetrieveAPIView):
+    """A procedure, its steps and its stored verdict (the full verdict JSON under
+    ``verdict``, null until computed)."""
+
+    serializer_class = serializers.ProcedureSerializer
+
+    def retrieve(self, request: Request, *args: Any, **kwargs: Any) -> Response:
+        code, site = self.kwargs["code"], self.kwargs["site"]
+        proc = records.procedures_queryset(site_id=self.site.pk).filter(code=code).first()
+        if proc is None:
+            raise CodeNotFound(
+                "procedure", code, records.codes(inv.Procedure, site_id=self.site.pk), site
+            )
+        verdicts = selectors.procedure_verdict_rows(site_id=self.site.pk)
+        body = serializers.ProcedureSerializer(proc, context={"verdicts": verdicts}).data
+        row = verdicts.get(code)
+        body["verdict"] = None if row is None else row.verdict
+        return Response(body)
+
+
+class TapChangeList(generics.ListAPIView):
+    """Ratio tap changes across sites: who, when, from, to, ratios and reason."""
+
+    serializer_class = serializers.TapChangeSerializer
+    filterset_class = filters.TapChangeFilter
+    queryset = records.tap_changes_queryset()
+    pagination_class = type(
+        "TapChangePagination", (ResultPagination,), {"ordering": ("changed_at", "id")}
+    )
+
+
+# ---------------------------------------------------------------------------------------------
+# stored results
+
+
+class FindingList(generics.ListAPIView):
+    """Findings of every site (design.md's findings JSON), each with ``stale``."""
+
+    serializer_class = serializers.FindingSerializer
+    filterset_class = filters.FindingFilter
+    queryset = selectors.findings_for_api()
+    pagination_class = ResultPagination
+
+
+class CTReport(SiteScoped, APIView):
+    """The stored CT report (design.md's CT report JSON) with ``computed_at``, the
+    ``revision`` it was computed from and ``stale``."""
+
+    @extend_schema(responses=OpenApiTypes.OBJECT)
+    def get(self, request: Request, site: str, code: str) -> Response:
+        row = selectors.ct_report_row(site_id=self.site.pk, ct=code)
+        if row is None:
+            _coded(inv.CurrentTransformer, self.site, code, "CT")
+            raise CodeNotFound("report of CT", code, [], f"{site} (not computed yet)")
+        return Response(
+            {
+                **row.report,
+                "computed_at": _stamp(row.computed_at),
+                "revision": row.revision,
+                "stale": bool(row.stale),
+            }
+        )
+
+
+class CTPlot(SiteScoped, APIView):
+    """The excitation curve or the burden plot of a CT, as PNG or SVG, from the record now."""
+
+    @extend_schema(responses={(200, "image/png"): OpenApiTypes.BINARY})
+    def get(self, request: Request, site: str, code: str, name: str, fmt: str) -> HttpResponse:
+        if name not in {"excitation", "burden"} or fmt not in {"png", "svg"}:
+            raise CodeNotFound("plot", f"{name}.{fmt}", ["excitation.png", "burden.svg"])
+        _coded(inv.CurrentTransformer, self.site, code, "CT")
+        images = ct_plots(_document(self.site), code, fmt)
+        if name not in images:
+            raise CodeNotFound("plot", f"{name}.{fmt}", [f"{n}.{fmt}" for n in images], site)
+        content_type = "image/png" if fmt == "png" else "image/svg+xml"
+        return HttpResponse(images[name], content_type=content_type)
+
+
+class CTCircuits(SiteScoped, APIView):
+    """Which circuits, CTs and devices share this CT (from the stored circuits)."""
+
+    @extend_schema(responses=OpenApiTypes.OBJECT)
+    def get(self, request: Request, site: str, code: str) -> Response:
+        members = list(selectors.circuits_sharing_ct(site_id=self.site.pk, ct=code))
+        if not members:
+            _coded(inv.CurrentTransformer, self.site, code, "CT")
+        circuits: dict[str, dict[str, list[str]]] = {}
+        for m in members:
+            entry = circuits.setdefault(m.circuit_key, {"cts": [], "devices": []})
+            entry["cts" if m.kind == "ct" else "devices"].append(m.code)
+        return Response(
+            {
+                "site": site,
+                "ct": code,
+                "circuits": [{"key": k, **v} for k, v in circuits.items()],
+            }
+        )
+
+
+class DeviceCTs(SiteScoped, APIView):
+    """Which CTs feed this device (from the stored circuits)."""
+
+    @extend_schema(responses=OpenApiTypes.OBJECT)
+    def get(self, request: Request, site: str, code: str) -> Response:
+        members = list(selectors.cts_feeding_device(site_id=self.site.pk, device=code))
+        if not members:
+            _coded(inv.Device, self.site, code, "device")
+        return Response(
+            {
+                "site": site,
+                "device": code,
+                "cts": sorted({m.code for m in members}),
+                "circuits": sorted({m.circuit_key for m in members}),
+            }
+        )
+
+
+# ---------------------------------------------------------------------------------------------
+# answers computed now (they store nothing: a viewer may ask)
+
+
+class ProcedureCheck(SiteScoped, APIView):
+    """Check a stored procedure now, every transition included (the verdict JSON, exactly as
+    ``check_procedure --json``), with the safety cautions."""
+
+    stores_nothing = True
+
+    @extend_schema(request=None, responses=OpenApiTypes.OBJECT)
+    def post(self, request: Request, site: str, code: str) -> Response:
+        _coded(inv.Procedure, self.site, code, "procedure")
+        try:
+            return Response(actions.procedure_check(_document(self.site), code))
+        except ProcedureError as exc:
+            raise FieldErrors("the procedure cannot be checked", [("steps", str(exc))]) from exc
+
+
+class DraftCheck(SiteScoped, APIView):
+    """Check operations that are not stored (body: ``steps``, optional ``devices``)."""
+
+    stores_nothing = True
+
+    @extend_schema(request=serializers.DraftCheckSerializer, responses=OpenApiTypes.OBJECT)
+    def post(self, request: Request, site: str) -> Response:
+        body = serializers.DraftCheckSerializer(data=request.data)
+        body.is_valid(raise_exception=True)
+        try:
+            verdict = actions.draft_check(
+                _document(self.site), body.validated_data["steps"], body.validated_data["devices"]
+            )
+        except ProcedureError as exc:
+            raise FieldErrors("the steps cannot be checked", [("steps", str(exc))]) from exc
+        return Response(verdict)
+
+
+class IsolationPlan(SiteScoped, APIView):
+    """The shortest safe isolation and restoration of a device (the plan JSON, exactly as
+    ``plan_isolation --json``), with the safety cautions."""
+
+    @extend_schema(responses=OpenApiTypes.OBJECT)
+    def get(self, request: Request, site: str, code: str) -> Response:
+        _coded(inv.Device, self.site, code, "device")
+        return Response(actions.isolation_plan(_document(self.site), code))
