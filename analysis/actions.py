@@ -4,9 +4,14 @@ device's isolation plan. Each body carries the safety cautions (the engine adds 
 
 from __future__ import annotations
 
+import copy
+import json
 from typing import Any
 
 from analysis import engine
+from analysis.compute import ct_report
+from analysis.engine.cautions import cautions
+from inventory.sitefile.validate import validate_site_document
 
 
 def procedure_check(doc: dict[str, Any], procedure: str) -> dict[str, Any]:
@@ -32,3 +37,83 @@ def isolation_plan(doc: dict[str, Any], device: str) -> dict[str, Any]:
     """The isolation plan JSON of ``device``. Raises ``KeyError`` for an unknown device."""
     netlist = engine.build_netlist(doc)
     return engine.plan_isolation(netlist, device).to_json(doc["site"]["code"])
+
+
+def ct_report_now(doc: dict[str, Any], ct: str) -> dict[str, Any]:
+    """The CT report JSON computed from ``doc`` now (not the stored one)."""
+    return ct_report(doc, ct)
+
+
+class WhatIfError(ValueError):
+    """A hypothetical change that does not apply to the record: ``errors`` holds
+    ``(path in the request, message)`` pairs."""
+
+    def __init__(self, errors: list[tuple[str, str]]) -> None:
+        self.errors = errors
+        super().__init__("; ".join(f"{p}: {m}" for p, m in errors))
+
+
+_WIRE_LENGTH_KEYS = ("length_m", "length_ft", "r_ohm", "size", "material")
+_BURDEN_KEYS = ("burden_va", "pf", "burden_ohm", "rated_a")
+
+
+def what_if(doc: dict[str, Any], ct: str, changes: dict[str, Any]) -> dict[str, Any]:
+    """The CT report as it would be after hypothetical changes, nothing stored.
+
+    ``changes`` may hold ``in_use`` (another tap of the CT), ``wires`` (each names a wire by
+    ``from``/``to`` and gives new ``length_m``/``length_ft``/``r_ohm``/``size``/``material``)
+    and ``inputs`` (each names ``device`` and ``input`` and gives a new ``burden_va`` + ``pf``
+    or ``burden_ohm``). The changed site is validated like an import; the answer is the CT
+    report JSON with ``what_if`` (the changes) and the safety cautions."""
+    doc = copy.deepcopy(doc)
+    errors: list[tuple[str, str]] = []
+    cts = {c["code"]: c for c in doc.get("cts", [])}
+    if ct not in cts:
+        raise KeyError(f"no CT {ct!r} at site {doc['site']['code']}")
+    if "in_use" in changes:
+        cts[ct]["in_use"] = changes["in_use"]
+    wires = doc.get("wires", [])
+    for i, change in enumerate(changes.get("wires", [])):
+        ends = {change.get("from"), change.get("to")}
+        hits = [w for w in wires if {w["from"], w["to"]} == ends]
+        if not hits:
+            errors.append(
+                (f"wires/{i}", f"no wire joins {change.get('from')} and {change.get('to')}")
+            )
+            continue
+        for wire in hits:
+            # A wire is a size with one length, or its resistance alone (design.md).
+            if "r_ohm" in change:
+                for key in _WIRE_LENGTH_KEYS:
+                    wire.pop(key, None)
+            elif "length_m" in change or "length_ft" in change:
+                for key in ("length_m", "length_ft", "r_ohm"):
+                    wire.pop(key, None)
+            wire.update({k: v for k, v in change.items() if k in _WIRE_LENGTH_KEYS})
+    devices = {d["code"]: d for d in doc.get("devices", [])}
+    for i, change in enumerate(changes.get("inputs", [])):
+        device = devices.get(change.get("device"))
+        found = (
+            None
+            if device is None
+            else next(
+                (x for x in device.get("inputs", []) if x["name"] == change.get("input")), None
+            )
+        )
+        if found is None:
+            errors.append(
+                (
+                    f"inputs/{i}",
+                    f"no input {change.get('input')!r} on device {change.get('device')!r}",
+                )
+            )
+            continue
+        for key in ("burden_va", "pf", "burden_ohm"):
+            found.pop(key, None)
+        found.update({k: v for k, v in change.items() if k in _BURDEN_KEYS})
+    if not errors:
+        errors = [(e.pointer.lstrip("/"), e.message) for e in validate_site_document(doc)]
+    if errors:
+        raise WhatIfError(errors)
+    report = ct_report(doc, ct)
+    return {**report, "what_if": json.loads(json.dumps(changes)), "cautions": cautions()}

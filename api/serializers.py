@@ -184,3 +184,54 @@ class DraftCheckSerializer(serializers.Serializer):
     devices = serializers.ListField(
         child=serializers.CharField(max_length=60), required=False, default=list
     )
+
+
+class TapChangeBodySerializer(serializers.Serializer):
+    """The body of a tap change: the new terminals in use and why."""
+
+    in_use = serializers.ListField(
+        child=serializers.CharField(max_length=30), min_length=2, max_length=2
+    )
+    reason = serializers.CharField(max_length=150, required=False, default="", allow_blank=True)
+    work_order = serializers.CharField(max_length=40, required=False, default="", allow_blank=True)
+    changed_at = serializers.DateTimeField(required=False, default=None, allow_null=True)
+    move_leads = serializers.BooleanField(
+        default=True,
+        help_text="re-land the leads of the old terminals in use on the new ones (false: "
+        "record the tap only; the check then reports the new tap open until the wiring follows)",
+    )
+
+
+class WhatIfWireSerializer(serializers.Serializer):
+    from_ = serializers.CharField(max_length=100)
+    to = serializers.CharField(max_length=100)
+    length_m = serializers.FloatField(required=False, min_value=0)
+    length_ft = serializers.FloatField(required=False, min_value=0)
+    r_ohm = serializers.FloatField(required=False, min_value=0)
+    size = serializers.CharField(required=False, max_length=20)
+    material = serializers.ChoiceField(choices=["cu", "al"], required=False)
+
+    def get_fields(self) -> dict[str, Any]:
+        fields = super().get_fields()
+        fields["from"] = fields.pop("from_")  # ``from`` is a Python keyword
+        return fields
+
+
+class WhatIfInputSerializer(serializers.Serializer):
+    device = serializers.CharField(max_length=60)
+    input = serializers.CharField(max_length=30)
+    burden_va = serializers.FloatField(required=False, min_value=0)
+    pf = serializers.FloatField(required=False, min_value=0, max_value=1)
+    burden_ohm = serializers.ListField(
+        child=serializers.FloatField(), min_length=2, max_length=2, required=False
+    )
+
+
+class WhatIfSerializer(serializers.Serializer):
+    """Hypothetical changes around one CT: another tap, other lead lengths, other burdens."""
+
+    in_use = serializers.ListField(
+        child=serializers.CharField(max_length=30), min_length=2, max_length=2, required=False
+    )
+    wires = WhatIfWireSerializer(many=True, required=False)
+    inputs = WhatIfInputSerializer(many=True, required=False)

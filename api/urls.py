@@ -25,6 +25,8 @@ urlpatterns = [
         name="ct-plot",
     ),
     path(f"{site}cts/<str:code>/circuits/", views.CTCircuits.as_view(), name="ct-circuits"),
+    path(f"{site}cts/<str:code>/tap-change/", views.CTTapChange.as_view(), name="ct-tap-change"),
+    path(f"{site}cts/<str:code>/what-if/", views.CTWhatIf.as_view(), name="ct-what-if"),
     path(f"{site}devices/", views.DeviceList.as_view(), name="device-list"),
     path(f"{site}devices/<str:code>/", views.DeviceDetail.as_view(), name="device-detail"),
     path(f"{site}devices/<str:code>/cts/", views.DeviceCTs.as_view(), name="device-cts"),

@@ -6,6 +6,8 @@ from __future__ import annotations
 
 from typing import Any
 
+from django.core.exceptions import ValidationError as DjangoValidationError
+from django.db import transaction
 from django.http import HttpResponse
 from drf_spectacular.types import OpenApiTypes
 from drf_spectacular.utils import OpenApiParameter, extend_schema
@@ -22,7 +24,7 @@ from api.errors import CodeNotFound, FieldErrors
 from api.pagination import ResultPagination
 from inventory import models as inv
 from inventory import selectors as records
-from inventory.services import SiteImportError, site_import
+from inventory.services import SiteImportError, ct_change_tap, site_import
 
 # ---------------------------------------------------------------------------------------------
 # helpers
@@ -359,3 +361,70 @@ class IsolationPlan(SiteScoped, APIView):
     def get(self, request: Request, site: str, code: str) -> Response:
         _coded(inv.Device, self.site, code, "device")
         return Response(actions.isolation_plan(_document(self.site), code))
+
+
+# ---------------------------------------------------------------------------------------------
+# writes and what-ifs around one CT
+
+
+class CTTapChange(SiteScoped, APIView):
+    """Change the terminals in use of a CT: the event is recorded (who, when, why), the
+    recompute is requested, and the answer gives the new ratio and every device fed by the CT
+    whose ratio setting no longer matches it."""
+
+    @extend_schema(request=serializers.TapChangeBodySerializer, responses=OpenApiTypes.OBJECT)
+    def post(self, request: Request, site: str, code: str) -> Response:
+        ct = _coded(inv.CurrentTransformer, self.site, code, "CT")
+        body = serializers.TapChangeBodySerializer(data=request.data)
+        body.is_valid(raise_exception=True)
+        data = body.validated_data
+        reason = " ".join(x for x in (data["work_order"], data["reason"]) if x)
+        try:
+            with transaction.atomic():
+                change = ct_change_tap(
+                    ct=ct,
+                    to=tuple(data["in_use"]),
+                    by=request.user.get_username(),
+                    reason=reason,
+                    at=data["changed_at"],
+                    move_leads=data["move_leads"],
+                )
+        except DjangoValidationError as exc:
+            raise FieldErrors(
+                "the tap change was refused; nothing was written",
+                [(k, m) for k, msgs in exc.message_dict.items() for m in msgs],
+            ) from exc
+        report = actions.ct_report_now(_document(self.site), code)
+        mismatched = sorted(
+            {f["device"] for f in report["findings"] if f["code"] == "ratio_setting_mismatch"}
+        )
+        return Response(
+            {
+                "site": site,
+                "ct": code,
+                "from": change.from_tap,
+                "to": change.to_tap,
+                "ratio": report["ratio"],
+                "changed_at": _stamp(change.changed_at),
+                "changed_by": change.changed_by,
+                "reason": change.reason,
+                "ratio_setting_mismatch": mismatched,
+            }
+        )
+
+
+class CTWhatIf(SiteScoped, APIView):
+    """The CT report as it would be with another tap, other leads or other burdens; nothing
+    is stored."""
+
+    stores_nothing = True
+
+    @extend_schema(request=serializers.WhatIfSerializer, responses=OpenApiTypes.OBJECT)
+    def post(self, request: Request, site: str, code: str) -> Response:
+        _coded(inv.CurrentTransformer, self.site, code, "CT")
+        body = serializers.WhatIfSerializer(data=request.data)
+        body.is_valid(raise_exception=True)
+        try:
+            return Response(actions.what_if(_document(self.site), code, body.validated_data))
+        except actions.WhatIfError as exc:
+            raise FieldErrors("the change does not apply to the record", exc.errors) from exc

@@ -17,7 +17,7 @@ from typing import Any
 
 from django.db import models as djm
 from django.db import transaction
-from django.db.models import F
+from django.db.models import F, Q
 from django.utils import timezone
 from django.utils.dateparse import parse_datetime
 from simple_history.utils import bulk_create_with_history, bulk_update_with_history
@@ -596,8 +596,14 @@ def ct_change_tap(
     by: str = "",
     reason: str = "",
     at: dt.datetime | None = None,
+    move_leads: bool = False,
 ) -> models.TapChange:
-    """Change the terminals in use of a CT and record the event."""
+    """Change the terminals in use of a CT and record the event.
+
+    With ``move_leads`` the wires, links and grounds landed on the old terminals in use are
+    re-landed on the new ones (first on first, second on second), as a crew does when it
+    re-taps a CT; without it only the record of the tap changes, and the check then reports
+    the new tap open until the wiring is brought in line."""
     ct = models.CurrentTransformer.objects.select_for_update().get(pk=ct.pk)
     own = {t.name: t for t in models.Terminal.objects.filter(ct=ct)}
     first, second = to
@@ -615,6 +621,8 @@ def ct_change_tap(
         for role in ("first", "second")
     ]
     roles = {first: "first", second: "second"}
+    if move_leads and None not in previous:
+        _reland(own, dict(zip(previous, (first, second), strict=True)))
     moving = [t for t in own.values() if t.tap_role != roles.get(t.name, "")]
     # Clear first (one role per CT is checked row by row), then save each row so that history
     # records the change.
@@ -632,3 +640,27 @@ def ct_change_tap(
     )
     site_record_change(site_id=ct.site_id)
     return change
+
+
+def _reland(own: dict[str, models.Terminal], moves: dict[str, str]) -> None:
+    """Move every wire, link and ground end from the old terminals of a CT to the new ones
+    (all moves at once, so a swap of the two ends stays a swap). Each row is saved one by one
+    so that its history records the move."""
+    old_to_new = {own[a].pk: own[b] for a, b in moves.items() if a != b}
+    if not old_to_new:
+        return
+    ids = list(old_to_new)
+    for model, ends in (
+        (models.Wire, ("from_terminal", "to_terminal")),
+        (models.Link, ("a", "b")),
+        (models.Ground, ("terminal",)),
+    ):
+        query = Q()
+        for end in ends:
+            query |= Q(**{f"{end}_id__in": ids})
+        for row in model.objects.filter(query):
+            for end in ends:
+                new = old_to_new.get(getattr(row, f"{end}_id"))
+                if new is not None:
+                    setattr(row, end, new)
+            row.save()

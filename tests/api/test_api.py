@@ -339,3 +339,94 @@ def test_committed_schema_matches_the_code():
     call_command("spectacular", "--validate", "--fail-on-warn", stdout=out)
     committed = (Path(__file__).resolve().parents[2] / "api" / "openapi.yaml").read_text()
     assert out.getvalue().strip() == committed.strip()
+
+
+# ---------------------------------------------------------------------------------------------
+# tap changes and what-ifs
+
+
+def test_tap_change_records_the_event_and_names_the_mismatched_devices(demo, editor, viewer):
+    site = inv.Site.objects.get(code="QFN")
+    body = {
+        "in_use": ["X2", "X4"],
+        "reason": "re-tap for the new feeder load",
+        "work_order": "WO-77",
+    }
+    refused = viewer.post(f"{V1}/sites/QFN/cts/CB-133-A/tap-change/", body, format="json")
+    assert refused.status_code == 403
+
+    response = editor.post(f"{V1}/sites/QFN/cts/CB-133-A/tap-change/", body, format="json")
+    assert response.status_code == 200, response.json()
+    answer = response.json()
+    # X2 200 A, X4 800 A on the 1200:5 winding: 600:5 (design.md "Terminal positions")
+    assert (answer["from"], answer["to"], answer["ratio"]) == (["X1", "X5"], ["X2", "X4"], "600:5")
+    # R-133 says 600:5 and now matches phase A; R-133N says 1200:5 and no longer does
+    # (fixtures/demo/README: R-133 was left at 600:5, R-133N updated to 1200:5)
+    assert answer["ratio_setting_mismatch"] == ["R-133N"]
+    assert answer["changed_by"] == "u-editor" and answer["reason"].startswith("WO-77")
+    assert inv.Site.objects.get(code="QFN").revision > site.revision
+    history = viewer.get(f"{V1}/tap-changes/?ct=CB-133-A").json()["results"]
+    assert history[-1]["to_ratio"] == "600:5"
+    # the leads followed the tap: X1's lead (a wire to TB-133) is now on X2 and X5's star-point
+    # link on X4, nothing is left on X1 or X5
+    exported = viewer.get(f"{V1}/sites/QFN/export/").json()
+    ends = {e for w in exported["wires"] for e in (w["from"], w["to"]) if "CB-133-A:" in e}
+    ends |= {e for link in exported["links"] for e in link if "CB-133-A:" in e}
+    assert ends == {"CB-133-A:X2", "CB-133-A:X4"}
+    report = viewer.post(f"{V1}/sites/QFN/cts/CB-133-A/what-if/", {}, format="json").json()
+    assert report["ratio"] == "600:5"
+
+
+def test_tap_change_to_a_terminal_the_ct_lacks_is_a_field_error(demo, editor):
+    site = inv.Site.objects.get(code="QFN")
+    body = {"in_use": ["X1", "X9"]}
+    response = editor.post(f"{V1}/sites/QFN/cts/CB-133-A/tap-change/", body, format="json")
+    assert response.status_code == 400
+    assert response.json()["errors"][0]["field"] == "in_use"
+    assert inv.Site.objects.get(code="QFN").revision == site.revision
+
+
+def test_what_if_longer_leads_add_their_resistance_and_store_nothing(demo, viewer):
+    url = f"{V1}/sites/QFN/cts/CB-132-A/what-if/"
+    now = viewer.post(url, {}, format="json").json()
+    longer = viewer.post(
+        url,
+        {"wires": [{"from": "CB-132-A:X1", "to": "TB-132:1", "size": "10AWG", "length_ft": 460}]},
+        format="json",
+    ).json()
+    # 100 ft more of 10 AWG copper at 75 °C: 0.9989 Ω/kft at 20 °C (S13) × (234.5 + 75) /
+    # (234.5 + 20) (reference.md) = 1.2149 Ω/kft, so +0.1215 Ω in both fault cases (the phase
+    # lead carries the CT's current in the ground-fault and the phase-fault case alike)
+    for case in ("ground_fault", "phase_fault"):
+        added = longer["cases"][case]["burden_ohm"]["r"] - now["cases"][case]["burden_ohm"]["r"]
+        assert added == pytest.approx(0.1215, abs=2e-3)
+    assert longer["cautions"] and longer["what_if"]["wires"][0]["length_ft"] == 460
+    stored = viewer.get(f"{V1}/sites/QFN/export/").json()
+    wire = next(w for w in stored["wires"] if w["from"] == "CB-132-A:X1")
+    assert wire["length_ft"] == 360
+
+
+def test_what_if_another_tap_scales_the_class_voltage(demo, viewer):
+    body = viewer.post(
+        f"{V1}/sites/QFN/cts/CB-132-A/what-if/", {"in_use": ["X2", "X4"]}, format="json"
+    ).json()
+    # a 1200:5 C800 used at X2-X4 (600:5) is a C400 (S5, S6 via reference.md)
+    assert body["ratio"] == "600:5"
+    assert body["accuracy"]["voltage_at_tap_v"] == pytest.approx(400.0)
+
+
+def test_what_if_that_does_not_apply_says_where(demo, viewer):
+    url = f"{V1}/sites/QFN/cts/CB-132-A/what-if/"
+    response = viewer.post(
+        url,
+        {
+            "wires": [{"from": "CB-132-A:X1", "to": "TB-999:1", "length_ft": 10}],
+            "inputs": [{"device": "R-132", "input": "IZ", "burden_va": 1.0, "pf": 1.0}],
+        },
+        format="json",
+    )
+    assert response.status_code == 400
+    assert [e["field"] for e in response.json()["errors"]] == ["wires/0", "inputs/0"]
+    bad_tap = viewer.post(url, {"in_use": ["X1", "X9"]}, format="json")
+    assert bad_tap.status_code == 400
+    assert bad_tap.json()["errors"][0]["field"].startswith("cts/")
