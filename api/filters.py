@@ -58,7 +58,11 @@ class FindingFilter(df.FilterSet):
     ct = df.CharFilter()
     device = df.CharFilter()
     procedure = df.CharFilter()
-    stale = df.BooleanFilter()
+    stale = df.TypedChoiceFilter(
+        choices=[("true", "true"), ("false", "false")],
+        coerce=lambda v: v == "true",
+        help_text="true: only findings of results older than their record",
+    )
 
     class Meta:
         model = results.Finding

@@ -3,6 +3,9 @@ tables), 50 rows by default, ``page_size`` up to 500."""
 
 from __future__ import annotations
 
+from typing import Any
+
+from rest_framework.exceptions import NotFound, ValidationError
 from rest_framework.pagination import CursorPagination
 
 
@@ -13,6 +16,13 @@ class CodePagination(CursorPagination):
     page_size = 50
     page_size_query_param = "page_size"
     max_page_size = 500
+
+    def decode_cursor(self, request: Any) -> Any:
+        # A cursor that is not one of ours is a bad request naming the parameter, not a 404.
+        try:
+            return super().decode_cursor(request)
+        except NotFound as exc:
+            raise ValidationError({"cursor": ["not a cursor this API gave out"]}) from exc
 
 
 class ResultPagination(CodePagination):

@@ -1,0 +1,60 @@
+"""OpenAPI post-processing: every operation documents the API's one error shape for the
+errors it can answer (drf-spectacular documents the successes from the views)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+ERROR_SCHEMA: dict[str, Any] = {
+    "type": "object",
+    "description": "The one error shape of the API.",
+    "properties": {
+        "status": {"type": "integer"},
+        "code": {"type": "string"},
+        "detail": {"type": "string"},
+        "errors": {
+            "type": "array",
+            "items": {
+                "type": "object",
+                "properties": {
+                    "field": {"type": "string"},
+                    "pointer": {"type": "string"},
+                    "message": {"type": "string"},
+                },
+                "required": ["message"],
+            },
+        },
+        "did_you_mean": {"type": "array", "items": {"type": "string"}},
+    },
+    "required": ["status", "code", "detail", "errors"],
+}
+
+_TEXT = {
+    "400": "invalid request: each error names its field or JSON pointer; nothing was written",
+    "401": "not signed in",
+    "403": "the account's role does not allow this",
+    "404": "unknown code (with the nearest codes that exist)",
+    "405": "method not allowed",
+    "413": "request body too large",
+    "415": "unsupported media type",
+    "429": "too many requests",
+}
+
+
+def add_error_responses(result: dict[str, Any], generator: Any, **kwargs: Any) -> dict[str, Any]:
+    """drf-spectacular post-processing hook: the error responses of every operation."""
+    result.setdefault("components", {}).setdefault("schemas", {})["Error"] = ERROR_SCHEMA
+    ref = {"application/json": {"schema": {"$ref": "#/components/schemas/Error"}}}
+    for path, item in result.get("paths", {}).items():
+        for method, operation in item.items():
+            codes = ["401", "403", "405", "429"]
+            if "{" in path:
+                codes.append("404")
+            if method in {"post", "put", "patch"} or operation.get("parameters"):
+                codes += ["400"]
+            if method in {"post", "put", "patch"}:
+                codes += ["413", "415"]
+            responses = operation.setdefault("responses", {})
+            for code in sorted(codes):
+                responses.setdefault(code, {"description": _TEXT[code], "content": ref})
+    return result
