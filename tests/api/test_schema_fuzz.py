@@ -13,9 +13,9 @@ from pathlib import Path
 
 import pytest
 import schemathesis
-from schemathesis import checks
 from django.core.wsgi import get_wsgi_application
 from hypothesis import HealthCheck, settings
+from schemathesis import checks
 
 from tests.inventory.docs import small_site
 
