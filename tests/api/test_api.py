@@ -10,6 +10,7 @@ import json
 
 import pytest
 from django.core.management import call_command
+from django.core.management.base import CommandError
 from rest_framework.test import APIClient
 
 from analysis import models as results
@@ -23,8 +24,8 @@ V1 = "/api/v1"
 
 def _cli_json(*args: str) -> dict:
     out = io.StringIO()
-    # a command may exit non-zero for an unsafe verdict; its body is still printed
-    with contextlib.suppress(SystemExit):
+    # an unsafe verdict is a CommandError (exit status 3) after the body is printed in full
+    with contextlib.suppress(CommandError):
         call_command(*args, "--json", stdout=out)
     return json.loads(out.getvalue())
 
