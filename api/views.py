@@ -52,10 +52,29 @@ def _stamp(value: Any) -> str | None:
     return None if value is None else value.isoformat().replace("+00:00", "Z")
 
 
+def _printable_code(text: str) -> bool:
+    try:
+        text.encode("utf-8")
+    except UnicodeEncodeError:
+        return False
+    return text.isprintable()
+
+
 class SiteScoped:
     """Views under ``/sites/{site}/``: the site is looked up once, with "did you mean"."""
 
     kwargs: dict[str, Any]
+
+    def initial(self, request: Request, *args: Any, **kwargs: Any) -> None:
+        super().initial(request, *args, **kwargs)  # type: ignore[misc]
+        # A code is printable text: a NUL (which PostgreSQL refuses in any string) or a lone
+        # surrogate in the path is a bad request, never a query.
+        bad = [k for k, v in kwargs.items() if isinstance(v, str) and not _printable_code(v)]
+        if bad:
+            raise FieldErrors(
+                "the path holds a character no code may hold",
+                [(k, "NUL, control characters and lone surrogates are not allowed") for k in bad],
+            )
 
     @property
     def site(self) -> inv.Site:

@@ -116,6 +116,15 @@ def test_unknown_codes_get_the_nearest_ones(demo, viewer):
     assert body["status"] == 404 and "R-131" in body["did_you_mean"]
 
 
+def test_a_nul_in_a_code_is_a_400_not_a_query(demo, viewer):
+    # PostgreSQL refuses NUL in any string: it must never reach a query (it used to be a 500)
+    response = viewer.get(f"{V1}/sites/Q%00FN/cts/")
+    assert response.status_code == 400
+    assert response.json()["errors"] == [
+        {"field": "site", "message": "NUL, control characters and lone surrogates are not allowed"}
+    ]
+
+
 def test_draft_steps_that_cannot_be_simulated_are_a_400_naming_the_step(demo, viewer):
     response = viewer.post(
         f"{V1}/sites/QFN/check/",

@@ -13,7 +13,9 @@ from pathlib import Path
 
 import pytest
 import schemathesis
+from django.core.signals import request_finished, request_started
 from django.core.wsgi import get_wsgi_application
+from django.db import close_old_connections
 from hypothesis import HealthCheck, settings
 from schemathesis import checks
 
@@ -23,6 +25,17 @@ SCHEMA = Path(__file__).resolve().parents[2] / "api" / "openapi.yaml"
 
 schema = schemathesis.openapi.from_path(SCHEMA)
 schema.app = get_wsgi_application()
+
+
+@pytest.fixture(autouse=True)
+def _keep_the_test_connection():
+    """As Django's test client does: the WSGI handler must not close the test transaction's
+    database connection at the end of each request."""
+    request_started.disconnect(close_old_connections)
+    request_finished.disconnect(close_old_connections)
+    yield
+    request_started.connect(close_old_connections)
+    request_finished.connect(close_old_connections)
 
 
 @pytest.fixture
