@@ -5,14 +5,14 @@ the trips opened (whose, and why another relay's), the CT work (what each operat
 and what it takes off which input, with the currents), a closing note that says how the
 device is free to remove, the restoration, a step to verify the relays' currents (their
 normal values) and the trips closed last. The ``readings`` of a step are what a clamp meter
-would read after it (``readings.state_readings``).
+would read after it (``readings.readings_of``).
 """
 
 from __future__ import annotations
 
 from typing import Any
 
-from analysis.engine.readings import input_readings, shorting_currents, state_readings
+from analysis.engine.readings import input_readings, readings_of, shorting_currents
 from analysis.engine.state import APPEAR_FROM, CHANGE_FRACTION, State, StateEval, apply_op
 
 # Input changes named in one why; the rest are counted.
@@ -216,6 +216,7 @@ def annotate(
     seq = [*trips, *core, *restore_ct]
     n_iso = len(trips) + len(core)
 
+    reads = readings_of(nl, evs)
     steps: list[dict[str, Any]] = []
     for k, op in enumerate(seq):
         b_ev, a_ev = evs[k], evs[k + 1]
@@ -223,13 +224,10 @@ def annotate(
             why = trip_why(search, b_ev, a_ev, changed)
         else:
             why = ct_why(search, op, states[k], states[k + 1], b_ev, a_ev, k >= n_iso)
-        steps.append({**op, "why": why, "readings": state_readings(nl, a_ev)})
+        steps.append({**op, "why": why, "readings": reads[k + 1]})
     isolate = steps[:n_iso]
     moved = list(dict.fromkeys(op["set"] for op in [*trips, *core] if "set" in op))
-    iso_end = evs[n_iso]
-    isolate.append(
-        {**_free_note(search, moved, states[n_iso]), "readings": state_readings(nl, iso_end)}
-    )
+    isolate.append({**_free_note(search, moved, states[n_iso]), "readings": reads[n_iso]})
 
     restore = steps[n_iso:]
     watched = {device} | set(changed)
@@ -257,7 +255,7 @@ def annotate(
             {
                 **op,
                 "why": trip_why(search, b_ev, a_ev, changed),
-                "readings": state_readings(nl, a_ev),
+                "readings": reads[base + m + 1],
             }
         )
     assert states[-1].positions == start.positions and end_restored.jumpers == ()

@@ -23,7 +23,7 @@ from analysis.engine import findings as fc
 from analysis.engine.cautions import cautions
 from analysis.engine.findings import Finding
 from analysis.engine.netlist import Netlist, build_netlist
-from analysis.engine.readings import state_readings
+from analysis.engine.readings import readings_of
 from analysis.engine.state import (
     ProcedureError,
     State,
@@ -263,7 +263,8 @@ def verdict_from_evals(
     way (a multi-position switch) reports each finding of its transition stage once."""
     keys0: set[tuple[Any, ...]] = set()
     raw0 = state_findings(nl, init, init, init, work, "before", None, keys0)
-    results = [StepResult(0, None, tuple(raw0), tuple(state_readings(nl, init)))]
+    reads = readings_of(nl, [init, *(aev for _, aev in steps)])
+    results = [StepResult(0, None, tuple(raw0), tuple(reads[0]))]
     before_ev, before_keys = init, keys0
     for n, (op, (tevs, aev)) in enumerate(zip(ops, steps, strict=True), start=1):
         kept: list[Finding] = []
@@ -280,7 +281,7 @@ def verdict_from_evals(
         kept += state_findings(
             nl, init, before_ev, aev, work, "after", before_keys | trans_keys, after_keys
         )
-        results.append(StepResult(n, op, tuple(kept), tuple(state_readings(nl, aev))))
+        results.append(StepResult(n, op, tuple(kept), tuple(reads[n])))
         before_ev, before_keys = aev, after_keys
     return ProcedureVerdict(
         site=nl.site_code, procedure=code, devices=tuple(sorted(work)), steps=tuple(results)

@@ -392,3 +392,58 @@ def test_a_device_with_nothing_to_isolate_is_reported_as_such():
     b.doc["devices"].append({"code": "86X", "kind": "other", "functions": ["86"]})
     plan = plan_isolation(build_netlist(b.build()), "86X")
     assert not plan.possible and plan.reason == "86X has no inputs or outputs to isolate"
+
+
+def _balanced_zone():
+    """A two-CT differential zone: CT-IN (breaker CB-IN) and CT-OUT (CB-OUT), both 400:5 at
+    400 A load, summed at TB:S so that their secondary currents cancel (CT-OUT's tap is
+    written X2 first: its current leaves X2, wired to TB:N). The summed current runs through
+    test-switch pole TS/1 (jaw onto TS:SB, bonded to TB:N), then recorder D, then R-87's
+    operating input, back to TB:N. R-87 trips through TS/T2."""
+    b = SiteBuilder("ZON")
+    b.block("TB")
+    for eq, tap in (("CB-IN", ("X1", "X2")), ("CB-OUT", ("X2", "X1"))):
+        b.equipment(eq, max_load_a=400)
+        b.ct(f"CT-{eq[3:]}", equipment=eq, in_use=tap)
+    b.wire("CT-IN:X1", "TB:S", 0.2)
+    b.wire("CT-IN:X2", "TB:N", 0.2)
+    b.wire("CT-OUT:X1", "TB:S", 0.2)
+    b.wire("CT-OUT:X2", "TB:N", 0.2)
+    b.ground("TB:N")
+    b.ct_pole("TS/1", "TB:S", "TS:1R", "TS:SB")
+    b.link("TS:SB", "TB:N")
+    b.device("D", kind="recorder", functions=("DFR",), inputs=[("I", "TS:1R", "D:2", 0.05)])
+    b.device(
+        "R-87",
+        functions=("87B",),
+        inputs=[("IOP", "D:2", "TB:N", 0.1)],
+        outputs=[("TRIP", "R-87:T", "86:COIL")],
+    )
+    b.trip_pole("TS/T2", "R-87:T", "TS:T2R")
+    b.wire("TS:T2R", "86:COIL", 1.0)
+    return build_netlist(b.build())
+
+
+def test_a_balanced_differential_in_the_path_gets_its_trip_opened_too():
+    """Taking recorder D out shorts the summed current at TS/1. Under load R-87 reads 0 A
+    before and after (the zone balances: 5.00 A in, 5.00 A out), so no current rule of the
+    checker asks for its trip; but from then on R-87 would not see a fault in the zone, and
+    the crew's work is on its operating circuit: its trip is opened first and closed last
+    (design.md, plans: "also where the currents alone would allow otherwise")."""
+    nl = _balanced_zone()
+    plan = plan_isolation(nl, "D")
+    assert plan.possible
+    assert _ops(plan.isolate)[:2] == [
+        {"set": "TS/T2", "to": "open"},
+        {"set": "TS/1", "to": "open"},
+    ]
+    assert plan.isolate[0]["why"] == (
+        "open R-87's trip TRIP (R-87:T → 86:COIL): the work changes which CT currents reach "
+        "R-87 IOP (it reads 0.00 A under load either way, but would see a fault wrongly)"
+    )
+    # the jaw carries the zone's balance, 0 A; D and R-87 read 0 A throughout
+    assert plan.isolate[1]["readings"] == _r(
+        [(("TS:1R", "D:2"), 0.0), (("D:2", "TB:N"), 0.0), (("TB:S", "TS:SB"), 0.0)]
+    )
+    assert [op.get("set") for op in plan.restore] == ["TS/1", None, "TS/T2"]
+    assert plan.restore[1]["note"].endswith("R-87 IOP 0.00 A")
