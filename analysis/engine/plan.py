@@ -913,6 +913,10 @@ def plan_isolation(netlist: Netlist, device: str) -> IsolationPlan:
             f"{device} (an open CT secondary is a danger now, not only during the work)",
         )
 
+    if _unswitched_outputs(nl, device):
+        # no switch or jumper can part an output wired straight to its target
+        return _impossible(netlist, nl, device, _jumper_candidates(nl, search.start_ev))
+
     relays = [d for d in nl.devices.values() if d.outputs]
     # The outputs a trip-path switch can part (a lockout relay's output wired straight to
     # the breaker has none): for a first search, every one of them is parted.

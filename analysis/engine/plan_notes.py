@@ -163,8 +163,10 @@ def _free_note(search: Any, moved: list[str], end: State) -> dict[str, Any]:
     cases = [c for c in moved if nl.switches[c].kind == "draw_out_case"]
     if cases:
         how = f"draw-out case {', '.join(cases)} withdrawn"
-    else:
+    elif moved:
         how = f"its inputs and outputs are opened at {', '.join(moved)}"
+    else:
+        how = "its CT circuits are shorted ahead of it by temporary jumpers"
     joined = search.free.joined(end)
     if joined:
         terms = ", ".join(nl.terminals[t] for t in joined)
@@ -240,6 +242,9 @@ def annotate(
             "note": (
                 f"verify with a clamp meter, before any trip is closed, that the relays read "
                 f"their normal currents: {listing or 'no inputs'}"
+                if closes
+                else f"verify with a clamp meter that {device} reads its normal currents "
+                f"again: {listing or 'no inputs'}"
             ),
             "why": (
                 "the CT circuits are back as in normal service; a current off its normal "

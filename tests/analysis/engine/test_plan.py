@@ -447,3 +447,74 @@ def test_a_balanced_differential_in_the_path_gets_its_trip_opened_too():
     )
     assert [op.get("set") for op in plan.restore] == ["TS/1", None, "TS/T2"]
     assert plan.restore[1]["note"].endswith("R-87 IOP 0.00 A")
+
+
+def _demo(name):
+    import json
+    from pathlib import Path
+
+    path = Path(__file__).resolve().parents[3] / "fixtures" / "demo" / f"{name}.json"
+    return build_netlist(json.loads(path.read_text()))
+
+
+def _short(op):
+    if "set" in op:
+        return f"{op['set']} {op['to']}"
+    if "add_jumper" in op:
+        return "jumper " + "–".join(op["add_jumper"])
+    return "remove " + op["remove_jumper"] if "remove_jumper" in op else "note"
+
+
+@pytest.mark.parametrize(
+    ("site", "device", "trips", "work"),
+    [
+        ("quillfen", "R-131", ["TS-131/T1"], ["R-131/CASE withdrawn"]),
+        (
+            "quillfen",
+            "R-132",
+            ["TS-132/T1", "TS-132/T2"],
+            [f"TS-132/{p} open" for p in ("1", "2", "3", "N")],
+        ),
+        ("quillfen", "R-87B", ["TS-87B/T1"], [f"TS-87B/{p} open" for p in ("1", "2", "3", "N")]),
+        (
+            "quillfen",
+            "R-87T",
+            ["TS-87T/T1"],
+            ["TB-T1X/SS shorted"]
+            + [f"TS-87T/{p} open" for p in ("1", "2", "3", "N")]
+            + [f"TB-T1X/SL{n} open" for n in (1, 2, 3)],
+        ),
+        ("orrinvale", "RL-L1", ["TB-L1/TL"], ["RL-L1/CASE withdrawn"]),
+        ("orrinvale", "RL-L2", ["TS-L2/T1"], [f"TS-L2/{p} open" for p in ("1", "2", "3", "N")]),
+        ("orrinvale", "RT2", ["TB-T2/TL"], [f"jumper TB-T2:{n}–TB-T2:4" for n in (1, 2, 3)]),
+        (
+            "orrinvale",
+            "RG-T2",
+            ["TB-T2N/TL"],
+            ["TB-T2N/SS shorted", "TB-T2N/SL1 open", "TB-T2N/SL2 open"],
+        ),
+        ("orrinvale", "M-L1", [], [f"jumper TB-L1M:{n}–TB-L1M:4" for n in (1, 2, 3)]),
+    ],
+)
+def test_demo_plans_are_those_the_demo_readme_describes(site, device, trips, work):
+    """fixtures/demo/README.md, "Isolation plans": the trips, the CT work, the closing note;
+    the restoration undoes the work in the reverse order, verifies, then closes the trips in
+    the reverse order, and the whole plan passes its own check."""
+    plan = plan_isolation(_demo(site), device)
+    assert plan.possible and plan.verdict is not None and plan.verdict.safe
+    assert [_short(op) for op in plan.isolate] == [f"{t} open" for t in trips] + work + ["note"]
+    undo = []
+    for op in reversed(_ops(plan.isolate)):
+        if "set" in op and op["set"] not in trips:
+            undo.append(op["set"])
+        elif "add_jumper" in op:
+            undo.append(op["id"])
+    restored = [op.get("set") or op.get("remove_jumper") or "note" for op in plan.restore]
+    assert restored == [*undo, "note", *trips[::-1]]
+
+
+def test_a_lockout_relay_wired_straight_to_the_breakers_cannot_be_isolated():
+    """fixtures/demo/README.md: 86B's outputs go to the four breakers' trip coils by wire."""
+    plan = plan_isolation(_demo("quillfen"), "86B")
+    assert not plan.possible and plan.isolate == ()
+    assert "no switch is on the path of output TRIP-CB-130 (86B:1 → CB-130:TC)" in plan.reason
