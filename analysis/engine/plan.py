@@ -1,24 +1,30 @@
-"""Safe isolation plans: the shortest operation sequence that takes a device out of service.
+"""Isolation plans a planner would sign: the shortest safe way to take a device out of
+service and put it back, in the order the trade works (common practice, no source).
 
-Method: search over circuit states (switch positions and temporary jumpers), states solved in
-batches. The search is pruned to the switches of the device's circuits and trip paths (the
-procedure region). An edge (one operation) is allowed only when neither its transition nor
-its after state has a danger finding (``open_secondary`` on a CT that was not already open,
-``trip_not_isolated``), the device being the one the work is for. The goal: every output of
-the device disconnected from its target and no current in any of its inputs whatever the CTs
-drive (the probe column of ``state.evaluate_states``).
+A plan has three parts, each a search over circuit states solved in batches (``state``):
 
-Isolation (``_shortest_isolation``): a greedy best-first search finds a sequence fast; a lower
-bound on the length of any isolating sequence (a relaxed problem that drops the checks on the
-way, ``_Search.no_shorter_isolation``) proves it shortest, or else breadth-first search
-(nearest switches first, then every switch) finds the shortest. Restoration: A* back to the
-normal state with the number of switches out of their normal position (plus jumpers in
-place) as the heuristic, which is exact for the usual plan. Since ``trip_not_isolated`` also
-covers an output reconnected while an input of its device carries other than its normal
-current, the restoration closes the CT circuits before the trips. Temporary jumpers are tried
-only when switches alone cannot do it, at terminal-block points: for each CT, between the
-terminal-block terminals nearest its two terminals in use (the CT's own terminals where no
-terminal block is recorded on the way).
+1. Trips. Trip-path switches (switches with no contact in a part that holds a CT winding)
+   part the outputs of the device and of every relay whose currents the CT work changes
+   (its load currents move by more than 1 % of the circuit's largest CT current, or its
+   inputs no longer see the same CT currents: a balanced differential that reads 0 A either
+   way). They are opened first, the device's own first, and closed last.
+2. CT work, from the state with the trips open: the shortest sequence of CT-side operations
+   after which the device's inputs carry no current whatever the CTs drive (the probe column
+   of ``state.evaluate_states``), its outputs are parted, and it is free to remove
+   (``_Freedom``: none of its terminals joined to a CT or a trip target beyond what no
+   provision can part). An edge (one operation) is allowed only when no state it passes
+   (transitions, intermediate positions of a multi-position switch) nor its after state has
+   a danger finding (``open_secondary``, ``trip_not_isolated``). A greedy best-first search
+   finds a sequence fast; a lower bound proves it shortest (``no_shorter_isolation``: the
+   switches that must move to part the outputs and to kill the inputs' currents, and a
+   minimum cut for freeing the device), or else breadth-first search, nearest switches
+   first, finds the shortest. Temporary jumpers (at the terminal-block terminals nearest each
+   CT's terminals in use) are tried only when switches alone cannot do it.
+3. Restoration: the CT work undone in the reverse order when that is safe (else A* back to
+   the normal CT-side positions), a step to verify the relays' normal currents, then the
+   trips closed in the reverse order.
+
+``plan_notes.annotate`` gives every step its one-line ``why`` and its expected ``readings``.
 """
 
 from __future__ import annotations
@@ -971,10 +977,11 @@ def plan_isolation(netlist: Netlist, device: str) -> IsolationPlan:
     needed = _trip_sequence(search, needed_outputs)
     if needed is None:
         needed = trips
-    trips = _own_first(search, needed)
-
-    isolate, restore = annotate(search, trips, core, restore_ct, changed)
-    verdict = check_operations(netlist, _stripped([*isolate, *restore]), (device,))
+    for chosen in (_own_first(search, needed), _own_first(search, trips)):
+        isolate, restore = annotate(search, chosen, core, restore_ct, changed)
+        verdict = check_operations(netlist, _stripped([*isolate, *restore]), (device,))
+        if verdict.safe:
+            break
     end_ev = search.eval([_run(nl, start, _stripped(isolate))])[0]
     affected = tuple(
         {

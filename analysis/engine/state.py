@@ -7,7 +7,10 @@ equipment is taken as live). Operations (design.md): ``set``, ``add_jumper``, ``
 
 A ``set`` yields a *transition* state while the switch moves: for ``make_before_break`` the
 union of the contacts closed in the old and in the new position, for ``break_before_make``
-their intersection, for ``simultaneous`` none (the new state at once).
+their intersection, for ``simultaneous`` none (the new state at once). A switch with more than
+two positions (a rotary ammeter or selector switch) moves through the positions between the
+old and the new one in their recorded order (``netlist.Switch.travels``): each is a state of
+its own, with a transition state on each side.
 
 Currents in a state come from one nodal solve (``topology.solve``): each live CT injects its
 load current (equipment maximum load / ratio; 1 A where unknown) at its phase angle (A 0°,
