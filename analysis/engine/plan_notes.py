@@ -263,5 +263,6 @@ def annotate(
                 "readings": reads[base + m + 1],
             }
         )
-    assert states[-1].positions == start.positions and end_restored.jumpers == ()
+    if states[-1].positions != start.positions or end_restored.jumpers:
+        raise RuntimeError(f"the restoration of {device} does not end in the normal state")
     return isolate, restore
