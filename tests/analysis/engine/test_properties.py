@@ -8,7 +8,9 @@
 - every plan the planner returns passes the checker, and its restoration closes no trip
   pole before the CT circuits are back as they normally are;
 - a tapped winding with sections shorted keeps the ampere-turn balance of its core and never
-  gives a device more than the single-source current (windings.py).
+  gives a device more than the single-source current (windings.py);
+- a switch with more than two positions passes every position between the old and the new
+  one: the move opens a live CT exactly when one of those positions (or the new one) does;
 - every plan opens its trips first and closes them last: no CT-side operation before the
   last trip is opened or after the first is closed, the device's outputs are parted before
   the first CT operation, and every relay whose currents differ from normal in some state of
@@ -329,6 +331,10 @@ def _trips_first_and_last(nl, device, plan):
     from analysis.engine.state import APPEAR_FROM, evaluate_states, normal_state
 
     trips = _trip_path_switches(nl)
+    for step in (*plan.isolate, *plan.restore):
+        assert isinstance(step["why"], str) and step["why"] and "\n" not in step["why"]
+        assert all(set(r) <= {"between", "a", "parallel"} for r in step["readings"])
+    assert plan.verdict is not None and plan.verdict.safe == plan.possible
     iso, back = _stripped(list(plan.isolate)), _stripped(list(plan.restore))
 
     def kind(op):
@@ -413,3 +419,49 @@ def test_every_plan_opens_the_trips_of_the_relays_it_disturbs_first(device, tran
     _trips_first_and_last(nl, device, plan)
     opened = {op["set"] for op in plan.isolate if op.get("set") in ("TS-1/T1", "TS-1/T2")}
     assert opened == {"TS-1/T1", "TS-1/T2"}
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    closes=st.lists(st.booleans(), min_size=3, max_size=6),
+    start=st.integers(0, 5),
+    end=st.integers(0, 5),
+)
+def test_a_multi_position_switch_is_checked_in_every_position_it_passes(closes, start, end):
+    """A rotary switch (kind ``other``) whose position k closes the CT onto the meter when
+    ``closes[k]``; it starts in a closing position and is set to another. Simultaneous
+    contacts, so the only states on the way are the positions passed (common practice, no
+    source: a rotary switch rests in each position it passes)."""
+    n = len(closes)
+    start, end = start % n, end % n
+    closes = list(closes)
+    closes[start] = True
+    if start == end:
+        return
+    b = SiteBuilder("ROT")
+    b.equipment("CB", max_load_a=320)
+    b.ct("CT", equipment="CB")
+    b.wire("CT:X1", "TB:1", 0.2)
+    b.wire("CT:X2", "TB:N", 0.2)
+    b.ground("TB:N")
+    positions = tuple(f"P{k}" for k in range(n))
+    segments = [("TB:1", "RS:1", (positions[k],)) for k in range(n) if closes[k]]
+    b.switch(
+        "RS",
+        segments,
+        kind="other",
+        positions=positions,
+        normal=positions[start],
+        transition="simultaneous",
+    )
+    b.device("M", kind="meter", inputs=[("I", "RS:1", "TB:N", 0.05)])
+    v = check_operations(build_netlist(b.build()), [{"set": "RS", "to": positions[end]}])
+    step = 1 if end > start else -1
+    passed = [closes[k] for k in range(start + step, end + step, step)]
+    opened = [f.stage for f in v.steps[1].findings if f.code == "open_secondary"]
+    if all(passed):
+        assert opened == []
+    elif all(passed[:-1]):
+        assert opened == ["after"]  # only the new position is open
+    else:
+        assert opened[0] == "transition"
