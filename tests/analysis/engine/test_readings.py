@@ -190,3 +190,47 @@ def test_each_hop_of_a_rotary_move_gets_its_own_transition():
     assert [(f.code, f.stage) for f in v.steps[1].findings if f.severity == "danger"] == [
         ("open_secondary", "transition")
     ]
+
+
+def _tapped(in_use=("X1", "X2")):
+    """A multi-ratio CT, X1 0 / X2 200 / X3 400 (A primary), 320 A load, into relay R through
+    leads to TB:1 and TB:N."""
+    b = SiteBuilder("TAP")
+    b.equipment("CB", max_load_a=320)
+    b.block("TB")
+    b.ct("CT", equipment="CB", terminals={"X1": 0, "X2": 200, "X3": 400}, in_use=in_use)
+    b.wire(f"CT:{in_use[0]}", "TB:1", 0.3)
+    b.wire(f"CT:{in_use[1]}", "TB:N", 0.3)
+    b.ground("TB:N")
+    b.device("R", inputs=[("IA", "TB:1", "TB:N", 0.2)])
+    return build_netlist(b.build())
+
+
+def test_a_jumper_across_the_tap_of_a_multi_ratio_ct_reads_the_tap_current():
+    """At X1-X2 (200:5) the CT drives 320 / 40 = 8.00 A; a jumper TB:1–TB:N takes all of it
+    (0 Ω against the relay's 0.2 Ω) and the relay reads 0 A."""
+    nl = _tapped()
+    ev = _after(nl, [{"add_jumper": ["TB:1", "TB:N"], "id": "J1"}])
+    assert state_readings(nl, ev) == [
+        {"between": ["TB:1", "TB:N"], "a": 0.0},
+        {"between": ["TB:1", "TB:N"], "a": 8.0},
+    ]
+
+
+def test_a_jumper_across_an_unused_section_carries_that_sections_current():
+    """X1-X2 in use, a jumper across the unused section X2-X3 at the CT: the winding is solved
+    as coupled sections (windings.py). X3 is joined to nothing but its section and the jumper,
+    so by Kirchhoff at X3 the jumper carries exactly that section's current."""
+    nl = _tapped()
+    ev = _after(nl, [{"add_jumper": ["CT:X2", "CT:X3"], "id": "J1"}])
+    (hit,) = shorting_currents(nl, ev)
+    sections = ev._b.row_sections(ev._row)[0]
+    wa = ev._b.windings
+    k = next(
+        n
+        for n in range(len(wa.sec_a))
+        if {nl.terminals[wa.sec_a[n]], nl.terminals[wa.sec_b[n]]} == {"CT:X2", "CT:X3"}
+    )
+    assert hit[1] == ("CT:X2", "CT:X3")
+    assert abs(hit[2] - abs(sections[k])) <= 1e-9 * max(1.0, abs(sections[k]))
+    assert abs(sections[k]) > 0.1  # the shorted section does carry current
