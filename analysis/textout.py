@@ -46,6 +46,15 @@ def findings_lines(findings: list[dict[str, Any]], indent: str = "      ") -> li
     return lines
 
 
+def readings_text(readings: list[dict[str, Any]]) -> str:
+    """Expected clamp-meter readings as ``T1–T2 4.00 A`` items (``≈`` marks a path in
+    parallel with another, whose share is an estimate)."""
+    return ", ".join(
+        f"{r['between'][0]}–{r['between'][1]} {'≈' if r.get('parallel') else ''}{r['a']:.2f} A"
+        for r in readings
+    )
+
+
 def cautions_lines(cautions: list[str]) -> list[str]:
     lines = ["", "CAUTIONS"]
     for caution in cautions:
@@ -70,8 +79,15 @@ def verdict_text(verdict: dict[str, Any]) -> str:
         mark = "!!" if any(f["severity"] == "danger" for f in step["findings"]) else "  "
         lines.append(f"{step['step']:>4}{mark}{op_text(step['op'])}")
         lines.extend(findings_lines(step["findings"]))
+        if step.get("readings"):
+            lines.extend(_wrap("reads: " + readings_text(step["readings"]), "      "))
     lines.extend(cautions_lines(verdict["cautions"]))
     return "\n".join(lines)
+
+
+def _bare(op: dict[str, Any]) -> dict[str, Any]:
+    """A plan step without its ``why`` and ``readings`` (they are printed on their own)."""
+    return {k: v for k, v in op.items() if k not in ("why", "readings")}
 
 
 def plan_text(plan: dict[str, Any]) -> str:
@@ -87,19 +103,26 @@ def plan_text(plan: dict[str, Any]) -> str:
             lines.append("")
             lines.append(f"{title}:")
             for n, op in enumerate(plan[key], start=1):
-                lines.append(f"  {n:>2}. {op_text(op)}")
+                lines.extend(_wrap(op_text(_bare(op)), "      ", first=f"  {n:>2}. "))
+                if op.get("why"):
+                    lines.extend(_wrap("why: " + op["why"], "        ", first="      "))
+                if op.get("readings"):
+                    lines.extend(
+                        _wrap("reads: " + readings_text(op["readings"]), "        ", first="      ")
+                    )
     if plan.get("affected"):
         lines.append("")
         lines.append("Also affected:")
         for item in plan["affected"]:
             text = item.get("message") or json.dumps(item) if isinstance(item, dict) else item
             lines.extend(_wrap(str(text), "    ", first="  - "))
-    for key in ("jumper_points", "needs_jumpers"):
+    for key in ("jumpers_needed",):
         if plan.get(key):
             lines.append("")
             lines.append("Temporary jumpers would be needed at:")
             for item in plan[key]:
-                lines.append(f"  - {item if isinstance(item, str) else json.dumps(item)}")
+                pair = " – ".join(item) if isinstance(item, list | tuple) else str(item)
+                lines.append(f"  - {pair}")
     if plan.get("verdict"):
         lines.append("")
         lines.append(

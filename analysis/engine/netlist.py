@@ -81,6 +81,26 @@ class Switch:
     contacts: tuple[Contact, ...]
     _closed: dict[str, frozenset[int]] = field(default_factory=dict, repr=False)
 
+    @property
+    def travels(self) -> bool:
+        """True when a move passes every position between the old and the new one.
+
+        The site file lists a switch's positions in the order it moves through them. A switch
+        with more than two positions (a rotary ammeter or selector switch, recorded as
+        ``other``; a draw-out case with a test position) cannot jump from one end of its
+        travel to the other, so each position on the way is a state of its own. With two
+        positions there is nothing in between. Taking every kind this way is the safe
+        reading: it checks more states, never fewer (common practice, no source)."""
+        return len(self.positions) > 2
+
+    def path(self, old: str, new: str) -> tuple[str, ...]:
+        """The positions a move from ``old`` to ``new`` reaches in turn, ``new`` last."""
+        if not self.travels or old == new:
+            return (new,)
+        i, j = self.positions.index(old), self.positions.index(new)
+        step = 1 if j > i else -1
+        return tuple(self.positions[k] for k in range(i + step, j + step, step))
+
     def closed(self, position: str) -> frozenset[int]:
         """Global indices of the contacts closed in ``position``."""
         hit = self._closed.get(position)

@@ -1,30 +1,37 @@
-"""Safe isolation plans: the shortest operation sequence that takes a device out of service.
+"""Isolation plans a planner would sign: the shortest safe way to take a device out of
+service and put it back, in the order the trade works (common practice, no source).
 
-Method: search over circuit states (switch positions and temporary jumpers), states solved in
-batches. The search is pruned to the switches of the device's circuits and trip paths (the
-procedure region). An edge (one operation) is allowed only when neither its transition nor
-its after state has a danger finding (``open_secondary`` on a CT that was not already open,
-``trip_not_isolated``), the device being the one the work is for. The goal: every output of
-the device disconnected from its target and no current in any of its inputs whatever the CTs
-drive (the probe column of ``state.evaluate_states``).
+A plan has three parts, each a search over circuit states solved in batches (``state``):
 
-Isolation (``_shortest_isolation``): a greedy best-first search finds a sequence fast; a lower
-bound on the length of any isolating sequence (a relaxed problem that drops the checks on the
-way, ``_Search.no_shorter_isolation``) proves it shortest, or else breadth-first search
-(nearest switches first, then every switch) finds the shortest. Restoration: A* back to the
-normal state with the number of switches out of their normal position (plus jumpers in
-place) as the heuristic, which is exact for the usual plan. Since ``trip_not_isolated`` also
-covers an output reconnected while an input of its device carries other than its normal
-current, the restoration closes the CT circuits before the trips. Temporary jumpers are tried
-only when switches alone cannot do it, at terminal-block points: for each CT, between the
-terminal-block terminals nearest its two terminals in use (the CT's own terminals where no
-terminal block is recorded on the way).
+1. Trips. Trip-path switches (switches with no contact in a part that holds a CT winding)
+   part the outputs of the device and of every relay whose currents the CT work changes
+   (its load currents move by more than 1 % of the circuit's largest CT current, or its
+   inputs no longer see the same CT currents: a balanced differential that reads 0 A either
+   way). They are opened first, the device's own first, and closed last.
+2. CT work, from the state with the trips open: the shortest sequence of CT-side operations
+   after which the device's inputs carry no current whatever the CTs drive (the probe column
+   of ``state.evaluate_states``), its outputs are parted, and it is free to remove
+   (``_Freedom``: none of its terminals joined to a CT or a trip target beyond what no
+   provision can part). An edge (one operation) is allowed only when no state it passes
+   (transitions, intermediate positions of a multi-position switch) nor its after state has
+   a danger finding (``open_secondary``, ``trip_not_isolated``). A greedy best-first search
+   finds a sequence fast; a lower bound proves it shortest (``no_shorter_isolation``: the
+   switches that must move to part the outputs and to kill the inputs' currents, and a
+   minimum cut for freeing the device), or else breadth-first search, nearest switches
+   first, finds the shortest. Temporary jumpers (at the terminal-block terminals nearest each
+   CT's terminals in use) are tried only when switches alone cannot do it.
+3. Restoration: the CT work undone in the reverse order when that is safe (else A* back to
+   the normal CT-side positions), a step to verify the relays' normal currents, then the
+   trips closed in the reverse order.
+
+``plan_notes.annotate`` gives every step its one-line ``why`` and its expected ``readings``.
 """
 
 from __future__ import annotations
 
 import heapq
 import itertools
+import math
 from collections import deque
 from dataclasses import dataclass, replace
 from typing import Any
@@ -43,10 +50,13 @@ from analysis.engine.procedure import (
     touched_terminals,
 )
 from analysis.engine.state import (
+    APPEAR_FROM,
     PROBE_ZERO_A,
     ProcedureError,
     State,
     StateEval,
+    _contact_row,
+    _link_row,
     apply_op,
     check_bypassed,
     check_trip,
@@ -62,6 +72,9 @@ CHUNK = 256
 PROOF_BUDGET = 2_000
 # States the fast (greedy) search may solve before the exact one takes over.
 GREEDY_STATES = 2_000
+# A probe current (per 1 A injected by each CT) that moves by more than this means the input
+# no longer sees the same CT currents.
+PROBE_CHANGE_A = 0.01
 
 
 @dataclass(frozen=True, eq=False)
@@ -109,7 +122,18 @@ class _Search:
         nl.cache.setdefault(("normal_ref", self.start.energized), self.start_ev)
         self.open0 = self.start_ev.live_open
         self.order = _switch_order(nl)
+        trip = _trip_path_switches(nl)
+        self.trip_switches = [c for c in self.order if c in trip]
+        self.ct_switches = [c for c in self.order if c not in trip]
+        self.ct_set = frozenset(self.ct_switches)
+        # The isolation search starts where the trips are open (``plan_isolation`` sets it).
+        self.origin = self.start
+        self.origin_ev = self.start_ev
         self.greedy_exhausted = False
+        self.free = _Freedom(nl, device)
+        # Whether the isolation goal includes "free to remove" (the lower bound of
+        # ``_Freedom.min_moves`` holds only then).
+        self.goal_free = True
 
     def eval(self, states: list[State]) -> list[StateEval]:
         todo = list(dict.fromkeys(s for s in states if s not in self.cache))
@@ -123,6 +147,11 @@ class _Search:
             return True
         return bool(check_trip(self.nl, before, ev, self.work, None))
 
+    def passes_danger(self, before: StateEval, passed: tuple[State, ...]) -> bool:
+        """True when a state passed on the way (transitions, positions of a multi-position
+        switch) is dangerous."""
+        return any(self.dangerous(before, self.cache[p]) for p in passed)
+
     def outputs_open(self, ev: StateEval) -> bool:
         return not any(ev.out_connected[o.index] for o in self.nl.devices[self.device].outputs)
 
@@ -132,6 +161,10 @@ class _Search:
 
     def isolated(self, ev: StateEval) -> bool:
         return self.outputs_open(ev) and self.inputs_dead(ev)
+
+    def isolated_and_free(self, st: State, ev: StateEval) -> bool:
+        """Isolated, and as free to remove as the provisions allow (``_Freedom``)."""
+        return self.isolated(ev) and self.free.attached(st) <= self.free.target
 
     def moves(
         self, st: State, jumpers: list[tuple[str, str]], switches: list[str] | None = None
@@ -151,9 +184,15 @@ class _Search:
         return ops
 
     def away_from_normal(self, st: State) -> int:
-        """Switches out of their normal position plus jumpers in place: a lower bound on the
-        operations back to the normal state that one operation changes by at most 1."""
-        n = sum(1 for a, b in zip(st.positions, self.start.positions, strict=True) if a != b)
+        """CT-side switches out of their normal position plus jumpers in place: a lower bound
+        on the operations back to the normal state of the CT circuits that one operation
+        changes by at most 1 (the trips stay open until the CT circuits are back)."""
+        ct = self.ct_set
+        n = sum(
+            1
+            for a, b in zip(st.positions, self.start.positions, strict=True)
+            if a != b and a[0] in ct
+        )
         return n + len(st.jumpers)
 
     def search(
@@ -179,17 +218,17 @@ class _Search:
         parent: dict[State, tuple[State, dict[str, Any]] | None] = {origin: None}
         if goal(origin, self.eval([origin])[0]):
             return []
-        heap: list[tuple[int, int, int, State, dict[str, Any], State | None, State]] = []
+        heap: list[tuple[int, int, int, State, dict[str, Any], tuple[State, ...], State]] = []
         seq = itertools.count()
 
         def expand(st: State, g: int) -> None:
             for op in self.moves(st, jumpers, switches):
-                trans, after = apply_op(self.nl, st, op, 0)
+                passed, after = apply_op(self.nl, st, op, 0)
                 if after not in parent:
                     # With a heuristic, equal f goes deeper first (any order of equal f keeps
                     # A* exact with a consistent h); without one, level by level.
                     depth = -(g + 1) if h is not None else g + 1
-                    item = (g + 1 + hfun(after), depth, next(seq), st, op, trans, after)
+                    item = (g + 1 + hfun(after), depth, next(seq), st, op, passed, after)
                     heapq.heappush(heap, item)
 
         expand(origin, 0)
@@ -206,12 +245,12 @@ class _Search:
             admitted: list[State] = []
             for c0 in range(0, len(layer), CHUNK):
                 chunk = layer[c0 : c0 + CHUNK]
-                self.eval([s for e in chunk for s in (e[3], e[5], e[6]) if s is not None])
-                for _f, _g, _n, st, op, trans, after in chunk:
+                self.eval([s for e in chunk for s in (e[3], *e[5], e[6])])
+                for _f, _g, _n, st, op, passed, after in chunk:
                     if after in parent:
                         continue
                     before = self.cache[st]
-                    if trans is not None and self.dangerous(before, self.cache[trans]):
+                    if self.passes_danger(before, passed):
                         continue
                     aev = self.cache[after]
                     if self.dangerous(before, aev):
@@ -224,11 +263,14 @@ class _Search:
                 expand(st, abs(key[1]))
         return None
 
-    def left_to_isolate(self, ev: StateEval) -> int:
-        """Outputs of the device still connected plus its inputs still carrying current."""
+    def left_to_isolate(self, st: State, ev: StateEval) -> int:
+        """Outputs of the device still connected, its inputs still carrying current, and its
+        terminals still joined to a CT circuit or trip target beyond what must stay."""
         dev = self.nl.devices[self.device]
-        return sum(ev.out_connected[o.index] for o in dev.outputs) + sum(
-            abs(ev.inp_probe[i.index]) >= PROBE_ZERO_A for i in dev.inputs
+        return (
+            sum(ev.out_connected[o.index] for o in dev.outputs)
+            + sum(abs(ev.inp_probe[i.index]) >= PROBE_ZERO_A for i in dev.inputs)
+            + max(0, self.free.attached(st) - self.free.target)
         )
 
     def greedy(self, goal: Any, limit: int = GREEDY_STATES) -> list[dict[str, Any]] | None:
@@ -237,30 +279,32 @@ class _Search:
         inputs carrying current (``left_to_isolate``; ties: the state reached first), every
         edge checked as in ``search``. None when none is found within ``limit`` states
         (``greedy_exhausted`` then says whether every safely reachable state was seen)."""
-        origin = self.start
+        origin = self.origin
         parent: dict[State, tuple[State, dict[str, Any]] | None] = {origin: None}
-        if goal(origin, self.start_ev):
+        if goal(origin, self.origin_ev):
             return []
         seq = itertools.count(1)
-        heap: list[tuple[int, int, State]] = [(self.left_to_isolate(self.start_ev), 0, origin)]
+        heap: list[tuple[int, int, State]] = [
+            (self.left_to_isolate(origin, self.origin_ev), 0, origin)
+        ]
         spent = 0
         while heap:
             st = heapq.heappop(heap)[2]
             edges = []
-            for op in self.moves(st, []):
-                trans, after = apply_op(self.nl, st, op, 0)
+            for op in self.moves(st, [], self.ct_switches):
+                passed, after = apply_op(self.nl, st, op, 0)
                 if after not in parent:
-                    edges.append((op, trans, after))
+                    edges.append((op, passed, after))
             spent += len(edges)
             if spent > limit:
                 self.greedy_exhausted = False
                 return None
-            self.eval([s for e in edges for s in (e[1], e[2]) if s is not None])
+            self.eval([s for e in edges for s in (*e[1], e[2])])
             before = self.cache[st]
-            for op, trans, after in edges:
+            for op, passed, after in edges:
                 if after in parent:
                     continue
-                if trans is not None and self.dangerous(before, self.cache[trans]):
+                if self.passes_danger(before, passed):
                     continue
                 aev = self.cache[after]
                 if self.dangerous(before, aev):
@@ -268,7 +312,7 @@ class _Search:
                 parent[after] = (st, op)
                 if goal(after, aev):
                     return _path(parent, after)
-                heapq.heappush(heap, (self.left_to_isolate(aev), next(seq), after))
+                heapq.heappush(heap, (self.left_to_isolate(after, aev), next(seq), after))
         # every state reachable by safe operations has been seen: no sequence exists
         self.greedy_exhausted = True
         return None
@@ -277,9 +321,9 @@ class _Search:
         """Fewest switches moved from the normal state (each to any other position, in any
         order, no check on the way) that make ``pred`` hold, or ``cap + 1`` when no set of up
         to ``cap`` does; raises ``_OverBudget`` when that takes more than ``budget`` states."""
-        if pred(self.start_ev):
+        if pred(self.origin_ev):
             return 0
-        base = dict(self.start.positions)
+        base = dict(self.origin.positions)
         for k in range(1, min(cap, len(switches)) + 1):
             states = []
             for combo in itertools.combinations(switches, k):
@@ -287,7 +331,7 @@ class _Search:
                 for choice in itertools.product(*alts):
                     pos = dict(base)
                     pos.update(zip(combo, choice, strict=True))
-                    states.append(replace(self.start, positions=tuple(pos.items())))
+                    states.append(replace(self.origin, positions=tuple(pos.items())))
             budget[0] -= len(states)
             if budget[0] < 0:
                 raise _OverBudget
@@ -298,7 +342,9 @@ class _Search:
 
     def no_shorter_isolation(self, length: int) -> bool:
         """True when no sequence of fewer than ``length`` switch operations can isolate the
-        device, safe or not. The outputs' connection depends only on switches with a contact
+        device, safe or not, from the origin (trips open), moving the CT-side switches. The
+        freedom goal alone needs ``_Freedom.min_moves`` operations (a cut argument); the
+        outputs' connection depends only on switches with a contact
         in the outputs' conducting parts (A), the inputs' currents only on those with a
         contact in the inputs' parts (B); a sequence moves at least a switches of A and b of
         B (a, b: the fewest that open the outputs, resp. kill the input currents), so at least
@@ -306,6 +352,8 @@ class _Search:
         a safe sequence also leaves every live CT closed, so a and b count only the sets
         that do that too."""
         nl = self.nl
+        if self.goal_free and self.free.min_moves(self.origin, self.origin_ev) >= length:
+            return True
         lab = _union_labels(nl)
         dev = nl.devices[self.device]
         out_parts = {int(lab[t]) for o in dev.outputs for t in (o.terminal, o.target)}
@@ -314,7 +362,7 @@ class _Search:
         def touching(parts: set[int]) -> list[str]:
             return [
                 c
-                for c in self.order
+                for c in self.ct_switches
                 if any(int(lab[x.a]) in parts for x in nl.switches[c].contacts)
             ]
 
@@ -430,6 +478,18 @@ def _rings(nl: Netlist, device: str, order: list[str]) -> list[list[str]]:
     return rings
 
 
+def _trip_path_switches(nl: Netlist) -> set[str]:
+    """Switches with no contact in a part that holds a CT winding (over every element,
+    whatever its state): they act on trip and close paths only, never on a CT current."""
+    lab = _union_labels(nl)
+    ct_parts = set(lab[nl.arrays.ct_first].tolist())
+    return {
+        code
+        for code, sw in nl.switches.items()
+        if all(int(lab[c.a]) not in ct_parts for c in sw.contacts)
+    }
+
+
 def _switch_order(nl: Netlist) -> list[str]:
     """Switches to try, those on trip paths first: among plans of the same length the search
     returns the first it meets, and isolating the trip before touching the CT circuits is the
@@ -502,7 +562,8 @@ def _jumper_candidates(nl: Netlist, ev: StateEval) -> list[tuple[str, str]]:
 def _shortest_isolation(
     search: _Search, goal: Any, jumpers: list[tuple[str, str]]
 ) -> list[dict[str, Any]] | None:
-    """The shortest safe isolating sequence, fast where that can be proven.
+    """The shortest safe isolating sequence from ``search.origin`` over the CT-side
+    switches, fast where that can be proven.
 
     1. ``greedy`` finds a sequence; it is returned when ``no_shorter_isolation`` proves that
        none is shorter. A greedy search that has seen every safely reachable state without
@@ -511,108 +572,417 @@ def _shortest_isolation(
        the next ring, each plan found with the same proof, and finally over every switch.
     With temporary jumpers, or when the greedy search gives up, breadth-first search over
     every switch at once (the exhaustive search)."""
+    cts = search.ct_switches
     if jumpers:
-        return search.search(search.start, goal, jumpers)
+        return search.search(search.origin, goal, jumpers, cts)
     fast = search.greedy(goal)
     if fast is None:
-        return None if search.greedy_exhausted else search.search(search.start, goal, [])
+        return None if search.greedy_exhausted else search.search(search.origin, goal, [], cts)
     if search.no_shorter_isolation(len(fast)):
         return fast
-    for ring in _rings(search.nl, search.device, search.order):
-        plan = search.search(search.start, goal, [], ring)
+    for ring in _rings(search.nl, search.device, cts):
+        plan = search.search(search.origin, goal, [], ring)
         if plan is None:
             continue
-        if len(ring) == len(search.order) or search.no_shorter_isolation(len(plan)):
+        if len(ring) == len(cts) or search.no_shorter_isolation(len(plan)):
             return plan
         break
-    return search.search(search.start, goal, [])
+    return search.search(search.origin, goal, [], cts)
+
+
+class _Freedom:
+    """How far a device is from being free to remove: the number of its terminals (input
+    ends, output terminals) joined, through closed contacts, links, jumpers, wires and the
+    inputs of other devices, to a CT terminal or to a trip target. Free to remove is when
+    only the terminals that no provision can part (``target``, from the graph of the elements
+    no switch position opens) stay joined: a draw-out case withdrawn, or the inputs, the
+    neutral and the outputs opened at a test switch (common practice, no source)."""
+
+    def __init__(self, nl: Netlist, device: str) -> None:
+        self.nl = nl
+        dev = nl.devices[device]
+        self.device = device
+        self.terms = np.asarray(
+            sorted({t for i in dev.inputs for t in (i.a, i.b)} | {o.terminal for o in dev.outputs}),
+            dtype=np.int64,
+        )
+        foreign = {t for c in nl.ct_list for t in c.terminals.values()}
+        foreign |= {o.target for o in nl.outputs}
+        self.foreign = np.asarray(sorted(foreign - set(self.terms.tolist())), dtype=np.int64)
+        ar = nl.arrays
+        others = np.asarray([i.device != device for i in nl.inputs], dtype=bool)
+        self._fixed_a = np.concatenate([ar.link_a, ar.br_a[: ar.n_wires], ar.input_a[others]])
+        self._fixed_b = np.concatenate(
+            [ar.link_b, ar.br_b[: ar.n_wires], ar.br_b[ar.n_wires :][others]]
+        )
+        self._wire_ix = np.arange(ar.n_wires)
+        self._link_ix = np.arange(len(nl.links))
+        always = [c for c in nl.contacts if c.closed_in >= set(self._switch_of(c).positions)]
+        lab = components(
+            nl.n_terminals,
+            np.concatenate([self._fixed_a, [c.a for c in always]]).astype(np.int64),
+            np.concatenate([self._fixed_b, [c.b for c in always]]).astype(np.int64),
+        )
+        self.stuck = self._joined(lab)
+        self.target = len(self.stuck)
+        self._cache: dict[State, int] = {}
+
+    def _switch_of(self, contact: Any) -> Any:
+        for sw in self.nl.switches.values():
+            if contact in sw.contacts:
+                return sw
+        raise KeyError(contact)
+
+    def _joined(self, lab: np.ndarray) -> list[int]:
+        bad = set(lab[self.foreign].tolist())
+        return [int(t) for t in self.terms.tolist() if int(lab[t]) in bad]
+
+    def labels(self, st: State) -> np.ndarray:
+        nl = self.nl
+        ar = nl.arrays
+        links = _link_row(nl, st)
+        wires = np.ones(ar.n_wires, dtype=bool)
+        wires[list(st.lifted_wires)] = False
+        others_in = [i for i in nl.inputs if i.device != self.device and i.device not in st.removed]
+        closed = _contact_row(nl, st)
+        a = np.concatenate(
+            [
+                ar.link_a[links],
+                ar.br_a[: ar.n_wires][wires],
+                np.asarray([i.a for i in others_in], dtype=np.int64),
+                ar.contact_a[closed],
+                np.asarray([j[1] for j in st.jumpers], dtype=np.int64),
+            ]
+        )
+        b = np.concatenate(
+            [
+                ar.link_b[links],
+                ar.br_b[: ar.n_wires][wires],
+                np.asarray([i.b for i in others_in], dtype=np.int64),
+                ar.contact_b[closed],
+                np.asarray([j[2] for j in st.jumpers], dtype=np.int64),
+            ]
+        )
+        return components(nl.n_terminals, a, b)
+
+    def joined(self, st: State) -> list[int]:
+        """The device's terminals joined to a CT terminal or a trip target in ``st``."""
+        return self._joined(self.labels(st))
+
+    def attached(self, st: State) -> int:
+        hit = self._cache.get(st)
+        if hit is None:
+            hit = self._cache[st] = len(self.joined(st))
+        return hit
+
+    def min_moves(self, origin: State, origin_ev: StateEval) -> int:
+        """A lower bound on the switch operations that free the device from ``origin``.
+
+        The terminals to free are joined in ``origin`` and not in the graph of the elements
+        no position opens. Whatever the final state, the contacts opened on the way must
+        cut them from the CT terminals and trip targets in ``origin``'s graph (what closes
+        only adds paths). One operation on switch s opens at most m_s of its contacts, so
+        giving each contact of s the capacity 1/m_s (others: unbounded) makes the minimum
+        cut (= maximum flow; Ford and Fulkerson, from memory) a lower bound on the number of
+        operations.
+
+        Then the live CTs: once the device is parted from them, each must be closed by a
+        path that avoids it. When even every contact of the switches counted above (any
+        position) cannot give one such a path, a switch that only closes (a shorting screw)
+        must move as well: one more operation."""
+        nl = self.nl
+        to_free = sorted(set(self.joined(origin)) - set(self.stuck))
+        if not to_free:
+            return 0
+        pos = dict(origin.positions)
+        caps: list[tuple[int, int, float]] = []
+        closed_now = _contact_row(nl, origin)
+        for sw in nl.switches.values():
+            here = sw.closed(pos[sw.code])
+            # the most origin-closed contacts one move (from any position) opens
+            m = max(
+                (
+                    len((sw.closed(p) & here) - sw.closed(q))
+                    for p in sw.positions
+                    for q in sw.positions
+                ),
+                default=0,
+            )
+            for c in sw.contacts:
+                if not closed_now[c.index]:
+                    continue
+                openable = (
+                    c.index in here
+                    and m > 0
+                    and any(c.index not in sw.closed(p) for p in sw.positions)
+                )
+                caps.append((c.a, c.b, 1.0 / m if openable else math.inf))
+        ar = nl.arrays
+        links = _link_row(nl, origin)
+        wires = np.ones(ar.n_wires, dtype=bool)
+        wires[list(origin.lifted_wires)] = False
+        fixed = list(zip(ar.link_a[links].tolist(), ar.link_b[links].tolist(), strict=True))
+        fixed += list(
+            zip(
+                ar.br_a[: ar.n_wires][wires].tolist(),
+                ar.br_b[: ar.n_wires][wires].tolist(),
+                strict=True,
+            )
+        )
+        fixed += [
+            (i.a, i.b)
+            for i in nl.inputs
+            if i.device != self.device and i.device not in origin.removed
+        ]
+        fixed += [(j[1], j[2]) for j in origin.jumpers]
+        caps += [(x, y, math.inf) for x, y in fixed]
+        moves = _min_cut_moves(nl.n_terminals, caps, to_free, self.foreign.tolist())
+        # switches that can open a contact closed in ``origin``: the operations counted above
+        opening = [
+            sw
+            for sw in nl.switches.values()
+            if any(sw.closed(pos[sw.code]) - sw.closed(p) for p in sw.positions)
+        ]
+        closable = [c for sw in opening for c in sw.contacts]
+        closable += [c for c in nl.contacts if closed_now[c.index]]
+        lab = components(
+            nl.n_terminals,
+            np.asarray([x for x, _ in fixed] + [c.a for c in closable], dtype=np.int64),
+            np.asarray([y for _, y in fixed] + [c.b for c in closable], dtype=np.int64),
+        )
+        if any(origin_ev.live[c.index] and lab[c.first] != lab[c.second] for c in nl.ct_list):
+            moves += 1
+        return moves
+
+
+def _min_cut_moves(
+    n: int, caps: list[tuple[int, int, float]], sources: list[int], sinks: list[int]
+) -> int:
+    """Ceiling of the minimum cut between ``sources`` and ``sinks`` of an undirected graph
+    with capacities (``math.inf``: uncuttable), by scipy's maximum flow on integer
+    capacities (the finite ones are 1/m for small m, scaled by their common multiple)."""
+    from scipy.sparse import csr_matrix
+    from scipy.sparse.csgraph import maximum_flow
+
+    finite = [c for _, _, c in caps if math.isfinite(c)]
+    if not finite:
+        return 10**6
+    scale = 1
+    for c in finite:
+        scale = math.lcm(scale, round(1.0 / c))
+    big = scale * (len(finite) + 1)
+    src, snk = n, n + 1
+    rows: list[int] = []
+    cols: list[int] = []
+    vals: list[int] = []
+    for x, y, c in caps:
+        v = big if not math.isfinite(c) else round(c * scale)
+        rows += [x, y]
+        cols += [y, x]
+        vals += [v, v]
+    for t in sources:
+        rows.append(src)
+        cols.append(t)
+        vals.append(big)
+    for t in sinks:
+        rows.append(t)
+        cols.append(snk)
+        vals.append(big)
+    g = csr_matrix((np.asarray(vals, dtype=np.int64), (rows, cols)), shape=(n + 2, n + 2)).astype(
+        np.int32
+    )
+    g.sum_duplicates()
+    flow = maximum_flow(g, src, snk).flow_value
+    if flow >= big:
+        return 10**6
+    return -(-int(flow) // scale)
+
+
+def _stripped(ops: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """The operations without the plan's ``why`` and ``readings`` (what the checker and a
+    stored procedure take)."""
+    return [{k: v for k, v in op.items() if k not in ("why", "readings")} for op in ops]
+
+
+def _changed_relays(
+    search: _Search, states: list[State], device: str
+) -> dict[str, tuple[str, float, float, bool]]:
+    """Devices with outputs (other than ``device``) whose inputs, in any of ``states``, carry
+    other than in the normal state: more than 1 % of the circuit's largest CT current away
+    under load, or a different share of the CT currents (the probe column: a balanced
+    differential that reads 0 A under load either way, but would no longer see a fault).
+    Value: (input, normal A, furthest A, whether only the probe changed)."""
+    nl = search.nl
+    norm = search.start_ev
+    out: dict[str, tuple[str, float, float, bool]] = {}
+    evs = search.eval(states)
+    for dev in nl.devices.values():
+        if dev.code == device or not dev.outputs or not dev.inputs:
+            continue
+        worst: tuple[float, str, float, float] | None = None
+        probe_only: str | None = None
+        for ev in evs:
+            for di in dev.inputs:
+                k = di.index
+                ref = max(norm.inp_ref_a[k], ev.inp_ref_a[k])
+                off = abs(ev.inp_cur[k] - norm.inp_cur[k])
+                if ref > 0 and off > APPEAR_FROM * ref:
+                    if worst is None or off > worst[0]:
+                        worst = (off, di.name, abs(norm.inp_cur[k]), abs(ev.inp_cur[k]))
+                elif abs(ev.inp_probe[k] - norm.inp_probe[k]) > PROBE_CHANGE_A:
+                    probe_only = probe_only or di.name
+        if worst is not None:
+            out[dev.code] = (worst[1], worst[2], worst[3], False)
+        elif probe_only is not None:
+            k = next(i.index for i in dev.inputs if i.name == probe_only)
+            a = abs(norm.inp_cur[k])
+            out[dev.code] = (probe_only, a, a, True)
+    return out
+
+
+def _trip_sequence(search: _Search, outputs: list[Any]) -> list[dict[str, Any]] | None:
+    """Shortest sequence of trip-path switch operations that parts every output of
+    ``outputs`` from its target (none when there is nothing to part)."""
+    if not outputs:
+        return []
+
+    def goal(_st: State, ev: StateEval) -> bool:
+        return not any(ev.out_connected[o.index] for o in outputs)
+
+    return search.search(search.start, goal, [], search.trip_switches)
+
+
+def _run(nl: Netlist, start: State, ops: list[dict[str, Any]]) -> State:
+    for n, op in enumerate(ops, start=1):
+        _, start = apply_op(nl, start, op, n)
+    return start
+
+
+def _not_possible(
+    netlist: Netlist, device: str, reason: str, needed: tuple[tuple[str, str], ...] = ()
+) -> IsolationPlan:
+    return IsolationPlan(
+        netlist.site_code,
+        device,
+        False,
+        (),
+        (),
+        (),
+        check_operations(netlist, [], (device,)),
+        jumpers_needed=needed,
+        reason=reason,
+    )
 
 
 def plan_isolation(netlist: Netlist, device: str) -> IsolationPlan:
-    """Shortest safe sequence that isolates ``device`` and the sequence that restores it.
+    """A plan a planner would sign to take ``device`` out, and the one that puts it back.
 
-    Search over switch positions (then temporary jumpers at terminal-block points), every
-    transition checked (see the module docstring and ``_shortest_isolation``); the
-    restoration by A* back to the normal state. ``possible`` is False when no such sequence
-    exists; ``jumpers_needed`` then names where temporary jumpers would go.
+    1. A CT open in the recorded normal state is reported first: nothing can be planned on
+       a circuit that is already in danger.
+    2. Trips: the trip-path switches (``_trip_path_switches``) that part the outputs of the
+       device and of every relay whose currents the plan changes are opened first, the
+       device's own first (``_trip_sequence``; also where the currents alone would not need
+       it, such as a balanced differential).
+    3. CT work: the shortest safe sequence of CT-side operations (switches, then temporary
+       jumpers at terminal-block points) from there that leaves the device's inputs without
+       current, its outputs parted and the device free to remove (``_Freedom``), every state
+       on the way checked (``_shortest_isolation``).
+    4. Restore: A* back to the normal position of every CT-side switch with the jumpers
+       removed, then a step to verify the currents of the relays whose trips are open
+       (their normal values), then the trips closed in the reverse order.
+    Every operation carries a one-line ``why`` and the ``readings`` after it
+    (``plan_notes``). ``possible`` is True only when the check of the whole plan is safe;
+    otherwise ``reason`` says why and ``jumpers_needed`` where temporary jumpers would go.
+    (Common practice, no source: isolate the trips before the CT circuits, restore the CT
+    circuits and verify before the trips.)
     """
+    from analysis.engine.plan_notes import annotate
+
     if device not in netlist.devices:
         raise ProcedureError(f"unknown device {device!r}")
     dev0 = netlist.devices[device]
     if not dev0.inputs and not dev0.outputs:
-        return IsolationPlan(
-            netlist.site_code,
-            device,
-            False,
-            (),
-            (),
-            (),
-            check_operations(netlist, [], (device,)),
-            reason=f"{device} has no inputs or outputs to isolate",
-        )
+        return _not_possible(netlist, device, f"{device} has no inputs or outputs to isolate")
     seeds, _ = touched_terminals(netlist, [], (device,))
     nl = subnet(netlist, region_mask(netlist, seeds, []))
     search = _Search(nl, device)
     start = search.start
 
-    def goal_isolated(_st: State, ev: StateEval) -> bool:
-        return search.isolated(ev)
+    already = [c for c in nl.ct_list if search.start_ev.live_open[c.index]]
+    if already:
+        names = ", ".join(f"{c.code} ({c.in_use[0]}-{c.in_use[1]})" for c in already)
+        return _not_possible(
+            netlist,
+            device,
+            f"CT {names} is live and already open in the recorded normal state: correct the "
+            "record, or short the CT, before any plan for "
+            f"{device} (an open CT secondary is a danger now, not only during the work)",
+        )
+
+    if _unswitched_outputs(nl, device):
+        # no switch or jumper can part an output wired straight to its target
+        return _impossible(netlist, nl, device, _jumper_candidates(nl, search.start_ev))
+
+    relays = [d for d in nl.devices.values() if d.outputs]
+    # The outputs a trip-path switch can part (a lockout relay's output wired straight to
+    # the breaker has none): for a first search, every one of them is parted.
+    partable = [o for d in relays for o in d.outputs if _trip_sequence(search, [o]) is not None]
+    own_outputs = [o for o in partable if o.device == device]
+    trips = _trip_sequence(search, partable) or []
+
+    normal_ct = {c: p for c, p in start.positions if c in search.ct_set}
 
     def goal_normal(st: State, _ev: StateEval) -> bool:
-        return st.positions == start.positions and not st.jumpers
+        return not st.jumpers and all(p == normal_ct[c] for c, p in st.positions if c in normal_ct)
 
     candidates = _jumper_candidates(nl, search.start_ev)
-    isolate = restore = None
+    core: list[dict[str, Any]] | None = None
+    restore_ct: list[dict[str, Any]] | None = None
     for jumpers in ([], candidates):
         if jumpers is candidates and not candidates:
             break
-        isolate = _shortest_isolation(search, goal_isolated, jumpers)
-        if isolate is not None:
-            end = start
-            for n, op in enumerate(isolate, start=1):
-                _, end = apply_op(nl, end, op, n)
-            restore = search.search(end, goal_normal, jumpers, h=search.away_from_normal)
-            if restore is not None:
+        search.origin = _run(nl, start, trips)
+        search.origin_ev = search.eval([search.origin])[0]
+        for goal in (search.isolated_and_free, lambda _st, ev: search.isolated(ev)):
+            search.goal_free = goal == search.isolated_and_free
+            search.greedy_exhausted = False
+            core = _shortest_isolation(search, goal, jumpers)
+            if core is not None:
                 break
-        isolate = restore = None
+        if core is not None:
+            end = _run(nl, search.origin, core)
 
-    if isolate is None or restore is None:
-        dev = nl.devices[device]
-        tried = " and temporary jumpers" if candidates else ""
-        reason = (
-            f"no sequence of switch operations{tried}"
-            f" isolates {device} without opening a live CT secondary or operating a trip "
-            f"output that is still connected"
-        )
-        hard = _unswitched_outputs(nl, device)
-        if hard:
-            reason += (
-                "; no switch is on the path of "
-                + ", ".join(hard)
-                + " (a wire would have to be lifted, or a trip test switch fitted)"
-            )
-        if not dev.outputs and not dev.inputs:
-            reason = f"{device} has no inputs or outputs to isolate"
-        needed = tuple(candidates) or tuple(
-            (nl.terminals[c.first], nl.terminals[c.second]) for c in nl.ct_list
-        )
-        empty = check_operations(netlist, [], (device,))
-        return IsolationPlan(
-            netlist.site_code,
-            device,
-            False,
-            (),
-            (),
-            (),
-            empty,
-            jumpers_needed=needed,
-            reason=reason,
-        )
+            restore_ct = _reversed(search, core, end)
+            if restore_ct is None:
+                restore_ct = search.search(
+                    end, goal_normal, jumpers, search.ct_switches, h=search.away_from_normal
+                )
+            if restore_ct is not None:
+                break
+        core = restore_ct = None
 
-    end = start
-    for n, op in enumerate(isolate, start=1):
-        _, end = apply_op(nl, end, op, n)
-    end_ev = search.eval([end])[0]
+    if core is None or restore_ct is None:
+        return _impossible(netlist, nl, device, candidates)
+
+    # The trips the plan needs: the device's own, and those of every relay whose currents
+    # the CT work changes (states on the way included).
+    st = search.origin
+    visited: list[State] = []
+    for n, op in enumerate([*core, *restore_ct], start=1):
+        passed, st = apply_op(nl, st, op, n)
+        visited.extend(passed)
+        visited.append(st)
+    changed = _changed_relays(search, visited, device)
+    needed_outputs = own_outputs + [o for o in partable if o.device in changed]
+    needed = _trip_sequence(search, needed_outputs)
+    if needed is None:
+        needed = trips
+    for chosen in (_own_first(search, needed), _own_first(search, trips)):
+        isolate, restore = annotate(search, chosen, core, restore_ct, changed)
+        verdict = check_operations(netlist, _stripped([*isolate, *restore]), (device,))
+        if verdict.safe:
+            break
+    end_ev = search.eval([_run(nl, start, _stripped(isolate))])[0]
     affected = tuple(
         {
             "device": f.device,
@@ -623,13 +993,97 @@ def plan_isolation(netlist: Netlist, device: str) -> IsolationPlan:
         for f in check_bypassed(nl, search.start_ev, end_ev, None)
         if f.device != device
     )
-    verdict = check_operations(netlist, [*isolate, *restore], (device,))
+    reason = None
+    if not verdict.safe:
+        d = verdict.first_danger or {}
+        reason = (
+            f"the plan found fails its own check at step {d.get('step')} ({d.get('stage')}): "
+            f"{d.get('code')} on {d.get('ct') or d.get('device')}"
+        )
     return IsolationPlan(
         site=netlist.site_code,
         device=device,
-        possible=True,
+        possible=verdict.safe,
         isolate=tuple(isolate),
         restore=tuple(restore),
         affected=affected,
         verdict=verdict,
+        reason=reason,
     )
+
+
+def _reversed(
+    search: _Search, core: list[dict[str, Any]], end: State
+) -> list[dict[str, Any]] | None:
+    """The CT work undone in the reverse order (each switch back to where it was, each
+    jumper removed), the way a crew retraces its steps, when every state on the way is safe
+    and it is as short as any restoration can be (``away_from_normal``); else None."""
+    nl = search.nl
+    before = search.origin
+    back: list[dict[str, Any]] = []
+    for n, op in enumerate(core, start=1):
+        if "set" in op:
+            back.append({"set": op["set"], "to": dict(before.positions)[op["set"]]})
+        elif "add_jumper" in op:
+            back.append({"remove_jumper": op["id"]})
+        else:
+            return None
+        _, before = apply_op(nl, before, op, n)
+    back.reverse()
+    if len(back) > search.away_from_normal(end):
+        return None
+    st = end
+    edges = []
+    for n, op in enumerate(back, start=1):
+        passed, after = apply_op(nl, st, op, n)
+        edges.append((st, passed, after))
+        st = after
+    search.eval([x for e in edges for x in (e[0], *e[1], e[2])])
+    for st, passed, after in edges:
+        b = search.cache[st]
+        if search.passes_danger(b, passed) or search.dangerous(b, search.cache[after]):
+            return None
+    return back
+
+
+def _own_first(search: _Search, trips: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """The trip operations with those that part the device's own outputs first (they act
+    on different switches, so their order changes no state the plan passes)."""
+    own = {o.index for o in search.nl.devices[search.device].outputs}
+    st = search.start
+    first: list[dict[str, Any]] = []
+    rest: list[dict[str, Any]] = []
+    for n, op in enumerate(trips, start=1):
+        before = search.eval([st])[0]
+        _, st = apply_op(search.nl, st, op, n)
+        after = search.eval([st])[0]
+        parted = {o.index for o in search.nl.outputs if before.out_connected[o.index]} - {
+            o.index for o in search.nl.outputs if after.out_connected[o.index]
+        }
+        (first if parted & own else rest).append(op)
+    return first + rest
+
+
+def _impossible(
+    netlist: Netlist, nl: Netlist, device: str, candidates: list[tuple[str, str]]
+) -> IsolationPlan:
+    dev = nl.devices[device]
+    tried = " and temporary jumpers" if candidates else ""
+    reason = (
+        f"no sequence of switch operations{tried}"
+        f" isolates {device} without opening a live CT secondary or operating a trip "
+        f"output that is still connected"
+    )
+    hard = _unswitched_outputs(nl, device)
+    if hard:
+        reason += (
+            "; no switch is on the path of "
+            + ", ".join(hard)
+            + " (a wire would have to be lifted, or a trip test switch fitted)"
+        )
+    if not dev.outputs and not dev.inputs:
+        reason = f"{device} has no inputs or outputs to isolate"
+    needed = tuple(candidates) or tuple(
+        (nl.terminals[c.first], nl.terminals[c.second]) for c in nl.ct_list
+    )
+    return _not_possible(netlist, device, reason, needed)

@@ -23,12 +23,14 @@ from analysis.engine import findings as fc
 from analysis.engine.cautions import cautions
 from analysis.engine.findings import Finding
 from analysis.engine.netlist import Netlist, build_netlist
+from analysis.engine.readings import readings_of
 from analysis.engine.state import (
     ProcedureError,
     State,
     StateEval,
     apply_op,
     evaluate_states,
+    finding_key,
     normal_state,
     op_kind,
     record_names,
@@ -45,10 +47,17 @@ class StepResult:
     step: int
     op: dict[str, Any] | None
     findings: tuple[Finding, ...]
+    readings: tuple[dict[str, Any], ...] = ()
 
     def to_json(self) -> dict[str, Any]:
-        """The step as the verdict JSON shows it."""
-        return {"step": self.step, "op": self.op, "findings": [f.to_json() for f in self.findings]}
+        """The step as the verdict JSON shows it (``readings``: what a clamp meter would read
+        on each device input and shorting path after the step; ``readings.state_readings``)."""
+        return {
+            "step": self.step,
+            "op": self.op,
+            "findings": [f.to_json() for f in self.findings],
+            "readings": list(self.readings),
+        }
 
 
 @dataclass(frozen=True, eq=False)
@@ -230,8 +239,9 @@ def subnet(nl: Netlist, mask: np.ndarray) -> Netlist:
 
 def simulate(
     nl: Netlist, ops: list[dict[str, Any]], start: State | None = None
-) -> list[tuple[State | None, State]]:
-    """(transition, after) of every operation, from ``start`` (the normal state)."""
+) -> list[tuple[tuple[State, ...], State]]:
+    """(states passed on the way, after) of every operation, from ``start`` (the normal
+    state)."""
     st = start if start is not None else normal_state(nl)
     out = []
     for n, op in enumerate(ops, start=1):
@@ -245,27 +255,33 @@ def verdict_from_evals(
     ops: list[dict[str, Any]],
     work: frozenset[str],
     init: StateEval,
-    steps: list[tuple[StateEval | None, StateEval]],
+    steps: list[tuple[tuple[StateEval, ...], StateEval]],
     *,
     code: str | None,
 ) -> ProcedureVerdict:
-    """Apply the reporting rule to solved states."""
+    """Apply the reporting rule to solved states. A step that passes several states on the
+    way (a multi-position switch) reports each finding of its transition stage once."""
     keys0: set[tuple[Any, ...]] = set()
     raw0 = state_findings(nl, init, init, init, work, "before", None, keys0)
-    results = [StepResult(0, None, tuple(raw0))]
+    reads = readings_of(nl, [init, *(aev for _, aev in steps)])
+    results = [StepResult(0, None, tuple(raw0), tuple(reads[0]))]
     before_ev, before_keys = init, keys0
-    for n, (op, (tev, aev)) in enumerate(zip(ops, steps, strict=True), start=1):
+    for n, (op, (tevs, aev)) in enumerate(zip(ops, steps, strict=True), start=1):
         kept: list[Finding] = []
         trans_keys: set[tuple[Any, ...]] = set()
-        if tev is not None:
-            kept += state_findings(
-                nl, init, before_ev, tev, work, "transition", before_keys, trans_keys
-            )
+        seen: set[tuple[Any, ...]] = set()
+        for tev in tevs:
+            for f in state_findings(
+                nl, init, before_ev, tev, work, "transition", before_keys | trans_keys, trans_keys
+            ):
+                if finding_key(f) not in seen:
+                    seen.add(finding_key(f))
+                    kept.append(f)
         after_keys: set[tuple[Any, ...]] = set()
         kept += state_findings(
             nl, init, before_ev, aev, work, "after", before_keys | trans_keys, after_keys
         )
-        results.append(StepResult(n, op, tuple(kept)))
+        results.append(StepResult(n, op, tuple(kept), tuple(reads[n])))
         before_ev, before_keys = aev, after_keys
     return ProcedureVerdict(
         site=nl.site_code, procedure=code, devices=tuple(sorted(work)), steps=tuple(results)
@@ -300,9 +316,8 @@ def check_operations(
     sim = simulate(nl, ops, start)
     init_state = start if start is not None else normal_state(nl)
     states: list[State] = [init_state]
-    for trans, after in sim:
-        if trans is not None:
-            states.append(trans)
+    for passed, after in sim:
+        states.extend(passed)
         states.append(after)
     evs = evaluate_states(nl, states)
     if start is None:
@@ -310,9 +325,9 @@ def check_operations(
         nl.cache.setdefault(("normal_ref", init_state.energized), evs[0])
     it = iter(evs[1:])
     steps = []
-    for trans, _after in sim:
-        tev = next(it) if trans is not None else None
-        steps.append((tev, next(it)))
+    for passed, _after in sim:
+        tevs = tuple(next(it) for _ in passed)
+        steps.append((tevs, next(it)))
     v = verdict_from_evals(nl, ops, frozenset(devices), evs[0], steps, code=code)
     if v.site != netlist.site_code:
         v = ProcedureVerdict(netlist.site_code, v.procedure, v.devices, v.steps)

@@ -7,7 +7,10 @@ equipment is taken as live). Operations (design.md): ``set``, ``add_jumper``, ``
 
 A ``set`` yields a *transition* state while the switch moves: for ``make_before_break`` the
 union of the contacts closed in the old and in the new position, for ``break_before_make``
-their intersection, for ``simultaneous`` none (the new state at once).
+their intersection, for ``simultaneous`` none (the new state at once). A switch with more than
+two positions (a rotary ammeter or selector switch) moves through the positions between the
+old and the new one in their recorded order (``netlist.Switch.travels``): each is a state of
+its own, with a transition state on each side.
 
 Currents in a state come from one nodal solve (``topology.solve``): each live CT injects its
 load current (equipment maximum load / ratio; 1 A where unknown) at its phase angle (A 0°,
@@ -170,37 +173,47 @@ def validate_op(nl: Netlist, op: Any, step: int) -> None:
 
 def apply_op(
     nl: Netlist, state: State, op: dict[str, Any], step: int
-) -> tuple[State | None, State]:
-    """Carry out one operation: (transition state or None, state after)."""
+) -> tuple[tuple[State, ...], State]:
+    """Carry out one operation: (the states passed on the way, in order; the state after).
+
+    A ``set`` passes, for each move between neighbouring positions, the transition state of
+    the switch's transition type, and each position on the way (``Switch.path``: a switch
+    with more than two positions moves through them in their recorded order, so a rotary
+    switch set from P1 to P3 rests in P2 on the way). Other operations pass no state."""
     validate_op(nl, op, step)
     kind = op_kind(op)
     st = replace(state, override=None)
     if kind == "set":
         sw = nl.switches[str(op["set"])]
-        new_pos = str(op["to"])
         pos = dict(st.positions)
         old_pos = pos[sw.code]
-        pos[sw.code] = new_pos
-        after = replace(st, positions=tuple(pos.items()))
-        if old_pos == new_pos:
-            return None, after
-        old_c, new_c = sw.closed(old_pos), sw.closed(new_pos)
-        if sw.transition == "make_before_break":
-            during = old_c | new_c
-        elif sw.transition == "simultaneous":
-            return None, after
-        else:  # break_before_make, and any unknown kind (the safe reading)
-            during = old_c & new_c
-        if during == new_c:
-            return None, after
-        return replace(st, override=(sw.code, during)), after
+        if old_pos == str(op["to"]):
+            return (), st
+        passed: list[State] = []
+        cur = st
+        for nxt in sw.path(old_pos, str(op["to"])):
+            here = pos[sw.code]
+            pos[sw.code] = nxt
+            reached = replace(st, positions=tuple(pos.items()))
+            old_c, new_c = sw.closed(here), sw.closed(nxt)
+            if sw.transition == "make_before_break":
+                during: frozenset[int] | None = old_c | new_c
+            elif sw.transition == "simultaneous":
+                during = None
+            else:  # break_before_make, and any unknown kind (the safe reading)
+                during = old_c & new_c
+            if during is not None and during != new_c:
+                passed.append(replace(cur, override=(sw.code, during)))
+            passed.append(reached)
+            cur = reached
+        return tuple(passed[:-1]), passed[-1]
     if kind == "add_jumper":
         a, b = _pair(op, "add_jumper")
         jid = str(op.get("id") or default_jumper_id(step - 1))
         if any(j[0] == jid for j in st.jumpers):
             raise ProcedureError(f"step {step}: jumper {jid!r} is already in place")
         jumpers = (*st.jumpers, (jid, nl.index[a], nl.index[b]))
-        return None, replace(st, jumpers=tuple(sorted(jumpers)))
+        return (), replace(st, jumpers=tuple(sorted(jumpers)))
     if kind == "remove_jumper":
         jid = str(op["remove_jumper"])
         if not any(j[0] == jid for j in st.jumpers):
@@ -208,28 +221,28 @@ def apply_op(
             raise ProcedureError(
                 f"step {step}: unknown jumper {jid!r} (jumpers in place: {placed})"
             )
-        return None, replace(st, jumpers=tuple(j for j in st.jumpers if j[0] != jid))
+        return (), replace(st, jumpers=tuple(j for j in st.jumpers if j[0] != jid))
     if kind in ("lift", "land"):
         a, b = _pair(op, kind)
         wires, links = _between(nl, a, b)
         if kind == "lift":
-            return None, replace(
+            return (), replace(
                 st,
                 lifted_wires=st.lifted_wires | set(wires),
                 lifted_links=st.lifted_links | set(links),
             )
-        return None, replace(
+        return (), replace(
             st, lifted_wires=st.lifted_wires - set(wires), lifted_links=st.lifted_links - set(links)
         )
     if kind == "remove_device":
-        return None, replace(st, removed=st.removed | {str(op[kind])})
+        return (), replace(st, removed=st.removed | {str(op[kind])})
     if kind == "insert_device":
-        return None, replace(st, removed=st.removed - {str(op[kind])})
+        return (), replace(st, removed=st.removed - {str(op[kind])})
     if kind == "deenergize":
-        return None, replace(st, energized=st.energized - {str(op[kind])})
+        return (), replace(st, energized=st.energized - {str(op[kind])})
     if kind == "energize":
-        return None, replace(st, energized=st.energized | {str(op[kind])})
-    return None, st  # note
+        return (), replace(st, energized=st.energized | {str(op[kind])})
+    return (), st  # note
 
 
 @dataclass(eq=False)
@@ -257,6 +270,15 @@ class _StateBatch:
     # row -> (current of each winding section, current each tapped winding delivers at its
     # first terminal): ``windings.section_currents`` for one state, solved on first use
     row_sections: Callable[[int], tuple[np.ndarray, np.ndarray]]
+    # What ``readings`` needs to recover the currents of zero-impedance elements: the
+    # zero-impedance edges of every state (vertex = row * terminals + terminal), the impedance
+    # branches and the solve, and the CT injections at their terminals (load column).
+    n_terminals: int = 0
+    zero: dict[str, np.ndarray] | None = None
+    branches: dict[str, np.ndarray] | None = None
+    branch_y: np.ndarray | None = None
+    solution: Any = None
+    injections: dict[str, np.ndarray] | None = None
 
 
 class StateEval:
@@ -680,6 +702,35 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
         == topo.term_point[wa.snk[None, :] + offs[:, None]],
         row_sections=row_sections,
     )
+    n_z = [len(x) for x in za]
+    batch.n_terminals = n_t
+    batch.zero = {
+        "a": np.concatenate(za),
+        "b": np.concatenate(zb),
+        # element of each edge: 0 contact, 1 link, 2 zero-impedance branch, 3 jumper (its
+        # place in its state's ``jumpers``)
+        "kind": np.repeat(np.arange(4), n_z),
+        "elem": np.concatenate(
+            [cc, lk, zz, np.asarray([k for st in states for k in range(len(st.jumpers))], int)]
+        ),
+        "row": np.concatenate([sc, sl, sz, js]),
+    }
+    batch.branches = {"row": sb, "a": ba[0], "b": bb[0], "na": topo.br_na, "nb": topo.br_nb}
+    batch.branch_y = br_y
+    batch.solution = sol
+    # two-terminal CTs inject their load at their terminals in use; a tapped winding's
+    # currents at its terminals come from its section currents (``row_sections``)
+    plain = live & ~ct_open
+    if wa.n:
+        plain[:, wa.ct] = False
+    first_v = (ar.ct_first[None, :] + offs[:, None])[plain]
+    second_v = (ar.ct_second[None, :] + offs[:, None])[plain]
+    inj_row = np.nonzero(plain)[0]
+    batch.injections = {
+        "row": np.concatenate([inj_row, inj_row]),
+        "term": np.concatenate([first_v, second_v]),
+        "cur": np.concatenate([load[plain], -load[plain]]),
+    }
     return [StateEval(batch, s, st) for s, st in enumerate(states)]
 
 

@@ -69,7 +69,12 @@ def test_unsafe_procedure_verdict_json(stored):
         "open_secondary",
         "CB-133-A",
     )
-    assert verdict["steps"][0] == {"step": 0, "op": None, "findings": []}
+    assert verdict["steps"][0]["op"] is None and verdict["steps"][0]["findings"] == []
+    # R-133 at its 1200:5 tap: 650 A maximum load / 240 = 2.71 A per phase, 0 A residual
+    # (design.md: the state currents; the readings round to 0.01 A)
+    assert verdict["steps"][0]["readings"] == [
+        {"between": [f"R-133:I{p}1", f"R-133:I{p}2"], "a": 2.71} for p in "ABC"
+    ] + [{"between": ["R-133N:IN1", "R-133N:IN2"], "a": 0.0}]
     step3 = verdict["steps"][3]
     assert step3["op"] == {"set": "TS-133/N", "to": "open"}
     dangers = [f for f in step3["findings"] if f["severity"] == "danger"]
@@ -141,7 +146,8 @@ def test_plan_isolation_json_isolates_trips_first_and_passes_its_own_check(store
     assert plan["possible"] is True
     assert plan["verdict"]["safe"] is True
     assert plan["cautions"] == list(CAUTIONS)
-    ops = [op["set"] for op in plan["isolate"]]
+    assert all(op["why"] and "readings" in op for op in plan["isolate"] + plan["restore"])
+    ops = [op["set"] for op in plan["isolate"] if "set" in op]
     trips = [i for i, code in enumerate(ops) if "/T" in code]
     shorts = [i for i, code in enumerate(ops) if "/T" not in code]
     assert trips and shorts and max(trips) < min(shorts)
@@ -165,6 +171,8 @@ def test_plan_text_output(stored):
     text = run("plan_isolation", stored, "R-132")
     assert text.startswith("Isolation plan for R-132 at QFN: possible")
     assert "Isolate:" in text and "Restore:" in text and "CAUTIONS" in text
+    assert "why: open R-132's trip TRIP (R-132:OUT1 → CB-132:TC) before any CT circuit is" in text
+    assert "note: R-132 is free to remove" in text and "note: verify with a clamp meter" in text
 
 
 def test_ct_report_json_shape_and_ratio_mismatch(stored):

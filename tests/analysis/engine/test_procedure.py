@@ -39,7 +39,8 @@ def test_verdict_json_has_the_shape_of_design_md():
         "device": "R-1",
         "input": "IA",
     }
-    assert body["steps"][0] == {"step": 0, "op": None, "findings": []}
+    assert list(body["steps"][0]) == ["step", "op", "findings", "readings"]
+    assert body["steps"][0]["op"] is None and body["steps"][0]["findings"] == []
     assert body["steps"][1]["op"] == {"set": "TS-1/A", "to": "open"}
     finding = body["steps"][1]["findings"][0]
     assert list(finding) == [

@@ -8,7 +8,13 @@
 - every plan the planner returns passes the checker, and its restoration closes no trip
   pole before the CT circuits are back as they normally are;
 - a tapped winding with sections shorted keeps the ampere-turn balance of its core and never
-  gives a device more than the single-source current (windings.py).
+  gives a device more than the single-source current (windings.py);
+- a switch with more than two positions passes every position between the old and the new
+  one: the move opens a live CT exactly when one of those positions (or the new one) does;
+- every plan opens its trips first and closes them last: no CT-side operation before the
+  last trip is opened or after the first is closed, the device's outputs are parted before
+  the first CT operation, and every relay whose currents differ from normal in some state of
+  the plan has its trips open in that state (common practice, no source).
 """
 
 from __future__ import annotations
@@ -240,14 +246,14 @@ def test_the_fast_planner_is_as_short_as_breadth_first_search(device, transition
         )
     nl = build_netlist(b.build())
     plan = plan_isolation(nl, device)
-    from tests.analysis.engine.test_plan import _bfs_lengths
+    from tests.analysis.engine.test_plan import _bfs_lengths, _ct_ops
 
     iso, back = _bfs_lengths(nl, device)
     if iso is None or back is None:
         # switches alone cannot do it: the planner then tries temporary jumpers
         assert not plan.possible or any("add_jumper" in op for op in plan.isolate)
         return
-    assert (len(plan.isolate), len(plan.restore)) == (iso, back)
+    assert (len(_ct_ops(plan.isolate)), len(_ct_ops(plan.restore))) == (iso, back)
 
 
 @SETTINGS
@@ -316,3 +322,146 @@ def test_tapped_winding_with_sections_shorted(steps, tap, jumpers, z, winding_oh
         if {a, c} != {first, second}:
             loose = solve([], high_z=(a, c)).inp_cur[0]
             assert abs(abs(loose) - ideal) <= 1e-3 * ideal
+
+
+def _trips_first_and_last(nl, device, plan):
+    """The checks of the trips-first-and-last property on one plan (see the docstring)."""
+    from analysis.engine.plan import _stripped, _trip_path_switches
+    from analysis.engine.procedure import simulate
+    from analysis.engine.state import APPEAR_FROM, evaluate_states, normal_state
+
+    trips = _trip_path_switches(nl)
+    for step in (*plan.isolate, *plan.restore):
+        assert isinstance(step["why"], str) and step["why"] and "\n" not in step["why"]
+        assert all(set(r) <= {"between", "a", "parallel"} for r in step["readings"])
+    assert plan.verdict is not None and plan.verdict.safe == plan.possible
+    iso, back = _stripped(list(plan.isolate)), _stripped(list(plan.restore))
+
+    def kind(op):
+        return "note" if "note" in op else "trip" if op.get("set") in trips else "ct"
+
+    k_iso = [kind(op) for op in iso]
+    k_back = [kind(op) for op in back]
+    # isolate: trips, then CT work, then the closing note
+    assert k_iso == sorted(k_iso, key=["trip", "ct", "note"].index), k_iso
+    assert k_iso[-1] == "note"
+    # restore: CT work, the verify note, then the trips
+    assert k_back == sorted(k_back, key=["ct", "note", "trip"].index), k_back
+    assert k_back.count("note") == 1 and back[k_back.index("note")]["note"].startswith("verify")
+    # the trips closed are exactly those opened, in the reverse order, to normal
+    opened = [op["set"] for op in iso if kind(op) == "trip"]
+    assert [op["set"] for op in back if kind(op) == "trip"] == opened[::-1]
+    ops = iso + back
+    sim = simulate(nl, ops)
+    start = normal_state(nl)
+    assert sim[-1][1].positions == start.positions and sim[-1][1].jumpers == ()
+    states = [start] + [x for passed, after in sim for x in (*passed, after)]
+    evs = evaluate_states(nl, states)
+    norm = evs[0]
+    n_trips = k_iso.count("trip")
+    dev = nl.devices[device]
+    after_trips = evs[len([x for p, a in sim[:n_trips] for x in (*p, a)])]
+    assert not any(after_trips.out_connected[o.index] for o in dev.outputs)
+    for ev in evs:
+        for d in nl.devices.values():
+            if not d.outputs or not d.is_relay:
+                continue
+            off = any(
+                abs(ev.inp_cur[i.index] - norm.inp_cur[i.index])
+                > APPEAR_FROM * max(norm.inp_ref_a[i.index], 1e-9)
+                for i in d.inputs
+            )
+            if off:
+                assert not any(ev.out_connected[o.index] for o in d.outputs), (d.code, ops)
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    draw_out=st.booleans(),
+    transition=st.sampled_from(["make_before_break", "break_before_make", "simultaneous"]),
+    residual=st.booleans(),
+    load=st.one_of(st.none(), st.floats(5, 2000)),
+)
+def test_every_plan_opens_the_trips_first_and_closes_them_last(
+    draw_out, transition, residual, load
+):
+    nl = build_netlist(
+        wye_panel(
+            test_switch=True,
+            draw_out=draw_out,
+            trip=True,
+            transition=transition,
+            max_load_a=load,
+            z_residual_ohm=0.2 if residual else None,
+        ).build()
+    )
+    plan = plan_isolation(nl, "R-1")
+    assert plan.possible, plan.reason
+    _trips_first_and_last(nl, "R-1", plan)
+
+
+@settings(max_examples=30, deadline=None)
+@given(
+    device=st.sampled_from(["R-50", "R-50N"]),
+    transition=st.sampled_from(["make_before_break", "break_before_make", "simultaneous"]),
+    load=st.floats(5, 2000),
+)
+def test_every_plan_opens_the_trips_of_the_relays_it_disturbs_first(device, transition, load):
+    """A phase and a residual relay in series (each with its own trip pole): whichever is
+    worked on, the other's currents change, so its trip is opened first and closed last."""
+    b = residual_panel(transition=transition)
+    b.doc["equipment"][0]["max_load_a"] = load
+    nl = build_netlist(b.build())
+    plan = plan_isolation(nl, device)
+    if not plan.possible:
+        assert plan.isolate == () and plan.jumpers_needed
+        return
+    _trips_first_and_last(nl, device, plan)
+    opened = {op["set"] for op in plan.isolate if op.get("set") in ("TS-1/T1", "TS-1/T2")}
+    assert opened == {"TS-1/T1", "TS-1/T2"}
+
+
+@settings(max_examples=60, deadline=None)
+@given(
+    closes=st.lists(st.booleans(), min_size=3, max_size=6),
+    start=st.integers(0, 5),
+    end=st.integers(0, 5),
+)
+def test_a_multi_position_switch_is_checked_in_every_position_it_passes(closes, start, end):
+    """A rotary switch (kind ``other``) whose position k closes the CT onto the meter when
+    ``closes[k]``; it starts in a closing position and is set to another. Simultaneous
+    contacts, so the only states on the way are the positions passed (common practice, no
+    source: a rotary switch rests in each position it passes)."""
+    n = len(closes)
+    start, end = start % n, end % n
+    closes = list(closes)
+    closes[start] = True
+    if start == end:
+        return
+    b = SiteBuilder("ROT")
+    b.equipment("CB", max_load_a=320)
+    b.ct("CT", equipment="CB")
+    b.wire("CT:X1", "TB:1", 0.2)
+    b.wire("CT:X2", "TB:N", 0.2)
+    b.ground("TB:N")
+    positions = tuple(f"P{k}" for k in range(n))
+    segments = [("TB:1", "RS:1", (positions[k],)) for k in range(n) if closes[k]]
+    b.switch(
+        "RS",
+        segments,
+        kind="other",
+        positions=positions,
+        normal=positions[start],
+        transition="simultaneous",
+    )
+    b.device("M", kind="meter", inputs=[("I", "RS:1", "TB:N", 0.05)])
+    v = check_operations(build_netlist(b.build()), [{"set": "RS", "to": positions[end]}])
+    step = 1 if end > start else -1
+    passed = [closes[k] for k in range(start + step, end + step, step)]
+    opened = [f.stage for f in v.steps[1].findings if f.code == "open_secondary"]
+    if all(passed):
+        assert opened == []
+    elif all(passed[:-1]):
+        assert opened == ["after"]  # only the new position is open
+    else:
+        assert opened[0] == "transition"
