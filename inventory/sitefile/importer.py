@@ -21,10 +21,10 @@ from typing import Any
 from django.db import models as djm
 from django.utils import timezone
 from django.utils.dateparse import parse_datetime
-from simple_history.utils import bulk_create_with_history
 
 from inventory import models
-from inventory.sitefile.rowsync import Row, RowSync, numbered, stored
+from inventory.sitefile import rowsync
+from inventory.sitefile.rowsync import Row, RowSync, insert_with_history, numbered
 
 
 class SiteImportError(ValueError):
@@ -93,6 +93,7 @@ class _SiteUpsert:
             user=user, created=result.created, updated=result.updated, deleted=result.deleted
         )
         self.sid = 0
+        self.fresh = False  # a new site: nothing stored to compare with
         # Terminal key (owner, name) -> wanted row; filled by the CT step and by every
         # reference to a point, then written in one sync.
         self.terminals: dict[TerminalKey, Row] = {}
@@ -116,7 +117,7 @@ class _SiteUpsert:
             models.Switch, "switches", lambda s: {"kind": s["kind"], "transition": s["transition"]}
         )
         self.procedures = self.coded(models.Procedure, "procedures", self.procedure_row)
-        old_terminals = stored(models.Terminal, site_id=self.sid)
+        old_terminals = self.stored(models.Terminal, site_id=self.sid)
         self.ct_terminals()
         refs = self.references()
         self.sync_terminals(old_terminals)
@@ -143,6 +144,7 @@ class _SiteUpsert:
             "notes": data.get("notes", ""),
         }
         if site is None:
+            self.fresh = True
             site = models.Site(code=data["code"], **values)
             site.save()
             self.result.created["sites"] += 1
@@ -152,6 +154,9 @@ class _SiteUpsert:
             site.save()
             self.result.updated["sites"] += 1
         self.sid = site.pk
+
+    def stored(self, model: type[djm.Model], **where: Any) -> list[Row]:
+        return [] if self.fresh else rowsync.stored(model, **where)
 
     def coded(
         self, model: type[djm.Model], section: str, row: Any, *, delete: bool = False
@@ -164,7 +169,7 @@ class _SiteUpsert:
         }
         return self.sync(
             model,
-            stored(model, site_id=self.sid),
+            self.stored(model, site_id=self.sid),
             wanted,
             key=lambda r: r["code"],
             delete=delete,
@@ -315,10 +320,10 @@ class _SiteUpsert:
                 )
         now = timezone.now()
         seen = {
-            (c.ct_id, c.changed_at, tuple(c.from_tap), tuple(c.to_tap))
-            for c in models.TapChange.objects.filter(ct__site_id=self.sid)
+            (c["ct_id"], c["changed_at"], tuple(c["from_tap"]), tuple(c["to_tap"]))
+            for c in self.stored(models.TapChange, ct__site_id=self.sid)
         }
-        new: list[models.TapChange] = []
+        new: list[Row] = []
         for c in self.doc.get("cts", []):
             ct_id = self.cts[c["code"]]
             events = c.get("tap_changes", [])
@@ -328,33 +333,33 @@ class _SiteUpsert:
                 if k not in seen:
                     seen.add(k)
                     new.append(
-                        models.TapChange(
-                            ct_id=ct_id,
-                            from_tap=list(event["from"]),
-                            to_tap=list(event["to"]),
-                            changed_at=at,
-                            changed_by=event.get("by", ""),
-                            reason=event.get("reason", ""),
-                        )
+                        {
+                            "ct_id": ct_id,
+                            "from_tap": list(event["from"]),
+                            "to_tap": list(event["to"]),
+                            "changed_at": at,
+                            "changed_by": event.get("by", ""),
+                            "reason": event.get("reason", ""),
+                        }
                     )
             in_use = tuple(c["in_use"])
             previous = old_tap.get(ct_id) or (tuple(events[-1]["to"]) if events else None)
             if previous and tuple(previous) != in_use:
                 new.append(
-                    models.TapChange(
-                        ct_id=ct_id,
-                        from_tap=list(previous),
-                        to_tap=list(in_use),
-                        changed_at=now,
-                        changed_by=getattr(self.user, "username", "") or "site import",
-                        reason="tap in use changed by site import",
-                    )
+                    {
+                        "ct_id": ct_id,
+                        "from_tap": list(previous),
+                        "to_tap": list(in_use),
+                        "changed_at": now,
+                        "changed_by": getattr(self.user, "username", "") or "site import",
+                        "reason": "tap in use changed by site import",
+                    }
                 )
                 self.result.tap_changes.append(
                     f"{c['code']}: {'-'.join(previous)} -> {'-'.join(in_use)}"
                 )
         if new:
-            bulk_create_with_history(new, models.TapChange, default_user=self.user)
+            insert_with_history(models.TapChange, new, user=self.user)
             self.result.created["tap changes"] += len(new)
 
     # -- rows that join terminals -------------------------------------------------------------
@@ -378,7 +383,7 @@ class _SiteUpsert:
             }
         self.sync(
             models.DeviceInput,
-            stored(models.DeviceInput, device__site_id=self.sid),
+            self.stored(models.DeviceInput, device__site_id=self.sid),
             wanted,
             key=lambda r: (r["device_id"], r["name"]),
         )
@@ -395,7 +400,7 @@ class _SiteUpsert:
             }
         self.sync(
             models.DeviceOutput,
-            stored(models.DeviceOutput, device__site_id=self.sid),
+            self.stored(models.DeviceOutput, device__site_id=self.sid),
             wanted,
             key=lambda r: (r["device_id"], r["name"]),
         )
@@ -405,7 +410,7 @@ class _SiteUpsert:
     ) -> None:
         """Rows with no code of their own, keyed by the ids in ``ends`` plus a running count
         (document order against stored id order)."""
-        old = stored(model, **where)
+        old = self.stored(model, **where)
         old_keys = dict(
             zip(
                 (r["id"] for r in old),
@@ -453,13 +458,13 @@ class _SiteUpsert:
     def grounds(self, refs: list) -> None:
         self.sync(
             models.Ground,
-            stored(models.Ground, site_id=self.sid),
+            self.stored(models.Ground, site_id=self.sid),
             {self.tid[g]: {"site_id": self.sid, "terminal_id": self.tid[g]} for g in refs},
             key=lambda g: g["terminal_id"],
         )
 
     def switch_positions(self) -> None:
-        old = stored(models.SwitchPosition, switch__site_id=self.sid)
+        old = self.stored(models.SwitchPosition, switch__site_id=self.sid)
         wanted = {
             (self.switches[s["code"]], name): {
                 "switch_id": self.switches[s["code"]],
@@ -508,7 +513,7 @@ class _SiteUpsert:
         }
         self.sync(
             models.ProcedureStep,
-            stored(models.ProcedureStep, procedure__site_id=self.sid),
+            self.stored(models.ProcedureStep, procedure__site_id=self.sid),
             wanted,
             key=lambda s: (s["procedure_id"], s["order"]),
         )
@@ -518,29 +523,19 @@ class _SiteUpsert:
     def drop_removed(self) -> None:
         """Coded objects the document no longer has, children first (foreign keys protect),
         then terminals nothing refers to any more."""
-        for model, section in (
-            (models.Procedure, "procedures"),
-            (models.Switch, "switches"),
-            (models.Device, "devices"),
-            (models.CurrentTransformer, "cts"),
-            (models.Equipment, "equipment"),
-            (models.Bus, "buses"),
+        for model in (
+            models.Procedure,
+            models.Switch,
+            models.Device,
+            models.CurrentTransformer,
+            models.Equipment,
+            models.Bus,
+            models.Terminal,
         ):
-            keep = [item["code"] for item in self.doc.get(section, [])]
-            gone = list(
-                model.objects.filter(site_id=self.sid)
-                .exclude(code__in=keep)
-                .values_list("pk", flat=True)
-            )
+            gone = self.sync.gone.get(model)
             if gone:
-                model.objects.filter(pk__in=gone).delete()
-                self.result.deleted[str(model._meta.verbose_name_plural)] += len(gone)
-        keep_ids = [self.tid[k] for k in self.terminals]
-        orphans = list(
-            models.Terminal.objects.filter(site_id=self.sid)
-            .exclude(pk__in=keep_ids)
-            .values_list("pk", flat=True)
-        )
-        if orphans:
-            models.Terminal.objects.filter(pk__in=orphans).delete()
-            self.result.deleted["terminals"] += len(orphans)
+                # Count what this delete removed: a dropped CT's terminals went with it.
+                _, removed = model.objects.filter(pk__in=gone).delete()
+                if removed.get(model._meta.label):
+                    name = str(model._meta.verbose_name_plural)
+                    self.result.deleted[name] += removed[model._meta.label]

@@ -4,6 +4,14 @@ The importer describes each section as wanted rows (plain dicts of column values
 natural key; :class:`RowSync` compares them with the stored rows (read as dicts, never as model
 instances), updates in place what changed, creates what is new and deletes what is gone, and
 records a django-simple-history row for every row it writes. Counts go to the import result.
+
+New rows are most of a fleet import, so :func:`insert_with_history` writes them without model
+instances: on PostgreSQL their ids come from the table's sequence in one query and the rows and
+their history rows go in by ``COPY``; elsewhere (SQLite, the embedded default) ``bulk_create``
+returns the ids and the history rows go in by one ``executemany``. The history rows are what
+simple-history's own bulk helper writes (``+``, one time for the batch, the default user or the
+request's user), minus the model instances. Updates are rare and few, and use that helper;
+deletes go through the ORM so that its signals record them.
 """
 
 from __future__ import annotations
@@ -12,8 +20,11 @@ from collections import Counter
 from collections.abc import Callable, Hashable, Iterable
 from typing import Any
 
+from django.db import connection
 from django.db import models as djm
-from simple_history.utils import bulk_create_with_history, bulk_update_with_history
+from django.utils import timezone
+from simple_history.models import HistoricalRecords
+from simple_history.utils import bulk_update_with_history
 
 Row = dict[str, Any]
 
@@ -39,6 +50,119 @@ def numbered(pairs: Iterable[tuple]) -> list[tuple]:
     return keys
 
 
+# Field types whose Python value the database driver cannot take as it is.
+_PREPARED = frozenset({"JSONField", "DateTimeField", "DateField", "DecimalField", "UUIDField"})
+
+
+def _preparers(fields: list[djm.Field]) -> list[Callable[[Any], Any] | None]:
+    def prep(f: djm.Field) -> Callable[[Any], Any]:
+        return lambda value: f.get_db_prep_save(value, connection)
+
+    return [prep(f) if f.get_internal_type() in _PREPARED else None for f in fields]
+
+
+def _prepared(values: list[tuple], preparers: list[Callable[[Any], Any] | None]) -> list[tuple]:
+    active = [(i, p) for i, p in enumerate(preparers) if p is not None]
+    if not active:
+        return values
+    out = []
+    for row in values:
+        row = list(row)
+        for i, p in active:
+            row[i] = p(row[i])
+        out.append(tuple(row))
+    return out
+
+
+def _history_user_id(user: Any) -> Any:
+    """The user simple-history would record: the one given, else the request's (set by its
+    middleware), else none."""
+    if user is None:
+        request = getattr(HistoricalRecords.context, "request", None)
+        user = getattr(request, "user", None)
+    if user is None or not getattr(user, "is_authenticated", False):
+        return None
+    return user.pk
+
+
+def _quote(name: str) -> str:
+    return connection.ops.quote_name(name)
+
+
+def _new_ids(model: type[djm.Model], n: int) -> list[int]:
+    """``n`` fresh primary keys from the table's sequence (PostgreSQL), in one query."""
+    table = model._meta.db_table
+    pk = model._meta.pk.column
+    with connection.cursor() as cursor:
+        cursor.execute(
+            "SELECT nextval(pg_get_serial_sequence(%s, %s)) FROM generate_series(1, %s)",
+            [_quote(table), pk, n],
+        )
+        return [row[0] for row in cursor.fetchall()]
+
+
+def _copy(table: str, names: list[str], values: list[tuple]) -> None:
+    sql = f"COPY {_quote(table)} ({', '.join(_quote(n) for n in names)}) FROM STDIN"
+    with connection.cursor() as cursor, cursor.cursor.copy(sql) as copy:
+        for row in values:
+            copy.write_row(row)
+
+
+def _executemany(table: str, names: list[str], values: list[tuple]) -> None:
+    sql = (
+        f"INSERT INTO {_quote(table)} ({', '.join(_quote(n) for n in names)}) "
+        f"VALUES ({', '.join(['%s'] * len(names))})"
+    )
+    with connection.cursor() as cursor:
+        cursor.executemany(sql, values)
+
+
+def insert_with_history(model: type[djm.Model], rows: list[Row], *, user: Any) -> list[int]:
+    """Insert ``rows`` (column attname -> value, no primary key) and one ``+`` history row for
+    each; the new primary keys, in order."""
+    if not rows:
+        return []
+    pk = model._meta.pk
+    fields = [f for f in model._meta.concrete_fields if not f.primary_key]
+    names = [f.attname for f in fields]
+    postgres = connection.vendor == "postgresql"
+    if postgres:
+        ids = _new_ids(model, len(rows))
+    else:
+        created = model.objects.bulk_create([model(**row) for row in rows])
+        ids = [row.pk for row in created]
+        if ids and ids[0] is None:
+            raise RuntimeError(f"bulk create of {model.__name__} returned no primary keys")
+    # The same values, prepared for the driver once, go to the table and to its history.
+    values = _prepared(
+        [(i, *(row[n] for n in names)) for i, row in zip(ids, rows, strict=True)],
+        _preparers([pk, *fields]),
+    )
+    if postgres:
+        _copy(model._meta.db_table, [pk.column, *(f.column for f in fields)], values)
+    history = model.history.model
+    hist_fields = [history._meta.get_field(n) for n in ("id", *(f.name for f in fields))]
+    stamp_fields = [
+        history._meta.get_field(n)
+        for n in ("history_date", "history_change_reason", "history_type", "history_user_id")
+    ]
+    stamp = tuple(
+        prep(v) if prep else v
+        for prep, v in zip(
+            _preparers(stamp_fields),
+            (timezone.now(), None, "+", _history_user_id(user)),
+            strict=True,
+        )
+    )
+    write = _copy if postgres else _executemany
+    write(
+        history._meta.db_table,
+        [f.column for f in (*hist_fields, *stamp_fields)],
+        [(*row, *stamp) for row in values],
+    )
+    return ids
+
+
 class RowSync:
     """Syncs rows model by model for one import, counting into ``created``/``updated``/
     ``deleted`` (keyed by the model's plural name)."""
@@ -48,6 +172,8 @@ class RowSync:
         self.created = created
         self.updated = updated
         self.deleted = deleted
+        # Model -> ids of stored rows the document dropped, when their deletion waits.
+        self.gone: dict[type[djm.Model], list[int]] = {}
 
     def __call__(
         self,
@@ -58,7 +184,8 @@ class RowSync:
         *,
         delete: bool = True,
     ) -> dict[Hashable, int]:
-        """Sync and return natural key -> primary key of every row kept or created."""
+        """Sync and return natural key -> primary key of every row kept or created. Without
+        ``delete``, the ids of dropped rows wait in ``gone`` for the caller to delete them."""
         name = str(model._meta.verbose_name_plural)
         current = {key(row): row for row in existing}
         to_update: list[djm.Model] = []
@@ -72,7 +199,7 @@ class RowSync:
                 instance = model(**{**row, **values})
                 fields.update(changed)
                 to_update.append(instance)
-        ids = {k: row["id"] for k, row in current.items()}
+        ids = {k: row["id"] for k, row in current.items() if k in wanted}
         if to_update:
             bulk_update_with_history(
                 to_update, model, sorted(fields), batch_size=2000, default_user=self.user
@@ -80,18 +207,13 @@ class RowSync:
             self.updated[name] += len(to_update)
         new_keys = [k for k in wanted if k not in current]
         if new_keys:
-            created = bulk_create_with_history(
-                [model(**wanted[k]) for k in new_keys],
-                model,
-                batch_size=2000,
-                default_user=self.user,
-            )
-            if created and created[0].pk is None:  # backends that do not return keys
-                raise RuntimeError(f"bulk create of {name} returned no primary keys")
-            self.created[name] += len(created)
-            ids.update(zip(new_keys, (row.pk for row in created), strict=True))
+            new_ids = insert_with_history(model, [wanted[k] for k in new_keys], user=self.user)
+            self.created[name] += len(new_ids)
+            ids.update(zip(new_keys, new_ids, strict=True))
         gone = [k for k in current if k not in wanted]
         if delete and gone:
-            model.objects.filter(pk__in=[ids.pop(k) for k in gone]).delete()
+            model.objects.filter(pk__in=[current[k]["id"] for k in gone]).delete()
             self.deleted[name] += len(gone)
+        elif gone:
+            self.gone[model] = [current[k]["id"] for k in gone]
         return ids
