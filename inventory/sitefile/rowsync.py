@@ -16,6 +16,7 @@ deletes go through the ORM so that its signals record them.
 
 from __future__ import annotations
 
+import json
 from collections import Counter
 from collections.abc import Callable, Hashable, Iterable
 from typing import Any
@@ -108,15 +109,6 @@ def _copy(table: str, names: list[str], values: list[tuple]) -> None:
             copy.write_row(row)
 
 
-def _executemany(table: str, names: list[str], values: list[tuple]) -> None:
-    sql = (
-        f"INSERT INTO {_quote(table)} ({', '.join(_quote(n) for n in names)}) "
-        f"VALUES ({', '.join(['%s'] * len(names))})"
-    )
-    with connection.cursor() as cursor:
-        cursor.executemany(sql, values)
-
-
 def insert_with_history(model: type[djm.Model], rows: list[Row], *, user: Any) -> list[int]:
     """Insert ``rows`` (column attname -> value, no primary key) and one ``+`` history row for
     each; the new primary keys, in order."""
@@ -133,34 +125,44 @@ def insert_with_history(model: type[djm.Model], rows: list[Row], *, user: Any) -
         ids = [row.pk for row in created]
         if ids and ids[0] is None:
             raise RuntimeError(f"bulk create of {model.__name__} returned no primary keys")
-    # The same values, prepared for the driver once, go to the table and to its history.
-    values = _prepared(
-        [(i, *(row[n] for n in names)) for i, row in zip(ids, rows, strict=True)],
-        _preparers([pk, *fields]),
-    )
     if postgres:
-        _copy(model._meta.db_table, [pk.column, *(f.column for f in fields)], values)
-    history = model.history.model
-    hist_fields = [history._meta.get_field(n) for n in ("id", *(f.name for f in fields))]
-    stamp_fields = [
-        history._meta.get_field(n)
-        for n in ("history_date", "history_change_reason", "history_type", "history_user_id")
-    ]
-    stamp = tuple(
-        prep(v) if prep else v
-        for prep, v in zip(
-            _preparers(stamp_fields),
-            (timezone.now(), None, "+", _history_user_id(user)),
-            strict=True,
+        values = _prepared(
+            [(i, *(row[n] for n in names)) for i, row in zip(ids, rows, strict=True)],
+            _preparers([pk, *fields]),
         )
-    )
-    write = _copy if postgres else _executemany
-    write(
-        history._meta.db_table,
-        [f.column for f in (*hist_fields, *stamp_fields)],
-        [(*row, *stamp) for row in values],
-    )
+        _copy(model._meta.db_table, [pk.column, *(f.column for f in fields)], values)
+    _history_from_rows(model, ids, user)
     return ids
+
+
+def _history_from_rows(model: type[djm.Model], ids: list[int], user: Any) -> None:
+    """One ``+`` history row per new row, copied by the database from the rows themselves
+    (the values never travel twice)."""
+    history = model.history.model
+    columns = [
+        history._meta.get_field(f.name).column
+        for f in model._meta.concrete_fields
+        if not f.primary_key
+    ]
+    date_field = history._meta.get_field("history_date")
+    stamp = [
+        date_field.get_db_prep_save(timezone.now(), connection),
+        _history_user_id(user),
+    ]
+    if connection.vendor == "postgresql":
+        chosen, id_list = "= ANY(%s)", ids
+    else:  # SQLite: the ids as one JSON array parameter, read back by json_each
+        chosen, id_list = "IN (SELECT value FROM json_each(%s))", json.dumps(ids)
+    pk = _quote(model._meta.pk.column)
+    names = ", ".join(_quote(c) for c in columns)
+    sql = (
+        f"INSERT INTO {_quote(history._meta.db_table)} ({pk}, {names}, history_date, "
+        "history_change_reason, history_type, history_user_id) "
+        f"SELECT {pk}, {names}, %s, NULL, '+', %s FROM {_quote(model._meta.db_table)} "
+        f"WHERE {pk} {chosen} ORDER BY {pk}"
+    )
+    with connection.cursor() as cursor:
+        cursor.execute(sql, [*stamp, id_list])
 
 
 class RowSync:
