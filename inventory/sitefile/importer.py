@@ -24,7 +24,7 @@ from django.utils.dateparse import parse_datetime
 
 from inventory import models
 from inventory.sitefile import rowsync
-from inventory.sitefile.rowsync import Row, RowSync, insert_with_history, numbered
+from inventory.sitefile.rowsync import Row, RowSync, numbered
 
 
 class SiteImportError(ValueError):
@@ -76,6 +76,17 @@ def _num(value: Any) -> float | None:
 
 TerminalKey = tuple[str, str]
 
+# Coded objects and their sections, parents first.
+_CODED_SECTIONS: tuple[tuple[type[djm.Model], str], ...] = (
+    (models.Bus, "buses"),
+    (models.Equipment, "equipment"),
+    (models.TerminalBlock, "terminal_blocks"),
+    (models.CurrentTransformer, "cts"),
+    (models.Device, "devices"),
+    (models.Switch, "switches"),
+    (models.Procedure, "procedures"),
+)
+
 
 def upsert_site(doc: dict, result: ImportResult, user: Any) -> int:
     """Upsert the site a valid document describes (in the caller's transaction); its id."""
@@ -101,6 +112,11 @@ class _SiteUpsert:
 
     def run(self) -> int:
         self.site()
+        doc = self.doc
+        if self.fresh:  # every row is new: take the ids of the coded objects in one go
+            self.sync.new.reserve(
+                {model: len(doc.get(section, [])) for model, section in _CODED_SECTIONS}
+            )
         buses = self.coded(models.Bus, "buses", self.bus_row)
         self.equipment = self.coded(
             models.Equipment, "equipment", lambda e: self.equipment_row(e, buses)
@@ -120,6 +136,22 @@ class _SiteUpsert:
         old_terminals = self.stored(models.Terminal, site_id=self.sid)
         self.ct_terminals()
         refs = self.references()
+        if self.fresh:  # ...and of the rows that join terminals in another
+            self.sync.new.reserve(
+                {
+                    models.Terminal: len(self.terminals),
+                    models.DeviceInput: len(refs["inputs"]),
+                    models.DeviceOutput: len(refs["outputs"]),
+                    models.Wire: len(refs["wires"]),
+                    models.Link: len(refs["links"]),
+                    models.Ground: len(set(refs["grounds"])),
+                    models.SwitchPosition: sum(
+                        len(s["positions"]) for s in doc.get("switches", [])
+                    ),
+                    models.SwitchContact: len(refs["contacts"]),
+                    models.ProcedureStep: sum(len(p["steps"]) for p in doc.get("procedures", [])),
+                }
+            )
         self.sync_terminals(old_terminals)
         self.tap_changes(old_terminals)
         self.device_inputs(refs["inputs"])
@@ -130,6 +162,7 @@ class _SiteUpsert:
         self.switch_positions()
         self.switch_contacts(refs["contacts"])
         self.procedure_steps()
+        self.sync.new.flush()
         self.drop_removed()
         return self.sid
 
@@ -359,7 +392,7 @@ class _SiteUpsert:
                     f"{c['code']}: {'-'.join(previous)} -> {'-'.join(in_use)}"
                 )
         if new:
-            insert_with_history(models.TapChange, new, user=self.user)
+            self.sync.new.insert(models.TapChange, new)
             self.result.created["tap changes"] += len(new)
 
     # -- rows that join terminals -------------------------------------------------------------

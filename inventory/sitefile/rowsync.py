@@ -5,12 +5,11 @@ natural key; :class:`RowSync` compares them with the stored rows (read as dicts,
 instances), updates in place what changed, creates what is new and deletes what is gone, and
 records a django-simple-history row for every row it writes. Counts go to the import result.
 
-New rows are most of a fleet import, so :func:`insert_with_history` writes them without model
-instances: on PostgreSQL their ids come from the table's sequence in one query and the rows and
-their history rows go in by ``COPY``; elsewhere (SQLite, the embedded default) ``bulk_create``
-returns the ids and the history rows go in by one ``executemany``. The history rows are what
-simple-history's own bulk helper writes (``+``, one time for the batch, the default user or the
-request's user), minus the model instances. Updates are rare and few, and use that helper;
+New rows are most of a fleet import, so :class:`NewRows` writes them without model instances:
+on PostgreSQL with ids from the sequences and ``COPY``; elsewhere (SQLite, the embedded default)
+``bulk_create`` returns the ids. Their history rows are what simple-history's own bulk helper
+writes (``+``, one time per table, the given user or the request's), copied by the database
+from the new rows. Updates are rare and few, and use that helper;
 deletes go through the ORM so that its signals record them.
 """
 
@@ -90,18 +89,6 @@ def _quote(name: str) -> str:
     return connection.ops.quote_name(name)
 
 
-def _new_ids(model: type[djm.Model], n: int) -> list[int]:
-    """``n`` fresh primary keys from the table's sequence (PostgreSQL), in one query."""
-    table = model._meta.db_table
-    pk = model._meta.pk.column
-    with connection.cursor() as cursor:
-        cursor.execute(
-            "SELECT nextval(pg_get_serial_sequence(%s, %s)) FROM generate_series(1, %s)",
-            [_quote(table), pk, n],
-        )
-        return [row[0] for row in cursor.fetchall()]
-
-
 def _copy(table: str, names: list[str], values: list[tuple]) -> None:
     sql = f"COPY {_quote(table)} ({', '.join(_quote(n) for n in names)}) FROM STDIN"
     with connection.cursor() as cursor, cursor.cursor.copy(sql) as copy:
@@ -109,60 +96,109 @@ def _copy(table: str, names: list[str], values: list[tuple]) -> None:
             copy.write_row(row)
 
 
-def insert_with_history(model: type[djm.Model], rows: list[Row], *, user: Any) -> list[int]:
-    """Insert ``rows`` (column attname -> value, no primary key) and one ``+`` history row for
-    each; the new primary keys, in order."""
-    if not rows:
-        return []
-    pk = model._meta.pk
-    fields = [f for f in model._meta.concrete_fields if not f.primary_key]
-    names = [f.attname for f in fields]
-    postgres = connection.vendor == "postgresql"
-    if postgres:
-        ids = _new_ids(model, len(rows))
-    else:
-        created = model.objects.bulk_create([model(**row) for row in rows])
-        ids = [row.pk for row in created]
-        if ids and ids[0] is None:
-            raise RuntimeError(f"bulk create of {model.__name__} returned no primary keys")
-    if postgres:
-        values = _prepared(
-            [(i, *(row[n] for n in names)) for i, row in zip(ids, rows, strict=True)],
-            _preparers([pk, *fields]),
+class NewRows:
+    """Inserts the new rows of one import and their ``+`` history rows.
+
+    Round trips are what a loaded server makes expensive, so on PostgreSQL ids for several
+    tables come from their sequences in one query (:meth:`reserve`, when the counts are known
+    ahead; unused ids are only a gap in a sequence), the rows go in by one ``COPY`` per table,
+    and the history rows, copied by the database from the rows themselves (the values never
+    travel twice), wait for :meth:`flush` to go in one batch of statements.
+    """
+
+    def __init__(self, user: Any) -> None:
+        self.postgres = connection.vendor == "postgresql"
+        self.user_id = _history_user_id(user)
+        self.reserved: dict[type[djm.Model], list[int]] = {}
+        self.pending: list[tuple[str, list[Any]]] = []
+
+    def reserve(self, counts: dict[type[djm.Model], int]) -> None:
+        """Take ids for the given numbers of new rows per model, in one query (PostgreSQL)."""
+        counts = {m: n for m, n in counts.items() if n > 0}
+        if not self.postgres or not counts:
+            return
+        arrays = ", ".join(
+            "ARRAY(SELECT nextval(pg_get_serial_sequence(%s, %s)) FROM generate_series(1, %s))"
+            for _ in counts
         )
-        _copy(model._meta.db_table, [pk.column, *(f.column for f in fields)], values)
-    _history_from_rows(model, ids, user)
-    return ids
+        params = [
+            v
+            for model, n in counts.items()
+            for v in (_quote(model._meta.db_table), model._meta.pk.column, n)
+        ]
+        with connection.cursor() as cursor:
+            cursor.execute(f"SELECT {arrays}", params)
+            for model, ids in zip(counts, cursor.fetchone(), strict=True):
+                self.reserved.setdefault(model, []).extend(ids)
 
+    def _ids(self, model: type[djm.Model], n: int) -> list[int]:
+        pool = self.reserved.get(model, [])
+        if len(pool) < n:
+            self.reserve({model: n - len(pool)})
+            pool = self.reserved[model]
+        ids, self.reserved[model] = pool[:n], pool[n:]
+        return ids
 
-def _history_from_rows(model: type[djm.Model], ids: list[int], user: Any) -> None:
-    """One ``+`` history row per new row, copied by the database from the rows themselves
-    (the values never travel twice)."""
-    history = model.history.model
-    columns = [
-        history._meta.get_field(f.name).column
-        for f in model._meta.concrete_fields
-        if not f.primary_key
-    ]
-    date_field = history._meta.get_field("history_date")
-    stamp = [
-        date_field.get_db_prep_save(timezone.now(), connection),
-        _history_user_id(user),
-    ]
-    if connection.vendor == "postgresql":
-        chosen, id_list = "= ANY(%s)", ids
-    else:  # SQLite: the ids as one JSON array parameter, read back by json_each
-        chosen, id_list = "IN (SELECT value FROM json_each(%s))", json.dumps(ids)
-    pk = _quote(model._meta.pk.column)
-    names = ", ".join(_quote(c) for c in columns)
-    sql = (
-        f"INSERT INTO {_quote(history._meta.db_table)} ({pk}, {names}, history_date, "
-        "history_change_reason, history_type, history_user_id) "
-        f"SELECT {pk}, {names}, %s, NULL, '+', %s FROM {_quote(model._meta.db_table)} "
-        f"WHERE {pk} {chosen} ORDER BY {pk}"
-    )
-    with connection.cursor() as cursor:
-        cursor.execute(sql, [*stamp, id_list])
+    def insert(self, model: type[djm.Model], rows: list[Row]) -> list[int]:
+        """Insert ``rows`` (column attname -> value, no primary key); their new primary keys,
+        in order. Their history rows are written by :meth:`flush`."""
+        if not rows:
+            return []
+        pk = model._meta.pk
+        fields = [f for f in model._meta.concrete_fields if not f.primary_key]
+        if self.postgres:
+            ids = self._ids(model, len(rows))
+            names = [f.attname for f in fields]
+            values = _prepared(
+                [(i, *(row[n] for n in names)) for i, row in zip(ids, rows, strict=True)],
+                _preparers([pk, *fields]),
+            )
+            _copy(model._meta.db_table, [pk.column, *(f.column for f in fields)], values)
+        else:
+            created = model.objects.bulk_create([model(**row) for row in rows])
+            ids = [row.pk for row in created]
+            if ids and ids[0] is None:
+                raise RuntimeError(f"bulk create of {model.__name__} returned no primary keys")
+        self._history(model, ids)
+        return ids
+
+    def _history(self, model: type[djm.Model], ids: list[int]) -> None:
+        history = model.history.model
+        columns = [
+            history._meta.get_field(f.name).column
+            for f in model._meta.concrete_fields
+            if not f.primary_key
+        ]
+        if self.postgres:
+            chosen, id_list = "= ANY(%s)", ids
+        else:  # SQLite: the ids as one JSON array parameter, read back by json_each
+            chosen, id_list = "IN (SELECT value FROM json_each(%s))", json.dumps(ids)
+        pk = _quote(model._meta.pk.column)
+        names = ", ".join(_quote(c) for c in columns)
+        sql = (
+            f"INSERT INTO {_quote(history._meta.db_table)} ({pk}, {names}, history_date, "
+            "history_change_reason, history_type, history_user_id) "
+            f"SELECT {pk}, {names}, %s, NULL, '+', %s FROM {_quote(model._meta.db_table)} "
+            f"WHERE {pk} {chosen} ORDER BY {pk}"
+        )
+        date = history._meta.get_field("history_date")
+        stamp = date.get_db_prep_save(timezone.now(), connection)
+        self.pending.append((sql, [stamp, self.user_id, id_list]))
+
+    def flush(self) -> None:
+        """Write the history rows of everything inserted so far."""
+        if not self.pending:
+            return
+        with connection.cursor() as cursor:
+            if self.postgres:  # one round trip (client-side binding takes several statements)
+                cursor.execute(
+                    ";\n".join(sql for sql, _ in self.pending),
+                    [p for _, params in self.pending for p in params],
+                )
+            else:
+                for sql, params in self.pending:
+                    cursor.execute(sql, params)
+        self.pending = []
 
 
 class RowSync:
@@ -176,6 +212,7 @@ class RowSync:
         self.deleted = deleted
         # Model -> ids of stored rows the document dropped, when their deletion waits.
         self.gone: dict[type[djm.Model], list[int]] = {}
+        self.new = NewRows(user)
 
     def __call__(
         self,
@@ -209,7 +246,7 @@ class RowSync:
             self.updated[name] += len(to_update)
         new_keys = [k for k in wanted if k not in current]
         if new_keys:
-            new_ids = insert_with_history(model, [wanted[k] for k in new_keys], user=self.user)
+            new_ids = self.new.insert(model, [wanted[k] for k in new_keys])
             self.created[name] += len(new_ids)
             ids.update(zip(new_keys, new_ids, strict=True))
         gone = [k for k in current if k not in wanted]
