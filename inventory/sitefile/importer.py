@@ -556,15 +556,7 @@ class _SiteUpsert:
     def drop_removed(self) -> None:
         """Coded objects the document no longer has, children first (foreign keys protect),
         then terminals nothing refers to any more."""
-        for model in (
-            models.Procedure,
-            models.Switch,
-            models.Device,
-            models.CurrentTransformer,
-            models.Equipment,
-            models.Bus,
-            models.Terminal,
-        ):
+        for model in (*(m for m, _ in reversed(_CODED_SECTIONS)), models.Terminal):
             gone = self.sync.gone.get(model)
             if gone:
                 # Count what this delete removed: a dropped CT's terminals went with it.
