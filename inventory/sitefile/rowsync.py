@@ -117,8 +117,10 @@ class NewRows:
         counts = {m: n for m, n in counts.items() if n > 0}
         if not self.postgres or not counts:
             return
+        # The sequence is looked up once per table (in the lateral subquery), not per value.
         arrays = ", ".join(
-            "ARRAY(SELECT nextval(pg_get_serial_sequence(%s, %s)) FROM generate_series(1, %s))"
+            "ARRAY(SELECT nextval(q.seq) FROM (SELECT pg_get_serial_sequence(%s, %s)::regclass"
+            " AS seq) q, generate_series(1, %s))"
             for _ in counts
         )
         params = [
