@@ -192,7 +192,10 @@ class NewRows:
         if not self.pending:
             return
         with connection.cursor() as cursor:
-            if self.postgres:  # one round trip (client-side binding takes several statements)
+            # One round trip: Django's default client-side binding on psycopg 3 takes several
+            # statements in one execute (server-side binding does not).
+            options = connection.settings_dict.get("OPTIONS", {})
+            if self.postgres and not options.get("server_side_binding"):
                 cursor.execute(
                     ";\n".join(sql for sql, _ in self.pending),
                     [p for _, params in self.pending for p in params],
