@@ -225,3 +225,49 @@ def test_nan_and_infinity_are_refused_with_their_pointers(tmp_path):
         "/wires/0/length_m: must be a finite number, got nan",
     ]
     assert not models.Site.objects.exists()
+
+
+RECORD_MODELS = [
+    models.Bus,
+    models.Equipment,
+    models.TerminalBlock,
+    models.CurrentTransformer,
+    models.Terminal,
+    models.TapChange,
+    models.Device,
+    models.DeviceInput,
+    models.DeviceOutput,
+    models.Wire,
+    models.Link,
+    models.Ground,
+    models.Switch,
+    models.SwitchPosition,
+    models.SwitchContact,
+    models.Procedure,
+    models.ProcedureStep,
+]
+
+
+@pytest.mark.parametrize("path", DEMO_FILES[:1], ids=lambda p: p.stem)
+def test_every_row_an_import_writes_has_its_history_row(path, django_user_model):
+    # The import writes new rows in bulk (COPY on PostgreSQL) and their history rows in one
+    # statement per table: each row gets exactly one "+" row holding its values and the user.
+    clerk = django_user_model.objects.create(username="clerk")
+    site_import(doc=load_site_file(path), user=clerk)
+    for model in RECORD_MODELS:
+        names = [f.attname for f in model._meta.concrete_fields]
+        rows = list(model.objects.order_by("pk").values_list(*names))
+        assert rows, f"the demo site has no {model.__name__}"
+        history = model.history.model.objects.order_by("id")
+        assert list(history.values_list(*names)) == rows, model.__name__
+        assert set(history.values_list("history_type", "history_user_id")) == {("+", clerk.pk)}
+    # A re-import that changes one wire writes one "~" row for it and nothing else.
+    doc = export(load_site_file(path)["site"]["code"])
+    doc["wires"][0]["length_m"] = 12.5
+    before = {m: m.history.model.objects.count() for m in RECORD_MODELS}
+    site_import(doc=doc, user=clerk)
+    after = {m: m.history.model.objects.count() for m in RECORD_MODELS}
+    assert {m.__name__: after[m] - before[m] for m in RECORD_MODELS if after[m] != before[m]} == {
+        "Wire": 1
+    }
+    assert models.Wire.history.model.objects.latest("history_id").length_m == 12.5

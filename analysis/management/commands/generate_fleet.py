@@ -2,9 +2,9 @@
 fleet of ``fixtures.fleet`` (deterministic for a seed) for scale tests and benchmarks.
 
 Each site goes through ``inventory.services.site_import``, the one validated way in, so the
-fleet is exactly what an import of those site files gives. That costs about 0.8 s per site of
-~200 CTs here (validation, upsert and history of ~4,000 rows); ``--jobs`` imports in that many
-processes (sites are independent). The per-site recompute requests are recorded but not sent
+fleet is exactly what an import of those site files gives (validation, then ~5,000 rows of
+~200 CTs and their history per site; ``bench_import`` measures it); ``--jobs`` imports in that
+many processes (sites are independent). The per-site recompute requests are recorded but not sent
 (``recompute_deferred``); ``--recompute`` ends with one fleet run, which satisfies them all.
 """
 

@@ -1,0 +1,182 @@
+"""``bench_import [--sites 500] [--seed 1] [--jobs 2]``: the fleet import benchmark (a
+measurement, not a test; PostgreSQL for the COPY floor).
+
+(a) The import: the invented fleet of ``fixtures.fleet``, written first as site files (JSON, not
+    timed), then read, validated and written by ``inventory.services.site_import`` (the one
+    validated way in, history and tap-change events included) in ``--jobs`` processes, from the
+    first file opened to the last commit. Recompute requests are recorded, not sent.
+(b) The floor, in the same run: a COPY of the very rows (a) wrote, every inventory table and
+    its history table, into copies of those tables (indexes and checks included, no foreign
+    keys), split over the same number of processes, each in one transaction.
+
+Prints both, their ratio (targets: (a) <= 60 s for 500 sites with 2 processes, (a)/(b) <= 3),
+the rows written and the peak resident memory of each import process. The database must not
+hold any of the fleet's site codes yet (run it on an empty database); the imported fleet stays.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import multiprocessing
+import resource
+import tempfile
+import time
+from pathlib import Path
+
+from django.apps import apps
+from django.core.management.base import BaseCommand, CommandError
+from django.db import connection, connections, transaction
+
+from analysis import services
+from inventory.models import Site
+
+
+def _import_files(paths: list[str]) -> tuple[int, int, int]:
+    """Import the site files at ``paths`` in this process; (sites, CTs, peak RSS in KiB)."""
+    from inventory.services import site_import
+    from inventory.sitefile.validate import load_site_file
+
+    cts = 0
+    with services.recompute_deferred():
+        for path in paths:
+            doc = load_site_file(path)
+            site_import(doc=doc)
+            cts += len(doc.get("cts", []))
+    connections.close_all()
+    return len(paths), cts, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+
+
+def _copy_in(parts: list[tuple[str, str, bytes]]) -> int:
+    """COPY each ``(table, columns, text)`` in one transaction; rows written."""
+    rows = 0
+    with transaction.atomic(), connection.cursor() as cursor:
+        for table, cols, data in parts:
+            with cursor.cursor.copy(f"COPY {table} ({cols}) FROM STDIN") as copy:
+                copy.write(data)
+            rows += data.count(b"\n")
+    connections.close_all()
+    return rows
+
+
+def _tables() -> list[tuple[str, str]]:
+    """(table, primary key column) of every inventory model and its history."""
+    return [
+        (m._meta.db_table, m._meta.pk.column) for m in apps.get_app_config("inventory").get_models()
+    ]
+
+
+def _pool(jobs: int):
+    # Each process opens its own connection; none may be inherited from here.
+    connections.close_all()
+    return multiprocessing.get_context("fork").Pool(jobs)
+
+
+class Command(BaseCommand):
+    help = "Benchmark the fleet import against a COPY of the same rows (figures, not a test)."
+
+    def add_arguments(self, parser) -> None:
+        parser.add_argument("--sites", type=int, default=500)
+        parser.add_argument("--seed", type=int, default=1)
+        parser.add_argument("--jobs", type=int, default=2, help="import (and COPY) processes")
+
+    def handle(self, *args, sites: int, seed: int, jobs: int, **options) -> None:
+        from fixtures.fleet import generate_site
+
+        if sites < 1 or jobs < 1:
+            raise CommandError("--sites and --jobs must be at least 1")
+        codes = [f"S{i + 1:04d}" for i in range(sites)]
+        if Site.objects.filter(code__in=codes).exists():
+            raise CommandError("the database already holds fleet sites; run on an empty database")
+        postgres = connection.vendor == "postgresql"
+        tables = _tables()
+        before = {}
+        if postgres:
+            with connection.cursor() as cursor:
+                for table, pk in tables:
+                    cursor.execute(f'SELECT coalesce(max("{pk}"), 0) FROM "{table}"')
+                    before[table] = cursor.fetchone()[0]
+
+        with tempfile.TemporaryDirectory(prefix="bench_import_") as tmp:
+            t0 = time.perf_counter()
+            paths = []
+            for index in range(sites):
+                path = Path(tmp) / f"{codes[index]}.json"
+                path.write_text(json.dumps(generate_site(index, seed=seed)))
+                paths.append(str(path))
+            gen_s = time.perf_counter() - t0
+            self.stdout.write(f"generated {sites} site files in {gen_s:.1f} s (not timed)")
+
+            t0 = time.perf_counter()
+            if jobs == 1:
+                done = [_import_files(paths)]
+            else:
+                with _pool(jobs) as pool:
+                    done = pool.map(_import_files, [paths[i::jobs] for i in range(jobs)])
+            import_s = time.perf_counter() - t0
+        n_sites, n_cts = sum(d[0] for d in done), sum(d[1] for d in done)
+        rss = ", ".join(f"{d[2] / 1024:.0f}" for d in done)
+        self.stdout.write(
+            f"(a) import: {n_sites} sites, {n_cts} CTs in {import_s:.1f} s "
+            f"({import_s / n_sites * 1000:.0f} ms per site, {jobs} process(es)); "
+            f"peak RSS per process {rss} MiB"
+        )
+        if not postgres:
+            self.stdout.write("(b) COPY floor: PostgreSQL only")
+            return
+
+        # The rows (a) wrote, as COPY text, table by table (not timed).
+        dumps: list[tuple[str, str, list[bytes]]] = []
+        n_rows = 0
+        with connection.cursor() as cursor:
+            for table, pk in tables:
+                cursor.execute(
+                    "SELECT string_agg(quote_ident(attname), ', ' ORDER BY attnum) "
+                    "FROM pg_attribute WHERE attrelid = %s::regclass AND attnum > 0 "
+                    "AND NOT attisdropped",
+                    [table],
+                )
+                cols = cursor.fetchone()[0]
+                buf = io.BytesIO()
+                with cursor.cursor.copy(
+                    f'COPY (SELECT {cols} FROM "{table}" WHERE "{pk}" > {int(before[table])}) '
+                    "TO STDOUT"
+                ) as copy:
+                    for block in copy:
+                        buf.write(block)
+                lines = buf.getvalue().splitlines(keepends=True)
+                n_rows += len(lines)
+                if lines:
+                    dumps.append((table, cols, lines))
+            scratch = {table: f"bench_copy_{table}" for table, _ in tables}
+            for table, _ in tables:
+                cursor.execute(f'DROP TABLE IF EXISTS "{scratch[table]}"')
+                cursor.execute(f'CREATE TABLE "{scratch[table]}" (LIKE "{table}" INCLUDING ALL)')
+        work = [
+            [
+                (f'"{scratch[table]}"', cols, b"".join(lines[i::jobs]))
+                for table, cols, lines in dumps
+            ]
+            for i in range(jobs)
+        ]
+        try:
+            t0 = time.perf_counter()
+            if jobs == 1:
+                copied = [_copy_in(work[0])]
+            else:
+                with _pool(jobs) as pool:
+                    copied = pool.map(_copy_in, work)
+            copy_s = time.perf_counter() - t0
+        finally:
+            with connection.cursor() as cursor:
+                for table, _ in tables:
+                    cursor.execute(f'DROP TABLE IF EXISTS "{scratch[table]}"')
+        self.stdout.write(
+            f"(b) COPY floor: the same {sum(copied)} rows ({n_rows} dumped) in {copy_s:.1f} s "
+            f"({jobs} process(es))"
+        )
+        self.stdout.write(
+            f"ratio (a)/(b) = {import_s / copy_s:.2f} (target <= 3); "
+            f"(a) {'meets' if import_s <= 60 * sites / 500 else 'misses'} the 60 s per 500 "
+            "sites target"
+        )

@@ -1,0 +1,566 @@
+"""Write a validated site file into the database: one sync step per section.
+
+:func:`upsert_site` runs inside the caller's transaction (``inventory.services.site_import``
+validates first and owns the transaction and the recompute request). Each section of the
+document becomes wanted rows under a natural key (code; device and input name; the terminals a
+wire joins plus a running count, ...) and :class:`~inventory.sitefile.rowsync.RowSync` brings
+the stored rows in line, so history shows what really changed. Steps run parents first (codes
+before the rows that point at them); coded objects the document dropped are deleted at the end,
+children first, because their foreign keys protect.
+
+A change of a CT's terminals in use is recorded as a ``TapChange`` event.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+from collections import Counter
+from dataclasses import dataclass, field
+from typing import Any
+
+from django.db import models as djm
+from django.utils import timezone
+from django.utils.dateparse import parse_datetime
+
+from inventory import models
+from inventory.sitefile import rowsync
+from inventory.sitefile.rowsync import Row, RowSync, numbered
+
+
+class SiteImportError(ValueError):
+    """The document is not a valid site file; ``errors`` lists every problem found."""
+
+    def __init__(self, errors: list[Any]):
+        self.errors = [str(e) for e in errors]
+        super().__init__("\n".join(self.errors))
+
+
+@dataclass
+class ImportResult:
+    """What an import did (or, on a dry run, would do), counted per model."""
+
+    site: str
+    dry_run: bool
+    created: Counter = field(default_factory=Counter)
+    updated: Counter = field(default_factory=Counter)
+    deleted: Counter = field(default_factory=Counter)
+    tap_changes: list[str] = field(default_factory=list)
+
+    @property
+    def changed(self) -> bool:
+        return bool(self.created or self.updated or self.deleted)
+
+    def summary(self) -> str:
+        def fmt(counter: Counter) -> str:
+            return ", ".join(f"{n} {name}" for name, n in sorted(counter.items())) or "nothing"
+
+        verb = "would be" if self.dry_run else "were"
+        return (
+            f"site {self.site}: created {fmt(self.created)}; updated {fmt(self.updated)}; "
+            f"deleted {fmt(self.deleted)} ({verb} written)"
+        )
+
+
+def _parse_at(text: str) -> dt.datetime:
+    value = parse_datetime(text)
+    if value is None:
+        raise SiteImportError([f"tap change time {text!r} is not an ISO 8601 date-time"])
+    if timezone.is_naive(value):
+        value = timezone.make_aware(value, dt.UTC)
+    return value
+
+
+def _num(value: Any) -> float | None:
+    return None if value is None else float(value)
+
+
+TerminalKey = tuple[str, str]
+
+# Coded objects and their sections, parents first.
+_CODED_SECTIONS: tuple[tuple[type[djm.Model], str], ...] = (
+    (models.Bus, "buses"),
+    (models.Equipment, "equipment"),
+    (models.TerminalBlock, "terminal_blocks"),
+    (models.CurrentTransformer, "cts"),
+    (models.Device, "devices"),
+    (models.Switch, "switches"),
+    (models.Procedure, "procedures"),
+)
+
+
+def upsert_site(doc: dict, result: ImportResult, user: Any) -> int:
+    """Upsert the site a valid document describes (in the caller's transaction); its id."""
+    return _SiteUpsert(doc, result, user).run()
+
+
+class _SiteUpsert:
+    """One import of one site: the sections in dependency order, each a method."""
+
+    def __init__(self, doc: dict, result: ImportResult, user: Any) -> None:
+        self.doc = doc
+        self.result = result
+        self.user = user
+        self.sync = RowSync(
+            user=user, created=result.created, updated=result.updated, deleted=result.deleted
+        )
+        self.sid = 0
+        self.fresh = False  # a new site: nothing stored to compare with
+        # Terminal key (owner, name) -> wanted row; filled by the CT step and by every
+        # reference to a point, then written in one sync.
+        self.terminals: dict[TerminalKey, Row] = {}
+        self.tid: dict[TerminalKey, int] = {}
+
+    def run(self) -> int:
+        self.site()
+        doc = self.doc
+        if self.fresh:  # every row is new: take the ids of the coded objects in one go
+            self.sync.new.reserve(
+                {model: len(doc.get(section, [])) for model, section in _CODED_SECTIONS}
+            )
+        buses = self.coded(models.Bus, "buses", self.bus_row)
+        self.equipment = self.coded(
+            models.Equipment, "equipment", lambda e: self.equipment_row(e, buses)
+        )
+        self.coded(
+            models.TerminalBlock,
+            "terminal_blocks",
+            lambda tb: {"description": tb.get("description", "")},
+            delete=True,
+        )
+        self.cts = self.coded(models.CurrentTransformer, "cts", self.ct_row)
+        self.devices = self.coded(models.Device, "devices", self.device_row)
+        self.switches = self.coded(
+            models.Switch, "switches", lambda s: {"kind": s["kind"], "transition": s["transition"]}
+        )
+        self.procedures = self.coded(models.Procedure, "procedures", self.procedure_row)
+        old_terminals = self.stored(models.Terminal, site_id=self.sid)
+        self.ct_terminals()
+        refs = self.references()
+        if self.fresh:  # ...and of the rows that join terminals in another
+            self.sync.new.reserve(
+                {
+                    models.Terminal: len(self.terminals),
+                    models.DeviceInput: len(refs["inputs"]),
+                    models.DeviceOutput: len(refs["outputs"]),
+                    models.Wire: len(refs["wires"]),
+                    models.Link: len(refs["links"]),
+                    models.Ground: len(set(refs["grounds"])),
+                    models.SwitchPosition: sum(
+                        len(s["positions"]) for s in doc.get("switches", [])
+                    ),
+                    models.SwitchContact: len(refs["contacts"]),
+                    models.ProcedureStep: sum(len(p["steps"]) for p in doc.get("procedures", [])),
+                }
+            )
+        self.sync_terminals(old_terminals)
+        self.tap_changes(old_terminals)
+        self.device_inputs(refs["inputs"])
+        self.device_outputs(refs["outputs"])
+        self.wires(refs["wires"])
+        self.links(refs["links"])
+        self.grounds(refs["grounds"])
+        self.switch_positions()
+        self.switch_contacts(refs["contacts"])
+        self.procedure_steps()
+        self.sync.new.flush()
+        self.drop_removed()
+        return self.sid
+
+    # -- site and coded objects ---------------------------------------------------------------
+
+    def site(self) -> None:
+        data = self.doc["site"]
+        site = models.Site.objects.select_for_update().filter(code=data["code"]).first()
+        values = {
+            "name": data["name"],
+            "design_temp_c": float(data.get("design_temp_c", 75)),
+            "notes": data.get("notes", ""),
+        }
+        if site is None:
+            self.fresh = True
+            site = models.Site(code=data["code"], **values)
+            site.save()
+            self.result.created["sites"] += 1
+        elif any(getattr(site, k) != v for k, v in values.items()):
+            for k, v in values.items():
+                setattr(site, k, v)
+            site.save()
+            self.result.updated["sites"] += 1
+        self.sid = site.pk
+
+    def stored(self, model: type[djm.Model], **where: Any) -> list[Row]:
+        return [] if self.fresh else rowsync.stored(model, **where)
+
+    def coded(
+        self, model: type[djm.Model], section: str, row: Any, *, delete: bool = False
+    ) -> dict[str, int]:
+        """Sync the coded objects of one section: code -> id. Deletion of dropped codes waits
+        for :meth:`drop_removed` (children first) unless ``delete``."""
+        wanted = {
+            item["code"]: {"site_id": self.sid, "code": item["code"], **row(item)}
+            for item in self.doc.get(section, [])
+        }
+        return self.sync(
+            model,
+            self.stored(model, site_id=self.sid),
+            wanted,
+            key=lambda r: r["code"],
+            delete=delete,
+        )
+
+    @staticmethod
+    def bus_row(b: dict) -> Row:
+        return {
+            k: _num(b.get(k)) for k in ("kv", "three_phase_fault_ka", "ground_fault_ka", "x_over_r")
+        }
+
+    @staticmethod
+    def equipment_row(e: dict, buses: dict[str, int]) -> Row:
+        return {
+            "kind": e["kind"],
+            "bus_id": buses[e["bus"]] if e.get("bus") else None,
+            "in_service": e.get("in_service", True),
+            "max_load_a": _num(e.get("max_load_a")),
+        }
+
+    def ct_row(self, c: dict) -> Row:
+        return {
+            "equipment_id": self.equipment[c["equipment"]],
+            "phase": c["phase"],
+            "set_name": c.get("set", ""),
+            "secondary_a": int(c["secondary_a"]),
+            "accuracy": c.get("accuracy", ""),
+            "rated_burden_va": _num(c.get("rated_burden_va")),
+            "knee_v": _num(c.get("knee_v")),
+            "winding_ohm": _num(c.get("winding_ohm")),
+            "rating_factor": float(c.get("rating_factor", 1.0)),
+            "excitation": (
+                [[float(a), float(v)] for a, v in c["excitation"]] if c.get("excitation") else None
+            ),
+            "nameplate": c.get("nameplate", ""),
+        }
+
+    @staticmethod
+    def device_row(d: dict) -> Row:
+        return {
+            "kind": d["kind"],
+            "functions": list(d.get("functions", [])),
+            "ratio_setting": d.get("ratio_setting", ""),
+        }
+
+    @staticmethod
+    def procedure_row(p: dict) -> Row:
+        return {
+            "title": p["title"],
+            "author": p.get("author", ""),
+            "devices": list(p.get("devices", [])),
+        }
+
+    # -- terminals ----------------------------------------------------------------------------
+
+    def ct_terminals(self) -> None:
+        """CT terminals with their positions and the two in use (tap roles)."""
+        for c in self.doc.get("cts", []):
+            ct_id = self.cts[c["code"]]
+            first, second = c["in_use"]
+            for name, position in c["terminals"].items():
+                role = "first" if name == first else "second" if name == second else ""
+                self.terminals[(c["code"], name)] = {
+                    "site_id": self.sid,
+                    "owner": c["code"],
+                    "name": name,
+                    "ct_id": ct_id,
+                    "position_a": float(position),
+                    "tap_role": role,
+                }
+
+    def point(self, label: str) -> TerminalKey:
+        """A terminal the document refers to (``OWNER:NAME``), wanted if not yet."""
+        owner, _, name = label.partition(":")
+        key = (owner, name)
+        if key not in self.terminals:
+            self.terminals[key] = {
+                "site_id": self.sid,
+                "owner": owner,
+                "name": name,
+                "ct_id": None,
+                "position_a": None,
+                "tap_role": "",
+            }
+        return key
+
+    def references(self) -> dict[str, list]:
+        """Every row that joins terminals, with its terminals resolved to keys."""
+        point = self.point
+        refs: dict[str, list] = {
+            "inputs": [],
+            "outputs": [],
+            "wires": [],
+            "links": [],
+            "grounds": [],
+            "contacts": [],
+        }
+        for d in self.doc.get("devices", []):
+            for inp in d.get("inputs", []):
+                refs["inputs"].append((d["code"], inp, point(inp["from"]), point(inp["to"])))
+            for out in d.get("outputs", []):
+                refs["outputs"].append(
+                    (d["code"], out, point(out["terminal"]), point(out["target"]))
+                )
+        for w in self.doc.get("wires", []):
+            refs["wires"].append((w, point(w["from"]), point(w["to"])))
+        for a, b in self.doc.get("links", []):
+            refs["links"].append((point(a), point(b)))
+        for g in self.doc.get("grounds", []):
+            refs["grounds"].append(point(g))
+        for s in self.doc.get("switches", []):
+            for contact in s.get("contacts", []):
+                a, b = contact["between"]
+                refs["contacts"].append((s["code"], contact, point(a), point(b)))
+        return refs
+
+    def sync_terminals(self, old: list[Row]) -> None:
+        # Clear tap roles that move before setting new ones: the one-role-per-CT constraint is
+        # checked row by row, so a swap in one statement could trip it. The rows keep their
+        # old role in ``old``, so the sync below still sees the change and writes it with
+        # history.
+        moving = [
+            t["id"]
+            for t in old
+            if t["tap_role"]
+            and self.terminals.get((t["owner"], t["name"]), {}).get("tap_role") != t["tap_role"]
+        ]
+        if moving:
+            models.Terminal.objects.filter(pk__in=moving).update(tap_role="")
+        self.tid = self.sync(
+            models.Terminal,
+            old,
+            self.terminals,
+            key=lambda t: (t["owner"], t["name"]),
+            delete=False,
+        )
+
+    def tap_changes(self, old_terminals: list[Row]) -> None:
+        """The document's tap-change history is merged in (an import never deletes history);
+        a tap in use that differs from the stored one, or from the last recorded event, is a
+        change made now."""
+        old_tap: dict[int, tuple[str | None, str | None]] = {}
+        for t in old_terminals:
+            if t["ct_id"] and t["tap_role"]:
+                first, second = old_tap.get(t["ct_id"], (None, None))
+                old_tap[t["ct_id"]] = (
+                    (t["name"], second) if t["tap_role"] == "first" else (first, t["name"])
+                )
+        now = timezone.now()
+        seen = {
+            (c["ct_id"], c["changed_at"], tuple(c["from_tap"]), tuple(c["to_tap"]))
+            for c in self.stored(models.TapChange, ct__site_id=self.sid)
+        }
+        new: list[Row] = []
+        for c in self.doc.get("cts", []):
+            ct_id = self.cts[c["code"]]
+            events = c.get("tap_changes", [])
+            for event in events:
+                at = _parse_at(event["at"])
+                k = (ct_id, at, tuple(event["from"]), tuple(event["to"]))
+                if k not in seen:
+                    seen.add(k)
+                    new.append(
+                        {
+                            "ct_id": ct_id,
+                            "from_tap": list(event["from"]),
+                            "to_tap": list(event["to"]),
+                            "changed_at": at,
+                            "changed_by": event.get("by", ""),
+                            "reason": event.get("reason", ""),
+                        }
+                    )
+            in_use = tuple(c["in_use"])
+            previous = old_tap.get(ct_id) or (tuple(events[-1]["to"]) if events else None)
+            if previous and tuple(previous) != in_use:
+                new.append(
+                    {
+                        "ct_id": ct_id,
+                        "from_tap": list(previous),
+                        "to_tap": list(in_use),
+                        "changed_at": now,
+                        "changed_by": getattr(self.user, "username", "") or "site import",
+                        "reason": "tap in use changed by site import",
+                    }
+                )
+                self.result.tap_changes.append(
+                    f"{c['code']}: {'-'.join(previous)} -> {'-'.join(in_use)}"
+                )
+        if new:
+            self.sync.new.insert(models.TapChange, new)
+            self.result.created["tap changes"] += len(new)
+
+    # -- rows that join terminals -------------------------------------------------------------
+
+    def device_inputs(self, refs: list) -> None:
+        tid = self.tid
+        wanted = {}
+        for code, inp, a, b in refs:
+            device_id = self.devices[code]
+            wanted[(device_id, inp["name"])] = {
+                "device_id": device_id,
+                "name": inp["name"],
+                "from_terminal_id": tid[a],
+                "to_terminal_id": tid[b],
+                "rated_a": int(inp["rated_a"]),
+                "burden_va": _num(inp.get("burden_va")),
+                # The site file's default power factor is 1.0 (resistive) where VA is given.
+                "pf": _num(inp.get("pf", 1.0)) if "burden_va" in inp else None,
+                "burden_r_ohm": _num(inp["burden_ohm"][0]) if "burden_ohm" in inp else None,
+                "burden_x_ohm": _num(inp["burden_ohm"][1]) if "burden_ohm" in inp else None,
+            }
+        self.sync(
+            models.DeviceInput,
+            self.stored(models.DeviceInput, device__site_id=self.sid),
+            wanted,
+            key=lambda r: (r["device_id"], r["name"]),
+        )
+
+    def device_outputs(self, refs: list) -> None:
+        wanted = {}
+        for code, out, a, b in refs:
+            device_id = self.devices[code]
+            wanted[(device_id, out["name"])] = {
+                "device_id": device_id,
+                "name": out["name"],
+                "terminal_id": self.tid[a],
+                "target_id": self.tid[b],
+            }
+        self.sync(
+            models.DeviceOutput,
+            self.stored(models.DeviceOutput, device__site_id=self.sid),
+            wanted,
+            key=lambda r: (r["device_id"], r["name"]),
+        )
+
+    def keyed_by_ends(
+        self, model: type[djm.Model], ends: tuple[str, ...], wanted: list[Row], **where: Any
+    ) -> None:
+        """Rows with no code of their own, keyed by the ids in ``ends`` plus a running count
+        (document order against stored id order)."""
+        old = self.stored(model, **where)
+        old_keys = dict(
+            zip(
+                (r["id"] for r in old),
+                numbered(tuple(r[e] for e in ends) for r in old),
+                strict=True,
+            )
+        )
+        keys = numbered(tuple(r[e] for e in ends) for r in wanted)
+        self.sync(
+            model,
+            old,
+            dict(zip(keys, wanted, strict=True)),
+            key=lambda r: old_keys[r["id"]],
+        )
+
+    def wires(self, refs: list) -> None:
+        tid = self.tid
+        self.keyed_by_ends(
+            models.Wire,
+            ("from_terminal_id", "to_terminal_id"),
+            [
+                {
+                    "site_id": self.sid,
+                    "from_terminal_id": tid[a],
+                    "to_terminal_id": tid[b],
+                    "size": w.get("size", ""),
+                    "material": w.get("material", "cu"),
+                    "length_m": _num(w.get("length_m")),
+                    "length_ft": _num(w.get("length_ft")),
+                    "r_ohm": _num(w.get("r_ohm")),
+                }
+                for w, a, b in refs
+            ],
+            site_id=self.sid,
+        )
+
+    def links(self, refs: list) -> None:
+        self.keyed_by_ends(
+            models.Link,
+            ("a_id", "b_id"),
+            [{"site_id": self.sid, "a_id": self.tid[a], "b_id": self.tid[b]} for a, b in refs],
+            site_id=self.sid,
+        )
+
+    def grounds(self, refs: list) -> None:
+        self.sync(
+            models.Ground,
+            self.stored(models.Ground, site_id=self.sid),
+            {self.tid[g]: {"site_id": self.sid, "terminal_id": self.tid[g]} for g in refs},
+            key=lambda g: g["terminal_id"],
+        )
+
+    def switch_positions(self) -> None:
+        old = self.stored(models.SwitchPosition, switch__site_id=self.sid)
+        wanted = {
+            (self.switches[s["code"]], name): {
+                "switch_id": self.switches[s["code"]],
+                "name": name,
+                "order": i,
+                "is_normal": name == s["normal"],
+            }
+            for s in self.doc.get("switches", [])
+            for i, name in enumerate(s["positions"])
+        }
+        # Same reason as the tap roles: drop a moving "normal" flag before setting the new one.
+        stale_normal = [
+            p["id"]
+            for p in old
+            if p["is_normal"] and not wanted.get((p["switch_id"], p["name"]), {}).get("is_normal")
+        ]
+        if stale_normal:
+            models.SwitchPosition.objects.filter(pk__in=stale_normal).update(is_normal=False)
+        self.sync(models.SwitchPosition, old, wanted, key=lambda p: (p["switch_id"], p["name"]))
+
+    def switch_contacts(self, refs: list) -> None:
+        self.keyed_by_ends(
+            models.SwitchContact,
+            ("switch_id", "a_id", "b_id"),
+            [
+                {
+                    "switch_id": self.switches[code],
+                    "a_id": self.tid[a],
+                    "b_id": self.tid[b],
+                    "closed_in": list(contact["closed_in"]),
+                }
+                for code, contact, a, b in refs
+            ],
+            switch__site_id=self.sid,
+        )
+
+    def procedure_steps(self) -> None:
+        wanted = {
+            (self.procedures[p["code"]], i): {
+                "procedure_id": self.procedures[p["code"]],
+                "order": i,
+                "op": op,
+            }
+            for p in self.doc.get("procedures", [])
+            for i, op in enumerate(p["steps"], start=1)
+        }
+        self.sync(
+            models.ProcedureStep,
+            self.stored(models.ProcedureStep, procedure__site_id=self.sid),
+            wanted,
+            key=lambda s: (s["procedure_id"], s["order"]),
+        )
+
+    # -- what the document dropped ------------------------------------------------------------
+
+    def drop_removed(self) -> None:
+        """Coded objects the document no longer has, children first (foreign keys protect),
+        then terminals nothing refers to any more."""
+        for model in (*(m for m, _ in reversed(_CODED_SECTIONS)), models.Terminal):
+            gone = self.sync.gone.get(model)
+            if gone:
+                # Count what this delete removed: a dropped CT's terminals went with it.
+                _, removed = model.objects.filter(pk__in=gone).delete()
+                if removed.get(model._meta.label):
+                    name = str(model._meta.verbose_name_plural)
+                    self.result.deleted[name] += removed[model._meta.label]
