@@ -39,7 +39,8 @@ def test_unique_ct_code_per_site(site):
     [
         ("length_m", -5.0, "wire_length_m_positive"),
         ("length_m", 0.0, "wire_length_m_positive"),
-        ("r_ohm", -0.1, "wire_r_not_negative"),
+        ("r_ohm", -0.1, "wire_r_positive"),
+        ("r_ohm", 0.0, "wire_r_positive"),
     ],
 )
 def test_wire_lengths_and_resistance_must_be_physical(site, field, value, constraint):
