@@ -1124,6 +1124,23 @@ def device_save(
     old_code = _old_code(models.Device, device)
     _clean(device)
     _save_coded(device, old_code)
+    if old_code and old_code != device.code:
+        # Rows given in the same call may still name the device's terminals by the old code.
+        def follow(label: Any) -> Any:
+            owner, sep, name = str(label).partition(":")
+            return f"{device.code}:{name}" if sep and owner == old_code else label
+
+        keys = ("from", "to", "terminal", "target")
+        inputs = (
+            None
+            if inputs is None
+            else [{k: follow(v) if k in keys else v for k, v in e.items()} for e in inputs]
+        )
+        outputs = (
+            None
+            if outputs is None
+            else [{k: follow(v) if k in keys else v for k, v in e.items()} for e in outputs]
+        )
     if inputs is not None:
         rows = _prefixed("inputs", lambda e: _input_row(device, e), inputs)
         _sync_rows(
