@@ -402,3 +402,41 @@ def test_analysis_pages_render_read_only_with_rounded_times(staff):
     assert b'name="_save"' not in page.content
     for name in ("finding", "procedureverdict", "sitecomputation", "recomputerequest"):
         assert staff.get(reverse(f"admin:analysis_{name}_changelist")).status_code == 200
+
+
+def test_adding_a_ct_with_its_winding_through_the_admin(staff):
+    site = models.Site.objects.get(code="TST")
+    url = reverse("admin:inventory_currenttransformer_add")
+    page = staff.get(url)
+    data = _page_data(page)
+    prefix = _inline_prefix(page, models.Terminal)
+    data.update(
+        {
+            "site": site.pk,
+            "code": "CB-1-N",
+            "equipment": models.Equipment.objects.get(code="CB-1").pk,
+            "phase": "N",
+            "set_name": "CB-1-R",
+            "secondary_a": "5",
+            "accuracy": "C200",
+            "rating_factor": "1.0",
+            "excitation": "null",
+            "tap_first": "X1",
+            "tap_second": "X2",
+            f"{prefix}-TOTAL_FORMS": "2",
+            f"{prefix}-0-name": "X1",
+            f"{prefix}-0-position_a": "0",
+            f"{prefix}-1-name": "X2",
+            f"{prefix}-1-position_a": "200",
+        }
+    )
+    response = staff.post(url, data)
+    assert response.status_code == 302, _errors(response)
+    entry = next(c for c in site_document(site)["cts"] if c["code"] == "CB-1-N")
+    assert (entry["terminals"], entry["in_use"]) == ({"X1": 0, "X2": 200}, ["X1", "X2"])
+    assert "tap_changes" not in entry  # the first tap is the CT's initial value, not a change
+    # Without a tap in use the CT is not written: the site file needs one.
+    data.update({"code": "CB-1-N2", "tap_first": "", "tap_second": ""})
+    errors = _errors(staff.post(url, data))
+    assert "tap_first" in errors
+    assert not models.CurrentTransformer.objects.filter(code="CB-1-N2").exists()
