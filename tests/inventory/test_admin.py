@@ -440,3 +440,24 @@ def test_adding_a_ct_with_its_winding_through_the_admin(staff):
     errors = _errors(staff.post(url, data))
     assert "tap_first" in errors
     assert not models.CurrentTransformer.objects.filter(code="CB-1-N2").exists()
+
+
+def test_a_new_site_and_its_bus_through_the_admin(staff):
+    response = staff.post(
+        reverse("admin:inventory_site_add"),
+        {"code": "NEW", "name": "New Yard", "design_temp_c": "75", "notes": ""},
+    )
+    assert response.status_code == 302
+    site = models.Site.objects.get(code="NEW")
+    assert validate_site_document(site_document(site)) == []
+    bad = staff.post(
+        reverse("admin:inventory_site_add"),
+        {"code": "NEW 2", "name": "Spaced", "design_temp_c": "75", "notes": ""},
+    )
+    assert "a code has no spaces" in " ".join(" ".join(v) for v in _errors(bad).values())
+    response = staff.post(
+        reverse("admin:inventory_bus_add"),
+        {"site": site.pk, "code": "B12", "kv": "12.47", "three_phase_fault_ka": "8"},
+    )
+    assert response.status_code == 302, _errors(response)
+    assert site_document(site)["buses"] == [{"code": "B12", "kv": 12.47, "three_phase_fault_ka": 8}]
