@@ -142,6 +142,43 @@ def _numbered(pairs: Iterable[tuple]) -> list[tuple]:
     return keys
 
 
+def _park_moving_sets(site_id: int, doc: dict) -> None:
+    """Take the CTs whose set or phase changes out of their set first: one CT per phase in a set
+    is a unique index, checked row by row even inside one UPDATE, so two CTs swapping phases
+    would meet halfway. The sync that follows writes their new set and phase (with history)."""
+    wanted = {c["code"]: (c.get("set", ""), c["phase"]) for c in doc.get("cts", [])}
+    moving = [
+        pk
+        for pk, code, set_name, phase in models.CurrentTransformer.objects.filter(
+            site_id=site_id
+        ).values_list("pk", "code", "set_name", "phase")
+        if set_name and code in wanted and wanted[code] != (set_name, phase)
+    ]
+    if moving:
+        models.CurrentTransformer.objects.filter(pk__in=moving).update(set_name="")
+
+
+def _park_moving_positions(existing: list[models.Terminal], wanted: dict[tuple, dict]) -> None:
+    """Move the CT terminals whose winding position changes above every position first, for
+    the same reason (distinct positions per CT). The rows keep their old position in memory, so
+    the sync below still sees the change and writes it with history."""
+    moving = [
+        t
+        for t in existing
+        if t.ct_id is not None
+        and (t.owner, t.name) in wanted
+        and wanted[(t.owner, t.name)]["position_a"] != t.position_a
+    ]
+    if not moving:
+        return
+    top = max(
+        [t.position_a or 0.0 for t in existing]
+        + [w["position_a"] or 0.0 for w in wanted.values() if w["position_a"] is not None]
+    )
+    for offset, terminal in enumerate(moving, start=1):
+        models.Terminal.objects.filter(pk=terminal.pk).update(position_a=top + offset)
+
+
 def site_import(*, doc: dict, dry_run: bool = False, user: Any = None) -> ImportResult:
     """Validate a ``loopkeep.site/1`` document and upsert the site it describes, atomically.
 
@@ -227,6 +264,7 @@ def _upsert(doc: dict, result: ImportResult, user: Any) -> None:
         },
         delete=True,
     )
+    _park_moving_sets(sid, doc)
     cts = by_code(
         models.CurrentTransformer,
         {
@@ -353,6 +391,7 @@ def _upsert(doc: dict, result: ImportResult, user: Any) -> None:
         # The rows keep their old role in memory, so the sync below still sees the change and
         # writes it with history.
         models.Terminal.objects.filter(pk__in=[t.pk for t in moving]).update(tap_role="")
+    _park_moving_positions(existing_terminals, wanted_terminals)
     terminals = sync(
         models.Terminal,
         existing_terminals,

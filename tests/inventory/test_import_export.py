@@ -225,3 +225,16 @@ def test_nan_and_infinity_are_refused_with_their_pointers(tmp_path):
         "/wires/0/length_m: must be a finite number, got nan",
     ]
     assert not models.Site.objects.exists()
+
+
+def test_reimport_may_renumber_a_winding_and_swap_phases_in_a_set():
+    # Distinct positions per CT and one CT per phase in a set are unique indexes, checked row
+    # by row even inside one UPDATE; the import takes the moving rows out of the way first.
+    site_import(doc=small_site())
+    doc = small_site()
+    doc["cts"][0]["terminals"] = {"X1": 0, "X2": 150, "X3": 100, "X4": 400, "X5": 600}
+    doc["cts"][0]["phase"], doc["cts"][1]["phase"] = "B", "A"
+    site_import(doc=doc)
+    stored = site_document(models.Site.objects.get(code="TST"))
+    assert stored["cts"][0]["terminals"] == {"X1": 0, "X3": 100, "X2": 150, "X4": 400, "X5": 600}
+    assert [c["phase"] for c in stored["cts"]] == ["B", "A", "C"]
