@@ -15,7 +15,7 @@ from typing import Any
 
 from django import forms
 from django.contrib import admin, messages
-from django.core.exceptions import NON_FIELD_ERRORS, ValidationError
+from django.core.exceptions import NON_FIELD_ERRORS, PermissionDenied, ValidationError
 from django.db import models as djm
 from django.http import HttpResponseRedirect
 from django.urls import reverse
@@ -259,6 +259,18 @@ class RecordAdmin(SimpleHistoryAdmin):
             return HttpResponseRedirect(
                 reverse(f"admin:{opts.app_label}_{opts.model_name}_change", args=[object_id])
             )
+
+    # -- history -----------------------------------------------------------------------------
+
+    def has_change_history_permission(self, request, obj=None) -> bool:
+        # History is read here. A revert would write one old row without its terminals, rows
+        # or the rules of the record; an old value is entered again on the change page.
+        return False
+
+    def history_form_view(self, request, object_id, version_id, extra_context=None):
+        if request.method == "POST":
+            raise PermissionDenied("history is read only; enter the old values on the change page")
+        return super().history_form_view(request, object_id, version_id, extra_context)
 
     def get_actions(self, request):
         # One at a time through the delete page, which checks the rules and says what stays.

@@ -461,3 +461,12 @@ def test_a_new_site_and_its_bus_through_the_admin(staff):
     )
     assert response.status_code == 302, _errors(response)
     assert site_document(site)["buses"] == [{"code": "B12", "kv": 12.47, "three_phase_fault_ka": 8}]
+
+
+def test_history_is_read_only(staff):
+    wire = models.Wire.objects.filter(length_m=80).first()
+    version = wire.history.first()
+    url = reverse("admin:inventory_wire_simple_history", args=[wire.pk, version.history_id])
+    assert staff.get(url).status_code == 200
+    assert staff.post(url, {"length_m": "1"}).status_code == 403
+    assert staff.get(reverse("admin:inventory_wire_history", args=[wire.pk])).status_code == 200
