@@ -127,6 +127,8 @@ class _SiteUpsert:
             lambda tb: {"description": tb.get("description", "")},
             delete=True,
         )
+        if not self.fresh:
+            self.park_moving_sets()
         self.cts = self.coded(models.CurrentTransformer, "cts", self.ct_row)
         self.devices = self.coded(models.Device, "devices", self.device_row)
         self.switches = self.coded(
@@ -332,6 +334,7 @@ class _SiteUpsert:
         ]
         if moving:
             models.Terminal.objects.filter(pk__in=moving).update(tap_role="")
+        self.park_moving_positions(old)
         self.tid = self.sync(
             models.Terminal,
             old,
@@ -339,6 +342,43 @@ class _SiteUpsert:
             key=lambda t: (t["owner"], t["name"]),
             delete=False,
         )
+
+    def park_moving_sets(self) -> None:
+        """Take the CTs whose set or phase changes out of their set first: one CT per phase in
+        a set is a unique index, checked row by row even inside one UPDATE, so two CTs swapping
+        phases would meet halfway. The sync that follows writes their new set and phase (with
+        history)."""
+        wanted = {c["code"]: (c.get("set", ""), c["phase"]) for c in self.doc.get("cts", [])}
+        moving = [
+            pk
+            for pk, code, set_name, phase in models.CurrentTransformer.objects.filter(
+                site_id=self.sid
+            ).values_list("pk", "code", "set_name", "phase")
+            if set_name and code in wanted and wanted[code] != (set_name, phase)
+        ]
+        if moving:
+            models.CurrentTransformer.objects.filter(pk__in=moving).update(set_name="")
+
+    def park_moving_positions(self, old: list[Row]) -> None:
+        """Move the CT terminals whose winding position changes above every position first,
+        for the same reason (distinct positions per CT). ``old`` keeps the old positions, so
+        the sync still sees the change and writes it with history."""
+        wanted = self.terminals
+        moving = [
+            t["id"]
+            for t in old
+            if t.get("ct_id") is not None
+            and (t["owner"], t["name"]) in wanted
+            and wanted[(t["owner"], t["name"])].get("position_a") != t["position_a"]
+        ]
+        if not moving:
+            return
+        top = max(
+            [t["position_a"] or 0.0 for t in old]
+            + [w.get("position_a") or 0.0 for w in wanted.values()]
+        )
+        for offset, pk in enumerate(moving, start=1):
+            models.Terminal.objects.filter(pk=pk).update(position_a=top + offset)
 
     def tap_changes(self, old_terminals: list[Row]) -> None:
         """The document's tap-change history is merged in (an import never deletes history);

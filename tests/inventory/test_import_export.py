@@ -271,3 +271,16 @@ def test_every_row_an_import_writes_has_its_history_row(path, django_user_model)
         "Wire": 1
     }
     assert models.Wire.history.model.objects.latest("history_id").length_m == 12.5
+
+
+def test_reimport_may_renumber_a_winding_and_swap_phases_in_a_set():
+    # Distinct positions per CT and one CT per phase in a set are unique indexes, checked row
+    # by row even inside one UPDATE; the import takes the moving rows out of the way first.
+    site_import(doc=small_site())
+    doc = small_site()
+    doc["cts"][0]["terminals"] = {"X1": 0, "X2": 150, "X3": 100, "X4": 400, "X5": 600}
+    doc["cts"][0]["phase"], doc["cts"][1]["phase"] = "B", "A"
+    site_import(doc=doc)
+    stored = site_document(models.Site.objects.get(code="TST"))
+    assert stored["cts"][0]["terminals"] == {"X1": 0, "X3": 100, "X2": 150, "X4": 400, "X5": 600}
+    assert [c["phase"] for c in stored["cts"]] == ["B", "A", "C"]

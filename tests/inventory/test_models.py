@@ -39,7 +39,8 @@ def test_unique_ct_code_per_site(site):
     [
         ("length_m", -5.0, "wire_length_m_positive"),
         ("length_m", 0.0, "wire_length_m_positive"),
-        ("r_ohm", -0.1, "wire_r_not_negative"),
+        ("r_ohm", -0.1, "wire_r_positive"),
+        ("r_ohm", 0.0, "wire_r_positive"),
     ],
 )
 def test_wire_lengths_and_resistance_must_be_physical(site, field, value, constraint):
@@ -133,3 +134,94 @@ def test_history_is_kept_for_imported_rows(site):
     ct = models.CurrentTransformer.objects.get(code="CB-1-A")
     assert ct.history.count() == 1
     assert models.Wire.history.filter(history_type="+").count() == models.Wire.objects.count()
+
+
+# -- rules of the record the database holds (migration 0003), and the same rules in clean() ---
+
+
+def test_one_ct_per_phase_in_a_named_set(site):
+    # A three-phase set has one CT per phase (the site file's rule, validate.py check_cts).
+    b = models.CurrentTransformer.objects.get(code="CB-1-B")
+    b.phase = "A"
+    with pytest.raises(ValidationError) as info:
+        b.full_clean()
+    # Said once, on the field, not again as a form-wide constraint message.
+    assert list(info.value.message_dict) == ["phase"]
+    with (
+        pytest.raises(IntegrityError, match="(?i)ct_one_phase_per_set|unique"),
+        transaction.atomic(),
+    ):
+        b.save()
+
+
+def test_neutral_cts_and_cts_of_no_set_are_not_counted(site):
+    equipment = models.Equipment.objects.get(code="CB-1")
+    for code in ("N-1", "N-2"):
+        models.CurrentTransformer.objects.create(
+            site=site, code=code, equipment=equipment, phase="N", set_name="CB-1-R", secondary_a=5
+        )
+    for code in ("A-1", "A-2"):
+        models.CurrentTransformer.objects.create(
+            site=site, code=code, equipment=equipment, phase="A", secondary_a=5
+        )
+
+
+def test_two_terminals_of_a_ct_cannot_sit_at_one_position(site):
+    x3 = models.Terminal.objects.get(owner="CB-1-A", name="X3")
+    x3.position_a = 100.0  # X2's position
+    with pytest.raises(ValidationError) as info:
+        x3.full_clean()
+    assert list(info.value.message_dict) == ["position_a"]
+    with pytest.raises(IntegrityError), transaction.atomic():
+        x3.save()
+    # Terminals of no CT have no position and never collide.
+    models.Terminal.objects.create(site=site, owner="TB-1", name="20")
+    models.Terminal.objects.create(site=site, owner="TB-1", name="21")
+
+
+def test_an_output_cannot_target_its_own_terminal(site):
+    output = models.DeviceOutput.objects.get(name="TRIP")
+    output.target = output.terminal
+    with pytest.raises(ValidationError) as info:
+        output.full_clean()
+    assert list(info.value.message_dict) == ["target"]
+    with pytest.raises(IntegrityError), transaction.atomic():
+        output.save()
+
+
+@pytest.mark.parametrize(
+    ("model", "code"),
+    [(models.Device, "R 1"), (models.Device, "R:1"), (models.Switch, "TS/1/2")],
+    ids=["space", "colon", "two-slashes"],
+)
+def test_codes_have_the_site_file_form(site, model, code):
+    # schema.json $defs code / switch_code: no spaces, no ':' ("OWNER:NAME" names a terminal).
+    obj = model.objects.first()
+    obj.code = code
+    with pytest.raises(ValidationError, match="a code has no spaces"):
+        obj.full_clean()
+    with pytest.raises(IntegrityError), transaction.atomic():
+        obj.save()
+
+
+@pytest.mark.parametrize(
+    ("model", "field", "value"),
+    [
+        (models.Site, "design_temp_c", 300.0),
+        (models.CurrentTransformer, "rating_factor", 0.8),
+        (models.Wire, "r_ohm", 0.0),
+        (models.DeviceInput, "burden_x_ohm", -0.1),
+    ],
+)
+def test_ranges_of_the_site_file_are_held_by_the_database(site, model, field, value):
+    # schema.json: design_temp_c -50..250, rating_factor ≥ 1, r_ohm > 0, burden_ohm items ≥ 0.
+    if model is models.Wire:
+        obj = models.Wire.objects.filter(length_m__isnull=False).first()
+        obj.size, obj.length_m = "", None
+    elif model is models.DeviceInput:
+        obj = models.DeviceInput.objects.get(name="IN")
+    else:
+        obj = model.objects.first()
+    setattr(obj, field, value)
+    with pytest.raises(IntegrityError), transaction.atomic():
+        obj.save()
