@@ -804,7 +804,8 @@ _leaf = st.one_of(
     st.floats(-2, 2, allow_nan=False),
     st.sampled_from(["", "X1", "a b", "TB-101:1", "closed", "C400", "5", "open"]),
     st.lists(st.sampled_from(["X1", "X4", "TB-101:1", 1]), max_size=3),
-    st.just({}),
+    # a fresh dict per draw: one shared {} could be set inside itself by two edits
+    st.builds(dict),
 )
 
 
