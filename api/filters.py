@@ -7,9 +7,9 @@ from django.db.models import QuerySet
 
 from analysis import models as results
 from analysis.engine.findings import SEVERITY_ORDER
-from analysis.engine.ratings.taps import parse_ratio
 from analysis.selectors import severity_or_worse
 from inventory import models
+from trade.ratio import parse_ratio
 
 
 class CTFilter(df.FilterSet):

@@ -8,8 +8,8 @@ from typing import Any
 
 from rest_framework import serializers
 
-from analysis.engine.ratings.taps import format_ratio
 from inventory.selectors import num
+from trade.ratio import format_ratio
 
 
 def _stamp(value: Any) -> str | None:

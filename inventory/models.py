@@ -19,6 +19,10 @@ from django.db.models import F, Q
 from simple_history.models import HistoricalRecords
 
 from inventory import choices
+from inventory.validation import excitation_error
+from trade.accuracy import parse_accuracy
+from trade.conductors import conductor_ohm_per_m
+from trade.ratio import ratio_setting_error
 
 
 def _positive(field: str) -> Q:
@@ -272,15 +276,11 @@ class CurrentTransformer(CleanCoversConstraints, SiteOwned):
                     "a three-phase set has one CT per phase"
                 )
         if self.accuracy:
-            from analysis.engine.ratings.accuracy import parse_accuracy
-
             try:
                 parse_accuracy(self.accuracy)
             except ValueError as exc:
                 errors["accuracy"] = str(exc)
         if self.excitation is not None:
-            from inventory.validation import excitation_error
-
             message = excitation_error(self.excitation)
             if message:
                 errors["excitation"] = message
@@ -410,8 +410,6 @@ class Device(SiteOwned):
 
     def clean(self) -> None:
         if self.ratio_setting:
-            from inventory.validation import ratio_setting_error
-
             message = ratio_setting_error(self.ratio_setting)
             if message:
                 raise ValidationError({"ratio_setting": message})
@@ -590,8 +588,6 @@ class Wire(CleanCoversConstraints, models.Model):
         if self.from_terminal_id and self.from_terminal_id == self.to_terminal_id:
             raise ValidationError({"to_terminal": "a wire from a terminal to itself"})
         if self.r_ohm is None and self.size:
-            from analysis.engine.conductors import conductor_ohm_per_m
-
             try:
                 conductor_ohm_per_m(self.size, self.material)
             except ValueError as exc:

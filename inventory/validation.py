@@ -1,22 +1,11 @@
 """Small value checks shared by model validation and the site-file validator. Each returns
-``None`` when the value is good, or a message saying what is wrong."""
+``None`` when the value is good, or a message saying what is wrong. (The ratio setting check is
+the trade's: ``trade.ratio.ratio_setting_error``.)"""
 
 from __future__ import annotations
 
 import math
-import re
 from typing import Any
-
-RATIO_RE = re.compile(r"^\s*(\d+(?:\.\d+)?)\s*[:/]\s*(1|5)\s*$")
-
-
-def ratio_setting_error(text: Any) -> str | None:
-    """A device ratio setting is ``N:5`` or ``N:1`` (``N/5`` accepted) with N > 0."""
-    if not isinstance(text, str) or not RATIO_RE.match(text):
-        return f"ratio setting must look like '400:5' or '1000:1', got {text!r}"
-    if float(RATIO_RE.match(text).group(1)) <= 0:
-        return f"ratio setting must have a positive primary current, got {text!r}"
-    return None
 
 
 def excitation_error(points: Any) -> str | None:

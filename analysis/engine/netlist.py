@@ -385,7 +385,7 @@ def _wire_r_ohm(spec: dict[str, Any], temp_c: float, where: str) -> float:
     if not spec.get("size"):
         raise ValueError(f"{where}: wire has a length but no size")
     # Imported here: the conductor table is a separate module and only needed for sized wires.
-    from analysis.engine.conductors import wire_resistance_ohm
+    from trade.conductors import wire_resistance_ohm
 
     return float(
         wire_resistance_ohm(

@@ -34,6 +34,9 @@ from jsonschema.exceptions import ValidationError
 
 from inventory.sitefile import gate
 from siterules.procedure_refs import OPERATIONS, RecordNames, procedure_problems
+from trade.accuracy import parse_accuracy
+from trade.conductors import conductor_ohm_per_m
+from trade.ratio import ratio_setting_error
 
 __all__ = [
     "FORMAT",
@@ -470,8 +473,6 @@ class _SenseChecker:
         self.wire_size_check = _wire_size_checker()
         self.accuracy_check = _accuracy_checker()
         # The model layer's rule, so the file and the admin accept the same settings.
-        from inventory.validation import ratio_setting_error
-
         self.ratio_check = ratio_setting_error
 
     def add(self, message: str, *tokens: Any) -> None:
@@ -975,7 +976,6 @@ def record_names(doc: dict) -> RecordNames:
 def _wire_size_checker() -> Callable[[str, str], str | None]:
     """A cached check of (size, material) against the conductor table: None when known,
     else the table's own message."""
-    from analysis.engine.conductors import conductor_ohm_per_m
 
     @functools.cache
     def check(size: str, material: str) -> str | None:
@@ -991,7 +991,6 @@ def _wire_size_checker() -> Callable[[str, str], str | None]:
 def _accuracy_checker() -> Callable[[str, float | None, float | None], str | None]:
     """A cached check of an accuracy string with the CT's rated burden and knee point (a
     '5P20 15VA' class must agree with rated_burden_va): None when it is a class, else why not."""
-    from analysis.engine.ratings.accuracy import parse_accuracy
 
     @functools.cache
     def check(text: str, rated_burden_va: float | None, knee_v: float | None) -> str | None:
@@ -1038,9 +1037,9 @@ def validate_site_document(doc: Any) -> list[SiteFileError]:
     duplicates, physically impossible values), in document order. An empty list means the
     document may be imported.
 
-    Wire sizes are checked against ``analysis.engine.conductors`` and accuracy strings against
-    ``analysis.engine.ratings.accuracy.parse_accuracy`` (IEEE C57.13 / IEC 61869-2 classes), so
-    the importer accepts exactly what the engine can compute with.
+    Wire sizes are checked against ``trade.conductors`` and accuracy strings against
+    ``trade.accuracy.parse_accuracy`` (IEEE C57.13 / IEC 61869-2 classes), the same tables the
+    engine computes with, so the importer accepts exactly what the engine can compute with.
     """
     if not isinstance(doc, dict):
         return [SiteFileError("", f"a site file must be an object, got {_kind(doc)}")]

@@ -212,7 +212,7 @@ def test_two_winding_terminals_at_one_position(staff):
 def test_bad_accuracy_string(staff):
     ct = models.CurrentTransformer.objects.get(code="CB-1-A")
     # IEEE C57.13 relaying classes are C100, C200, C400, C800 (S-code of shared/reference.md
-    # not needed: the class list is the parser's own, analysis.engine.ratings.accuracy).
+    # not needed: the class list is the parser's own, trade.accuracy).
     errors, _ = _post_broken(staff, ct, lambda data, page: data.update(accuracy="C450"))
     assert list(errors) == ["accuracy"]
 

@@ -16,8 +16,6 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from analysis.engine.conductors import KNOWN_SIZES
-from analysis.engine.ratings.accuracy import parse_accuracy
 from inventory.sitefile import (
     SiteFileError,
     SiteFileParseError,
@@ -27,6 +25,8 @@ from inventory.sitefile import (
     validate_site_document,
 )
 from inventory.sitefile.gate import fast_path_allowed, plain_json, schema_gate
+from trade.accuracy import parse_accuracy
+from trade.conductors import KNOWN_SIZES
 
 DEMO = Path(__file__).resolve().parents[2] / "fixtures" / "demo"
 

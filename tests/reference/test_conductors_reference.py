@@ -6,7 +6,7 @@ import math
 
 import pytest
 
-from analysis.engine.conductors import (
+from trade.conductors import (
     KNOWN_SIZES,
     conductor_ohm_per_m,
     normalize_size,

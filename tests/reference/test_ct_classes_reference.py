@@ -8,11 +8,13 @@ from __future__ import annotations
 import pytest
 
 from analysis.engine.ratings import (
-    IEEE_STANDARD_BURDENS,
     all_taps,
-    parse_accuracy,
     tap_of,
     winding_ohm_at_tap,
+)
+from trade.accuracy import (
+    IEEE_STANDARD_BURDENS,
+    parse_accuracy,
 )
 
 # S1: standard burden |Z| Ω, VA at 5 A, power factor. (R and L columns of reference.md are from

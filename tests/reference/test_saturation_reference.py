@@ -23,9 +23,7 @@ from analysis.engine.ratings import (
     all_taps,
     build_ct_report,
     c37_110_index,
-    effective_alf,
     evaluate_ct,
-    parse_accuracy,
     passes_c37_110,
     required_class_voltage_v,
     saturation_index,
@@ -34,6 +32,10 @@ from analysis.engine.ratings import (
 )
 from analysis.engine.ratings.site import SiteIndex
 from tests.reference.test_ct_classes_reference import MULTI_RATIO
+from trade.accuracy import (
+    effective_alf,
+    parse_accuracy,
+)
 
 OMEGA_60 = 2 * math.pi * 60
 

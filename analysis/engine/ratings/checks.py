@@ -14,7 +14,10 @@ from typing import Any
 
 from analysis.engine import findings as fc
 from analysis.engine.findings import Finding
-from analysis.engine.ratings.accuracy import (
+from analysis.engine.ratings.saturation import SaturationCase, assess_case
+from analysis.engine.ratings.site import SiteIndex
+from analysis.engine.ratings.taps import Tap, winding_ohm_at_tap
+from trade.accuracy import (
     IEC_METERING,
     IEC_PROTECTION,
     IEC_PX,
@@ -23,15 +26,7 @@ from analysis.engine.ratings.accuracy import (
     effective_alf,
     parse_accuracy,
 )
-from analysis.engine.ratings.saturation import SaturationCase, assess_case
-from analysis.engine.ratings.site import SiteIndex
-from analysis.engine.ratings.taps import (
-    Tap,
-    parse_ratio,
-    ratio_value,
-    ratios_equal,
-    winding_ohm_at_tap,
-)
+from trade.ratio import parse_ratio, ratio_value, ratios_equal
 
 CASES = ("ground_fault", "phase_fault")
 CASE_FAULT_KEY = {"ground_fault": "ground_fault_ka", "phase_fault": "three_phase_fault_ka"}

@@ -14,12 +14,9 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from itertools import combinations
 
-SECONDARY_RATINGS_A: tuple[float, ...] = (1.0, 5.0)
+from trade.ratio import SECONDARY_RATINGS_A, format_ratio
 
 _TAP_RE = re.compile(r"^\s*([A-Za-z]*\d+)\s*(?:-|–|—|/|,|\s)\s*([A-Za-z]*\d+)\s*$")
-_RATIO_RE = re.compile(
-    r"^\s*(\d+(?:\.\d+)?)\s*a?\s*[:/]\s*(\d+(?:\.\d+)?)\s*a?\s*$", flags=re.IGNORECASE
-)
 
 
 @dataclass(frozen=True, slots=True)
@@ -55,11 +52,6 @@ class Tap:
         return self.primary_a / self.secondary_a
 
 
-def format_ratio(primary_a: float, secondary_a: float) -> str:
-    """``400:5`` (integers without a decimal point)."""
-    return f"{primary_a:g}:{secondary_a:g}"
-
-
 def parse_tap(tap: str | Iterable[str]) -> tuple[str, str]:
     """Terminal pair from ``"X2-X4"``, ``"X2 X4"``, ``"X2/X4"`` or ``["X2", "X4"]``."""
     if isinstance(tap, str):
@@ -76,34 +68,6 @@ def parse_tap(tap: str | Iterable[str]) -> tuple[str, str]:
     if a == b:
         raise ValueError(f"a tap needs two different terminals, got {a!r} twice")
     return a, b
-
-
-@functools.lru_cache(maxsize=4096)
-def parse_ratio(text: str) -> tuple[float, float]:
-    """(primary A, secondary A) from ``"300:5"``, ``"300/5"``, ``"300 : 5 A"`` or ``"80:1"``."""
-    m = _RATIO_RE.match(str(text))
-    if not m:
-        raise ValueError(f"not a ratio {text!r}: expected primary:secondary such as '300:5'")
-    primary, secondary = float(m.group(1)), float(m.group(2))
-    if primary <= 0 or secondary <= 0:
-        raise ValueError(f"ratio {text!r}: both sides must be positive")
-    return primary, secondary
-
-
-def ratio_value(ratio: str | tuple[float, float] | float) -> float:
-    """A ratio as one number (primary / secondary): ``"400:5"`` and ``"80:1"`` are both 80."""
-    if isinstance(ratio, (int, float)):
-        return float(ratio)
-    primary, secondary = parse_ratio(ratio) if isinstance(ratio, str) else ratio
-    return float(primary) / float(secondary)
-
-
-def ratios_equal(
-    a: str | tuple[float, float] | float, b: str | tuple[float, float] | float
-) -> bool:
-    """Whether two ratios are the same number (relative tolerance 1e-9)."""
-    va, vb = ratio_value(a), ratio_value(b)
-    return abs(va - vb) <= 1e-9 * max(abs(va), abs(vb))
 
 
 def _positions(terminals: Mapping[str, float]) -> dict[str, float]:

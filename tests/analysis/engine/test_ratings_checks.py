@@ -13,13 +13,15 @@ from analysis.engine.ratings import (
     accuracy_check,
     evaluate_ct,
     input_rating_check,
-    parse_accuracy,
     ratio_setting_check,
     site_static_findings,
     tap_of,
     thermal_check,
 )
 from analysis.engine.ratings.site import SiteIndex
+from trade.accuracy import (
+    parse_accuracy,
+)
 
 POS_600 = {"X1": 0, "X2": 100, "X3": 150, "X4": 400, "X5": 600}
 

@@ -10,12 +10,14 @@ from analysis.engine.ratings import (
     all_taps,
     ct_tap,
     full_primary_a,
-    parse_ratio,
     parse_tap,
-    ratio_value,
-    ratios_equal,
     tap_of,
     winding_ohm_at_tap,
+)
+from trade.ratio import (
+    parse_ratio,
+    ratio_value,
+    ratios_equal,
 )
 
 POS_600 = {"X1": 0, "X2": 100, "X3": 150, "X4": 400, "X5": 600}

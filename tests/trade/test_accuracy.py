@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import pytest
 
-from analysis.engine.ratings import (
+from trade.accuracy import (
     IEC_METERING,
     IEC_PROTECTION,
     IEC_PX,
