@@ -13,6 +13,7 @@ from django.contrib import admin
 from django.utils import timezone
 
 from analysis import models
+from inventory.models import SiteChange
 
 
 def _when(value: dt.datetime | None) -> str:
@@ -98,23 +99,25 @@ class AnalysisRunAdmin(ReadOnlyAdmin):
         return _seconds(obj.write_s)
 
 
-@admin.register(models.RecomputeRequest)
-class RecomputeRequestAdmin(ReadOnlyAdmin):
-    list_display = ("id", "site", "revision", "status", "sends", "created", "done", "run")
+@admin.register(SiteChange)
+class SiteChangeAdmin(ReadOnlyAdmin):
+    """The inventory's outbox, shown beside the runs that consume it."""
+
+    list_display = ("id", "site", "revision", "status", "sends", "created", "done")
     list_filter = ("status",)
-    list_select_related = ("site", "run")
+    list_select_related = ("site",)
 
     @admin.display(description="created", ordering="created_at")
-    def created(self, obj: models.RecomputeRequest) -> str:
+    def created(self, obj: SiteChange) -> str:
         return _when(obj.created_at)
 
     @admin.display(description="done", ordering="done_at")
-    def done(self, obj: models.RecomputeRequest) -> str:
+    def done(self, obj: SiteChange) -> str:
         return _when(obj.done_at)
 
     def has_delete_permission(self, request, obj=None) -> bool:
         # The outbox is job plumbing, not a result: a site deleted in the admin takes its
-        # requests with it.
+        # changes with it.
         return request.user.is_superuser
 
 

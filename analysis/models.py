@@ -1,4 +1,5 @@
-"""Results of the analysis, the recompute outbox and the run log.
+"""Results of the analysis and the run log. (The outbox the runs consume is the inventory's
+``SiteChange``.)
 
 Result rows hold codes (strings), not foreign keys into the inventory: a site's results are
 replaced as a block (delete, then COPY or bulk insert) without touching the record, and a result
@@ -28,12 +29,6 @@ class RunStatus(models.TextChoices):
     RUNNING = "running"
     SUCCESS = "success"
     FAILURE = "failure"
-
-
-class RequestStatus(models.TextChoices):
-    PENDING = "pending"
-    DONE = "done"
-    FAILED = "failed", "failed (gave up after the maximum number of sends)"
 
 
 class AnalysisRun(models.Model):
@@ -73,6 +68,14 @@ class AnalysisRun(models.Model):
     attempts = models.PositiveIntegerField(default=0, help_text="task starts, retries included")
     task_id = models.CharField(max_length=64, blank=True)
     error = models.TextField(blank=True)
+    change = models.ForeignKey(
+        "inventory.SiteChange",
+        on_delete=models.SET_NULL,
+        null=True,
+        blank=True,
+        related_name="+",
+        help_text="the record change (outbox row) this site run was sent for",
+    )
 
     class Meta:
         ordering = ["-created_at", "-id"]
@@ -108,33 +111,6 @@ class RunChunk(models.Model):
 
     def __str__(self) -> str:
         return f"run {self.run_id} chunk {self.index} ({self.sites} sites)"
-
-
-class RecomputeRequest(models.Model):
-    """The outbox: written in the same transaction as the edit that changed a circuit. It is
-    done once results at ``revision`` or newer are stored for the site (marked in the results'
-    own transaction); until then the periodic sweep sends its run again."""
-
-    site = models.ForeignKey("inventory.Site", on_delete=models.CASCADE, related_name="+")
-    revision = models.PositiveBigIntegerField(help_text="site revision the edit produced")
-    run = models.ForeignKey(AnalysisRun, on_delete=models.SET_NULL, null=True, related_name="+")
-    status = models.CharField(
-        max_length=10, choices=RequestStatus.choices, default=RequestStatus.PENDING
-    )
-    sends = models.PositiveIntegerField(default=0, help_text="times handed to the broker")
-    created_at = models.DateTimeField(auto_now_add=True)
-    sent_at = models.DateTimeField(null=True, blank=True)
-    done_at = models.DateTimeField(null=True, blank=True)
-
-    class Meta:
-        ordering = ["created_at", "id"]
-        indexes = [
-            models.Index(fields=["status", "created_at"], name="analysis_request_due"),
-            models.Index(fields=["site", "status"], name="analysis_request_site"),
-        ]
-
-    def __str__(self) -> str:
-        return f"recompute site {self.site_id} at revision {self.revision} ({self.status})"
 
 
 class SiteResult(models.Model):

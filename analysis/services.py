@@ -1,12 +1,14 @@
 """Writes of the analysis app: the recompute outbox, run rows and the bulk replacement of a
 site's results.
 
-The flow: an edit calls ``recompute_request`` inside its own transaction (an outbox row and a
-site run row; the task is sent when the edit commits). The task reads the site record, runs the
-engine and calls ``results_replace``, which in one transaction locks the site rows, refuses to
-replace newer results with older ones, swaps the site's result rows (COPY on PostgreSQL,
-``bulk_create`` elsewhere), marks the outbox rows done and counts the run's progress. If the
-send is lost (broker down), ``requests_sweep`` sends it again.
+The flow: an edit records a change in the inventory's outbox (``inventory.changes``, a
+``SiteChange`` row) inside its own transaction; the inventory hands the row to its registered
+consumers, and ``site_change_consume`` (registered by ``AnalysisConfig.ready()``) adds a site run
+row and sends the task when the edit commits. The task reads the site record, runs the engine
+and calls ``results_replace``, which in one transaction locks the site rows, refuses to replace
+newer results with older ones, swaps the site's result rows (COPY on PostgreSQL, ``bulk_create``
+elsewhere), marks the outbox rows done and counts the run's progress. If the send is lost
+(broker down), ``requests_sweep`` sends it again.
 """
 
 from __future__ import annotations
@@ -30,9 +32,10 @@ from django.db.models.functions import Concat
 from django.utils import timezone
 
 from analysis import models
-from analysis.models import RequestStatus, RunKind, RunStatus
+from analysis.models import RunKind, RunStatus
 from analysis.selectors import chunk_inputs
-from inventory.models import Site
+from inventory.changes import changes_done, changes_due, changes_give_up, changes_sent
+from inventory.models import Site, SiteChange
 
 log = logging.getLogger(__name__)
 
@@ -68,18 +71,19 @@ def recompute_deferred() -> Iterator[None]:
         _local.deferred = previous
 
 
-def recompute_request(*, site_id: int) -> models.RecomputeRequest:
-    """Record that the site's results must be recomputed: an outbox row and a site run, in the
-    caller's transaction; the task is sent when that transaction commits (never before, or a
-    worker could read the old record)."""
-    revision = Site.objects.filter(pk=site_id).values_list("revision", flat=True).get()
-    run = models.AnalysisRun.objects.create(kind=RunKind.SITE, site_ids=[site_id], sites_total=1)
-    request = models.RecomputeRequest.objects.create(site_id=site_id, revision=revision, run=run)
+def site_change_consume(change: SiteChange) -> models.AnalysisRun:
+    """The consumer of the inventory's outbox: a site's record changed, so its results must be
+    recomputed. Called in the edit's transaction (``inventory.changes.change_record``): a site
+    run row, and its task sent when that transaction commits (never before, or a worker could
+    read the old record). Inside ``recompute_deferred`` nothing is sent."""
+    run = models.AnalysisRun.objects.create(
+        kind=RunKind.SITE, site_ids=[change.site_id], sites_total=1, change=change
+    )
     if not getattr(_local, "deferred", False):
         from analysis.tasks import recompute_run
 
         recompute_run.delay_on_commit(run.pk)
-    return request
+    return run
 
 
 def run_create(
@@ -287,16 +291,9 @@ def results_replace(
         rows = _result_rows({s: results[s] for s in written}, heads, now, run_id)
         for model in RESULT_MODELS:
             _insert(model, rows[model])
-    # Every pending request of these sites at or below the revision now stored is satisfied.
+    # Every pending change of these sites at or below the revision now stored is satisfied.
     at = {**stored, **{s: heads[s][1] for s in written}}
-    done = Q()
-    for s in ids:
-        if s in at:
-            done |= Q(site_id=s, revision__lte=at[s])
-    if done:
-        models.RecomputeRequest.objects.filter(done, status=RequestStatus.PENDING).update(
-            status=RequestStatus.DONE, done_at=timezone.now()
-        )
+    changes_done(at={s: at[s] for s in ids if s in at})
     return written, newer
 
 
@@ -405,48 +402,45 @@ def _insert(model: type[djm.Model], rows: list[dict[str, Any]], *, table: str = 
 
 
 def requests_sweep(*, min_age_s: float = 60.0, max_sends: int = 5) -> int:
-    """Send again the runs of outbox rows not done after ``min_age_s`` (their send was lost,
-    or the task failed). One run per site, however many requests it has. A send counts only
-    when the broker took it, so an outage only delays; a request still not done after
-    ``max_sends`` delivered sends is marked failed (its run rows say why). Returns the number
-    of sites sent."""
+    """Send again the runs of outbox rows (``inventory.SiteChange``) not done after
+    ``min_age_s`` (their send was lost, or the task failed). One run per site, however many
+    changes it has: the pending run sent for its newest change, or a fresh one when that run
+    started already. A send counts only when the broker took it, so an outage only delays; a
+    change still not done after ``max_sends`` delivered sends is marked failed (its run rows say
+    why). Returns the number of sites sent."""
     from analysis.tasks import recompute_run
 
     cutoff = timezone.now() - dt.timedelta(seconds=min_age_s)
-    models.RecomputeRequest.objects.filter(
-        status=RequestStatus.PENDING, sends__gte=max_sends
-    ).update(status=RequestStatus.FAILED)
-    due = (
-        models.RecomputeRequest.objects.filter(status=RequestStatus.PENDING)
-        .filter(Q(sent_at__isnull=True, created_at__lte=cutoff) | Q(sent_at__lte=cutoff))
-        .select_related("run")
-        .order_by("site_id", "-revision", "-id")
-    )
-    plan: dict[int, int] = {}
+    changes_give_up(max_sends=max_sends)
+    plan: dict[int, tuple[int, list[int]]] = {}
     with transaction.atomic():
-        by_site: dict[int, list[models.RecomputeRequest]] = {}
-        for req in due.select_for_update(of=("self",), skip_locked=True):
-            by_site.setdefault(req.site_id, []).append(req)
-        for site_id, reqs in by_site.items():
-            newest = reqs[0]
-            run = newest.run
-            if run is None or run.status != RunStatus.PENDING:
+        by_site: dict[int, list[SiteChange]] = {}
+        for change in changes_due(cutoff=cutoff).select_for_update(skip_locked=True):
+            by_site.setdefault(change.site_id, []).append(change)
+        newest = {site_id: changes[0].pk for site_id, changes in by_site.items()}
+        pending_runs = dict(
+            models.AnalysisRun.objects.filter(
+                change_id__in=newest.values(), status=RunStatus.PENDING
+            )
+            .order_by("change_id", "id")
+            .values_list("change_id", "pk")
+        )
+        for site_id, changes in by_site.items():
+            run_id = pending_runs.get(newest[site_id])
+            if run_id is None:
                 # A run that started already keeps its own history; send a fresh one.
-                run = models.AnalysisRun.objects.create(
-                    kind=RunKind.SITE, site_ids=[site_id], sites_total=1
-                )
-            models.RecomputeRequest.objects.filter(pk__in=[r.pk for r in reqs]).update(run=run)
-            plan[site_id] = run.pk
+                run_id = models.AnalysisRun.objects.create(
+                    kind=RunKind.SITE, site_ids=[site_id], sites_total=1, change_id=newest[site_id]
+                ).pk
+            plan[site_id] = (run_id, [c.pk for c in changes])
     sent = 0
-    for site_id, run_id in plan.items():
+    for site_id, (run_id, change_ids) in plan.items():
         try:
             recompute_run.delay(run_id)
         except Exception as exc:  # the broker is still away: leave the rows due
             log.warning("sweep could not send run %s (site %s): %s", run_id, site_id, exc)
             break
-        models.RecomputeRequest.objects.filter(
-            site_id=site_id, status=RequestStatus.PENDING, run_id=run_id
-        ).update(sent_at=timezone.now(), sends=F("sends") + 1)
+        changes_sent(ids=change_ids)
         sent += 1
     return sent
 

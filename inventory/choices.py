@@ -59,3 +59,9 @@ class TapRole(models.TextChoices):
     NONE = "", "not in use"
     FIRST = "first"
     SECOND = "second"
+
+
+class ChangeStatus(models.TextChoices):
+    PENDING = "pending"
+    DONE = "done"
+    FAILED = "failed", "failed (gave up after the maximum number of sends)"

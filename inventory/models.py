@@ -754,3 +754,31 @@ class ProcedureStep(models.Model):
 
     def __str__(self) -> str:
         return f"{self.procedure.code} step {self.order}"
+
+
+class SiteChange(models.Model):
+    """The record's outbox: a site's circuits changed and it is now at ``revision``. Written in
+    the same transaction as the edit (``inventory.services.site_record_change``). The inventory
+    knows nothing of who reads it: the consumers registered in ``inventory.changes`` (the
+    analysis) act on it, mark it done once results at ``revision`` or newer are stored, and
+    send it again while it stays pending (``sends``, ``sent_at``)."""
+
+    site = models.ForeignKey(Site, on_delete=models.CASCADE, related_name="+")
+    revision = models.PositiveBigIntegerField(help_text="site revision the edit produced")
+    status = models.CharField(
+        max_length=10, choices=choices.ChangeStatus.choices, default=choices.ChangeStatus.PENDING
+    )
+    sends = models.PositiveIntegerField(default=0, help_text="times handed to the broker")
+    created_at = models.DateTimeField(auto_now_add=True)
+    sent_at = models.DateTimeField(null=True, blank=True)
+    done_at = models.DateTimeField(null=True, blank=True)
+
+    class Meta:
+        ordering = ["created_at", "id"]
+        indexes = [
+            models.Index(fields=["status", "created_at"], name="inventory_change_due"),
+            models.Index(fields=["site", "status"], name="inventory_change_site"),
+        ]
+
+    def __str__(self) -> str:
+        return f"site {self.site_id} changed to revision {self.revision} ({self.status})"

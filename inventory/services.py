@@ -23,6 +23,7 @@ from django.db.models import F, Q
 from django.utils import timezone
 
 from inventory import models
+from inventory.changes import change_record
 from inventory.sitefile.importer import ImportResult, SiteImportError, upsert_site
 
 __all__ = ["ImportResult", "SiteImportError", "ct_change_tap", "site_import", "site_record_change"]
@@ -62,11 +63,10 @@ def site_import(*, doc: dict, dry_run: bool = False, user: Any = None) -> Import
 def site_record_change(*, site_id: int) -> None:
     """Mark a site's circuits as changed, inside the caller's transaction: its revision goes
     up (every result computed from the old revision is stale from the moment this commits) and
-    a recompute is requested (an outbox row, and the job scheduled on commit)."""
-    from analysis.services import recompute_request
-
+    the change is recorded in the outbox (``inventory.changes``), whose consumers (the
+    analysis) schedule the recompute for when the transaction commits."""
     models.Site.objects.filter(pk=site_id).update(revision=F("revision") + 1)
-    recompute_request(site_id=site_id)
+    change_record(site_id=site_id)
 
 
 @transaction.atomic

@@ -20,9 +20,10 @@ from django.utils import timezone
 
 from analysis import models, selectors, services
 from analysis.compute import compute_sites
-from analysis.models import RequestStatus, RunKind, RunStatus
+from analysis.models import RunKind, RunStatus
 from config.celery import app
 from inventory import models as inv
+from inventory.choices import ChangeStatus
 from inventory.services import SiteImportError, ct_change_tap, site_import
 from tests.inventory.docs import small_site
 
@@ -68,9 +69,9 @@ def test_import_commits_then_results_are_fresh(django_capture_on_commit_callback
     assert circuits.count() == 1 and circuits.get().ground_points == 1
     assert models.CTRating.objects.filter(site_id=site.pk).count() == 3 * 2  # 3 CTs × 2 cases
     assert models.ProcedureVerdict.objects.filter(site_id=site.pk).count() == 1
-    request = models.RecomputeRequest.objects.get(site_id=site.pk)
-    assert request.status == RequestStatus.DONE
-    assert request.run.status == RunStatus.SUCCESS
+    change = inv.SiteChange.objects.get(site_id=site.pk)
+    assert change.status == ChangeStatus.DONE
+    assert models.AnalysisRun.objects.get(change=change).status == RunStatus.SUCCESS
 
 
 def test_nothing_is_sent_before_the_edit_commits(django_capture_on_commit_callbacks):
@@ -78,7 +79,7 @@ def test_nothing_is_sent_before_the_edit_commits(django_capture_on_commit_callba
         site_import(doc=small_site())
     site = inv.Site.objects.get(code="TST")
     assert len(callbacks) == 1
-    assert models.RecomputeRequest.objects.get(site_id=site.pk).status == RequestStatus.PENDING
+    assert inv.SiteChange.objects.get(site_id=site.pk).status == ChangeStatus.PENDING
     assert not models.SiteComputation.objects.filter(site_id=site.pk).exists()
     callbacks[0]()
     assert selectors.site_status(site="TST")["stale"] is False
@@ -93,7 +94,7 @@ def test_rolled_back_edit_sends_nothing(django_capture_on_commit_callbacks):
     ):
         site_import(doc=bad)
     assert callbacks == []
-    assert not models.RecomputeRequest.objects.exists()
+    assert not inv.SiteChange.objects.exists()
 
 
 def _dangers(site: str) -> set[tuple]:
@@ -217,11 +218,11 @@ def test_sweep_sends_a_lost_request_once_per_site(django_capture_on_commit_callb
         site = inv.Site.objects.get(code="TST")
         for tap in (("X1", "X5"), ("X1", "X3")):
             ct_change_tap(ct=inv.CurrentTransformer.objects.get(site=site, code="CB-1-A"), to=tap)
-    assert models.RecomputeRequest.objects.filter(status=RequestStatus.PENDING).count() == 3
+    assert inv.SiteChange.objects.filter(status=ChangeStatus.PENDING).count() == 3
     assert services.requests_sweep() == 0  # younger than a minute: not due yet
-    models.RecomputeRequest.objects.update(created_at=timezone.now() - dt.timedelta(minutes=2))
+    inv.SiteChange.objects.update(created_at=timezone.now() - dt.timedelta(minutes=2))
     assert services.requests_sweep() == 1
-    assert not models.RecomputeRequest.objects.exclude(status=RequestStatus.DONE).exists()
+    assert not inv.SiteChange.objects.exclude(status=ChangeStatus.DONE).exists()
     site.refresh_from_db()
     assert selectors.site_status(site="TST")["computed_revision"] == site.revision
     assert selectors.ct_report(site="TST", ct="CB-1-A")[0]["ratio"] == "150:5"  # X1-X3 (S4)
@@ -233,10 +234,11 @@ def test_failing_site_does_not_break_the_edit(django_capture_on_commit_callbacks
 
     monkeypatch.setattr("analysis.compute.compute_sites", broken)
     site = _import(small_site(), django_capture_on_commit_callbacks)  # must not raise
-    request = models.RecomputeRequest.objects.get(site_id=site.pk)
-    assert request.status == RequestStatus.PENDING  # the sweep will try again
-    assert request.run.status == RunStatus.FAILURE
-    assert "injected engine failure" in request.run.error
+    change = inv.SiteChange.objects.get(site_id=site.pk)
+    assert change.status == ChangeStatus.PENDING  # the sweep will try again
+    run = models.AnalysisRun.objects.get(change=change)
+    assert run.status == RunStatus.FAILURE
+    assert "injected engine failure" in run.error
     assert selectors.site_status(site="TST")["stale"] is True
 
 
@@ -245,14 +247,14 @@ def test_fleet_run_in_chunks(django_capture_on_commit_callbacks, settings):
     with services.recompute_deferred():
         for code in ("AAA", "BBB", "CCC"):
             site_import(doc=small_site(code))
-    assert models.RecomputeRequest.objects.filter(status=RequestStatus.PENDING).count() == 3
+    assert inv.SiteChange.objects.filter(status=ChangeStatus.PENDING).count() == 3
     with django_capture_on_commit_callbacks(execute=True):
         run = services.fleet_recompute()
     run.refresh_from_db()
     assert (run.status, run.sites_done, run.sites_total) == (RunStatus.SUCCESS, 3, 3)
     assert run.chunks.count() == 2
     assert run.cts == 9
-    assert not models.RecomputeRequest.objects.exclude(status=RequestStatus.DONE).exists()
+    assert not inv.SiteChange.objects.exclude(status=ChangeStatus.DONE).exists()
     assert models.SiteComputation.objects.count() == 3
 
 
@@ -333,11 +335,9 @@ def test_request_inside_outer_transaction_waits_for_the_outer_commit(
 def test_sweep_gives_up_after_the_bound(django_capture_on_commit_callbacks):
     with django_capture_on_commit_callbacks(execute=False):
         site_import(doc=small_site())
-    models.RecomputeRequest.objects.update(
-        sends=5, created_at=timezone.now() - dt.timedelta(minutes=10)
-    )
+    inv.SiteChange.objects.update(sends=5, created_at=timezone.now() - dt.timedelta(minutes=10))
     assert services.requests_sweep(max_sends=5) == 0
-    assert models.RecomputeRequest.objects.get().status == RequestStatus.FAILED
+    assert inv.SiteChange.objects.get().status == ChangeStatus.FAILED
 
 
 def test_beat_schedule_names_registered_tasks(settings):

@@ -24,9 +24,10 @@ from django.utils import timezone
 
 from analysis import models, selectors, services
 from analysis.compute import compute_sites
-from analysis.models import RequestStatus, RunKind, RunStatus
+from analysis.models import RunKind, RunStatus
 from config.celery import app
 from inventory import models as inv
+from inventory.choices import ChangeStatus
 from inventory.selectors import site_document
 from inventory.services import ct_change_tap, site_import
 from tests.inventory.docs import small_site
@@ -112,7 +113,7 @@ def test_edit_commits_then_worker_writes_fresh_results(worker):
     wait_for(lambda: fresh("TST"), "results of the tap change")
     # X1-X5 of the 0/100/150/400/600 winding is 600:5 (S4).
     assert selectors.ct_report(site="TST", ct="CB-1-A")[0]["ratio"] == "600:5"
-    assert not models.RecomputeRequest.objects.exclude(status=RequestStatus.DONE).exists()
+    assert not inv.SiteChange.objects.exclude(status=ChangeStatus.DONE).exists()
     assert _rows(site.pk) == _expected_rows(site.pk)
     runs = models.AnalysisRun.objects.filter(kind=RunKind.SITE)
     assert runs.count() == 2 and all(r.status == RunStatus.SUCCESS for r in runs)
@@ -130,20 +131,20 @@ def test_broker_outage_delays_results_but_loses_nothing(worker):
     with broker_unreachable():
         ct_change_tap(ct=ct, to=("X2", "X5"), by="tester")  # commits without an error
         site.refresh_from_db()
-        request = models.RecomputeRequest.objects.get(site_id=site.pk, revision=site.revision)
-        assert request.status == RequestStatus.PENDING
-        models.RecomputeRequest.objects.filter(pk=request.pk).update(
+        request = inv.SiteChange.objects.get(site_id=site.pk, revision=site.revision)
+        assert request.status == ChangeStatus.PENDING
+        inv.SiteChange.objects.filter(pk=request.pk).update(
             created_at=timezone.now() - dt.timedelta(minutes=2)
         )
         assert services.requests_sweep() == 0  # still down: nothing sent, nothing given up
     time.sleep(1.0)
     request.refresh_from_db()
-    assert request.status == RequestStatus.PENDING and request.sends == 0
+    assert request.status == ChangeStatus.PENDING and request.sends == 0
     assert selectors.site_status(site="TST")["stale"] is True
     assert services.requests_sweep() == 1  # the broker is back
     wait_for(lambda: fresh("TST"), "results after the sweep")
     request.refresh_from_db()
-    assert request.status == RequestStatus.DONE
+    assert request.status == ChangeStatus.DONE
     # X2-X5 of the 0/100/150/400/600 winding is 500:5 (S4).
     assert selectors.ct_report(site="TST", ct="CB-1-C")[0]["ratio"] == "500:5"
     assert _rows(site.pk) == _expected_rows(site.pk)
@@ -188,7 +189,7 @@ def test_task_killed_mid_write_is_redelivered_and_leaves_one_set(worker, monkeyp
     assert killed and run.attempts == 2
     assert run.sites_done == 1 and run.chunks.count() == 1
     assert _rows(site.pk) == _expected_rows(site.pk)
-    assert not models.RecomputeRequest.objects.exclude(status=RequestStatus.DONE).exists()
+    assert not inv.SiteChange.objects.exclude(status=ChangeStatus.DONE).exists()
 
 
 @pytest.mark.broker
@@ -206,7 +207,7 @@ def test_fleet_run_through_the_broker_with_progress(worker, settings):
     assert run.chunks.count() == 3
     assert "3/3 sites" in out.getvalue()
     assert selectors.stale_site_ids() == []
-    assert not models.RecomputeRequest.objects.exclude(status=RequestStatus.DONE).exists()
+    assert not inv.SiteChange.objects.exclude(status=ChangeStatus.DONE).exists()
 
 
 class _Paused:
