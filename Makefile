@@ -24,9 +24,12 @@ demo: venv
 test: venv
 	$(BIN)/pytest $(PYTEST_ARGS)
 
+## ruff (style), lint-imports (the layering contracts in pyproject.toml) and mypy (types).
 lint: venv
 	$(BIN)/ruff check .
 	$(BIN)/ruff format --check .
+	$(BIN)/lint-imports
+	$(BIN)/mypy
 
 format: venv
 	$(BIN)/ruff format .
@@ -39,4 +42,4 @@ bench: venv
 	$(BIN)/python -m analysis.engine.bench
 
 clean:
-	rm -rf $(VENV) var .pytest_cache .ruff_cache .hypothesis
+	rm -rf $(VENV) var .pytest_cache .ruff_cache .mypy_cache .import_linter_cache .hypothesis

@@ -139,7 +139,7 @@ def compute_site(doc: dict) -> SiteResults:
         out.findings.append(unchecked_procedure_row(code, error))
     site_code = doc["site"]["code"]
     for code, verdict in analysis.verdicts.items():
-        body = verdict.to_json(site_code) if hasattr(verdict, "to_json") else verdict
+        body = verdict if isinstance(verdict, dict) else verdict.to_json(site_code)
         out.verdicts.append(
             {
                 "procedure": code,

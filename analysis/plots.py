@@ -158,7 +158,7 @@ def burden_plot(
     x: list[float] = []
     for element in elements:
         label, value = (element[0], element[-1])
-        z = complex(value)  # type: ignore[arg-type]
+        z = complex(value)
         labels.append(str(label))
         r.append(z.real)
         x.append(z.imag)

@@ -286,7 +286,7 @@ def results_replace(
     newer = [s for s in ids if s in results and stored.get(s, 0) > heads[s][1]]
     if written:
         for model in RESULT_MODELS:
-            model.objects.filter(site_id__in=written).delete()
+            model._default_manager.filter(site_id__in=written).delete()
         now = timezone.now()
         rows = _result_rows({s: results[s] for s in written}, heads, now, run_id)
         for model in RESULT_MODELS:
@@ -398,7 +398,7 @@ def _insert(model: type[djm.Model], rows: list[dict[str, Any]], *, table: str = 
                     values[i] = dumps(values[i])
                 write(values)
     else:
-        model.objects.bulk_create([model(**row) for row in rows], batch_size=500)
+        model._default_manager.bulk_create([model(**row) for row in rows], batch_size=500)
 
 
 def requests_sweep(*, min_age_s: float = 60.0, max_sends: int = 5) -> int:
@@ -467,7 +467,7 @@ def runs_sweep(*, stalled_s: float = 600.0) -> int:
         done = set(models.RunChunk.objects.filter(run=run).values_list("index", flat=True))
         missing = [
             (index, ids)
-            for index, ids in enumerate(_chunks(run.site_ids, run.chunk_size))
+            for index, ids in enumerate(_chunks(run.site_ids or [], run.chunk_size))
             if index not in done
         ]
         if not missing:  # every chunk written, only the closing was lost

@@ -41,9 +41,10 @@ class RunTask(DjangoTask):
     soft_time_limit = 20 * 60
     time_limit = 25 * 60
 
-    def delay_on_commit(self, *args, **kwargs) -> None:
+    def delay_on_commit(self, *args, **kwargs) -> None:  # type: ignore[override]
         # ``robust``: the edit has committed by then; a broker outage must not turn it into an
         # error for the caller. The outbox row stays pending and the sweep sends it later.
+        # (Returns nothing, unlike Celery's: the task is not sent yet.)
         # A named function, not a partial: Django logs a robust callback's __qualname__.
         def send_recompute() -> None:
             self.delay(*args, **kwargs)

@@ -20,7 +20,7 @@ from django.utils import timezone
 from inventory.choices import ChangeStatus
 from inventory.models import Site, SiteChange
 
-ChangeConsumer = Callable[[SiteChange], None]
+ChangeConsumer = Callable[[SiteChange], object]
 
 _consumers: list[ChangeConsumer] = []
 

@@ -236,7 +236,7 @@ class Netlist:
     procedures: dict[str, Procedure]
     terminal_blocks: frozenset[str] = frozenset()
     doc: dict[str, Any] | None = field(default=None, repr=False)
-    cache: dict[str, Any] = field(default_factory=dict, repr=False)
+    cache: dict[Any, Any] = field(default_factory=dict, repr=False)
 
     @property
     def n_terminals(self) -> int:

@@ -67,7 +67,8 @@ def components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
             lab = nxt
     g = coo_matrix((np.ones(len(a), dtype=np.int8), (a, b)), shape=(n, n))
     _, labels = connected_components(g, directed=False)
-    return labels.astype(np.int64, copy=False)
+    out: np.ndarray = labels.astype(np.int64, copy=False)
+    return out
 
 
 @dataclass(eq=False)

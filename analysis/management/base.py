@@ -9,6 +9,7 @@ is printed in full before the command exits with 3, so a script gets both."""
 from __future__ import annotations
 
 import json
+from collections.abc import Callable
 from typing import Any
 
 from django.core.management.base import BaseCommand, CommandError
@@ -53,8 +54,8 @@ class SiteBodyCommand(BaseCommand):
     def body(self, doc: dict, name: str) -> dict[str, Any]:
         raise NotImplementedError
 
-    def text(self, body: dict[str, Any]) -> str:
-        raise NotImplementedError
+    # The readable text of a body (subclasses assign a renderer function).
+    text: Callable[[dict[str, Any]], str]
 
     def unsafe(self, body: dict[str, Any]) -> str | None:
         """Why the answer is a bad one (exit status 3), or None."""

@@ -247,7 +247,8 @@ def knee_point_iec(curve: ExcitationCurve) -> KneePoint | None:
 
     def h(y: np.ndarray | float) -> np.ndarray:
         y = np.minimum(y, y1)  # keep y + step inside the curve despite rounding
-        return g(y + step) - g(y) - target
+        out: np.ndarray = g(y + step) - g(y) - target
+        return out
 
     y = np.linspace(y0, y1, _GRID)
     hv = h(y)

@@ -21,7 +21,7 @@ class SiteIndex:
         self.frequency_hz = float(site.get("frequency_hz") or DEFAULT_FREQUENCY_HZ)
         self.buses = {b["code"]: b for b in doc.get("buses") or ()}
         self.equipment = {e["code"]: e for e in doc.get("equipment") or ()}
-        self.cts = {c["code"]: c for c in doc.get("cts") or ()}
+        self.cts: dict[str, Mapping[str, Any]] = {c["code"]: c for c in doc.get("cts") or ()}
         self.devices = {d["code"]: d for d in doc.get("devices") or ()}
         self._taps: dict[str, Tap | ValueError] = {}
 
@@ -48,8 +48,8 @@ class SiteIndex:
             raise KeyError(f"no CT {code!r} at site {self.code!r}") from None
 
     def equipment_of(self, ct: Mapping[str, Any]) -> Mapping[str, Any] | None:
-        return self.equipment.get(ct.get("equipment"))  # type: ignore[arg-type]
+        return self.equipment.get(ct.get("equipment"))
 
     def bus_of(self, ct: Mapping[str, Any]) -> Mapping[str, Any] | None:
         eq = self.equipment_of(ct)
-        return None if eq is None else self.buses.get(eq.get("bus"))  # type: ignore[arg-type]
+        return None if eq is None else self.buses.get(eq.get("bus"))

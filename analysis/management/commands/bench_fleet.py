@@ -21,6 +21,7 @@ import subprocess
 import sys
 import time
 from pathlib import Path
+from typing import Any
 
 from django.conf import settings
 from django.core.management.base import BaseCommand, CommandError
@@ -104,7 +105,7 @@ class Command(BaseCommand):
                 f"the database holds {Site.objects.count()} sites; bench a database of exactly "
                 f"--sites ({sites}) so the fleet run and the floor cover the same rows"
             )
-        figures: dict[str, float | int | list | None] = {"sites": len(site_ids)}
+        figures: dict[str, Any] = {"sites": len(site_ids)}
 
         app.control.purge()
         worker = subprocess.Popen(
