@@ -1,6 +1,7 @@
 """CT ratings: taps, accuracy class at the tap, saturation, excitation knee points and checks.
 
-Pure functions (no Django): the CT report, the jobs and the API call these.
+Pure functions (no Django): the CT report, the jobs and the API call these. What the accuracy
+class and ratio strings mean is the trade's (``trade.accuracy``, ``trade.ratio``).
 """
 
 from analysis.engine.ratings.checks import (
