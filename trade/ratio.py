@@ -5,7 +5,8 @@ from __future__ import annotations
 import functools
 import re
 
-# Secondary ratings in use (IEEE C57.13 5 A; IEC 61869-2 1 A and 5 A).
+# Rated secondary currents the record holds: 5 A (the IEEE C57.13 value) and 1 A (the usual
+# IEC 61869-2 value for long leads); others are refused (design.md).
 SECONDARY_RATINGS_A: tuple[float, ...] = (1.0, 5.0)
 
 _RATIO_RE = re.compile(
