@@ -49,9 +49,9 @@ from analysis.engine.procedure import (
     subnet,
     touched_terminals,
 )
+from analysis.engine.quantities import PROBE_ZERO_A
 from analysis.engine.state import (
     APPEAR_FROM,
-    PROBE_ZERO_A,
     ProcedureError,
     State,
     StateEval,

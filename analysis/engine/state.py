@@ -873,7 +873,7 @@ def check_open_secondary(nl: Netlist, ev: StateEval, stage: str | None) -> list[
     current in a fault; a three-phase set whose return (neutral) is open still circulates its
     balanced load through the phases, and the hazard is the zero-sequence current of a ground
     fault, which has no path (common practice, no source)."""
-    out = []
+    out: list[Finding] = []
     if not ev.live_open.any():
         return out
     returns = {c.code: name for name, cts in _open_returns(nl, ev).items() for c in cts}
