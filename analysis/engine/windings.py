@@ -155,7 +155,7 @@ def winding_arrays(nl: Netlist) -> WindingArrays:
     The per-nameplate part is worked out once per distinct (positions, tap, secondary rating,
     winding resistance), so a fleet of like CTs costs one list of terminal indices each.
     """
-    hit = nl.cache.get("windings")
+    hit: WindingArrays | None = nl.cache.get("windings")
     if hit is not None:
         return hit
     shapes: dict[Any, _Shape | None] = {}
