@@ -57,7 +57,7 @@ def changes_to_requests(apps, schema_editor) -> None:
 class Migration(migrations.Migration):
     dependencies = [
         ("analysis", "0002_finding_stage"),
-        ("inventory", "0003_site_change"),
+        ("inventory", "0004_site_change"),
     ]
 
     operations = [

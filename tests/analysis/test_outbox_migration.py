@@ -14,7 +14,7 @@ from django.db.migrations.executor import MigrationExecutor
 from analysis.models import AnalysisRun
 from inventory.models import SiteChange
 
-BEFORE = [("analysis", "0002_finding_stage"), ("inventory", "0002_device_input_burden_not_null")]
+BEFORE = [("analysis", "0002_finding_stage"), ("inventory", "0003_record_rules_and_labels")]
 AFTER = [("analysis", "0003_outbox_moves_to_inventory")]
 WHEN = dt.datetime(2026, 1, 2, 3, 4, 5, tzinfo=dt.UTC)
 

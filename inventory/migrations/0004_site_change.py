@@ -7,7 +7,7 @@ from django.db import migrations, models
 class Migration(migrations.Migration):
 
     dependencies = [
-        ('inventory', '0002_device_input_burden_not_null'),
+        ('inventory', '0003_record_rules_and_labels'),
     ]
 
     operations = [
