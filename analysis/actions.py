@@ -6,6 +6,9 @@ from __future__ import annotations
 
 import copy
 import json
+import threading
+from collections import OrderedDict
+from collections.abc import Callable
 from typing import Any
 
 from analysis import engine
@@ -13,29 +16,65 @@ from analysis.compute import ct_report
 from analysis.engine.cautions import cautions
 from inventory.sitefile.validate import validate_site_document
 
+_SITES_KEPT = 8
+_local = threading.local()
 
-def procedure_check(doc: dict[str, Any], procedure: str) -> dict[str, Any]:
-    """The verdict JSON of the stored procedure ``procedure`` of ``doc``.
+
+def site_netlist(
+    site_id: int, revision: int, load: Callable[[], dict[str, Any]]
+) -> tuple[dict[str, Any], engine.Netlist]:
+    """The site document and its netlist at ``revision``, kept per thread for the last few
+    sites asked: a planner checks several procedures and plans of one site in a row, and the
+    netlist (with the engine's caches of the normal state) is the costly part. A new revision
+    is a new key, so an edit is never answered from the old record."""
+    kept: OrderedDict[tuple[int, int], tuple[dict[str, Any], engine.Netlist]] | None = getattr(
+        _local, "sites", None
+    )
+    if kept is None:
+        kept = _local.sites = OrderedDict()
+    key = (site_id, revision)
+    hit = kept.get(key)
+    if hit is None:
+        doc = load()
+        hit = kept[key] = (doc, engine.build_netlist(doc))
+        while len(kept) > _SITES_KEPT:
+            kept.popitem(last=False)
+    else:
+        kept.move_to_end(key)
+    return hit
+
+
+def procedure_check(
+    doc: dict[str, Any], procedure: str, *, netlist: engine.Netlist | None = None
+) -> dict[str, Any]:
+    """The verdict JSON of the stored procedure ``procedure`` of ``doc`` (``netlist``: the
+    site's netlist when the caller holds it already, see ``site_netlist``).
 
     Raises ``engine.ProcedureError`` for an unknown procedure or a step the engine cannot
     simulate (unknown switch, position, jumper, terminal, …)."""
-    netlist = engine.build_netlist(doc)
+    netlist = netlist or engine.build_netlist(doc)
     return engine.check_procedure(netlist, procedure).to_json(doc["site"]["code"])
 
 
 def draft_check(
-    doc: dict[str, Any], steps: list[dict[str, Any]], devices: list[str] | tuple[str, ...] = ()
+    doc: dict[str, Any],
+    steps: list[dict[str, Any]],
+    devices: list[str] | tuple[str, ...] = (),
+    *,
+    netlist: engine.Netlist | None = None,
 ) -> dict[str, Any]:
     """The verdict JSON of operations that are not stored (``procedure`` is null)."""
-    netlist = engine.build_netlist(doc)
+    netlist = netlist or engine.build_netlist(doc)
     return engine.check_operations(netlist, list(steps), tuple(devices)).to_json(
         doc["site"]["code"]
     )
 
 
-def isolation_plan(doc: dict[str, Any], device: str) -> dict[str, Any]:
+def isolation_plan(
+    doc: dict[str, Any], device: str, *, netlist: engine.Netlist | None = None
+) -> dict[str, Any]:
     """The isolation plan JSON of ``device``. Raises ``KeyError`` for an unknown device."""
-    netlist = engine.build_netlist(doc)
+    netlist = netlist or engine.build_netlist(doc)
     return engine.plan_isolation(netlist, device).to_json(doc["site"]["code"])
 
 

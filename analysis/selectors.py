@@ -237,8 +237,16 @@ def severity_or_worse(severity: str) -> list[str]:
 
 
 def findings_for_api() -> QuerySet:
-    """Every stored finding with ``stale`` (filters and the cursor order come from the API)."""
-    return with_stale(models.Finding.objects.all())
+    """Every stored finding with ``stale`` (filters and the cursor order come from the API).
+    Only the columns of the findings JSON are read (``numbers`` is for machines that read the
+    table itself)."""
+    columns = (
+        "id",
+        "site_id",
+        "revision",
+        *(f for f in FINDING_FIELDS if f not in {"site", "stale"}),
+    )
+    return with_stale(models.Finding.objects.only("site_code", *columns))
 
 
 def sites_overview() -> QuerySet:

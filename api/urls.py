@@ -1,6 +1,8 @@
 """API routes, versioned under /api/v1/. The OpenAPI schema is at /api/v1/schema/ and its
 documentation pages (served from the installed package, no CDN) at /api/v1/docs/."""
 
+import os
+
 from django.urls import path
 from drf_spectacular.views import SpectacularAPIView, SpectacularSwaggerView
 
@@ -45,3 +47,8 @@ urlpatterns = [
     path("findings/", views.FindingList.as_view(), name="finding-list"),
     path("tap-changes/", views.TapChangeList.as_view(), name="tap-change-list"),
 ]
+
+if os.environ.get("LOOPKEEP_BENCH_FLOOR") == "1":  # the benchmark's floor (api/bench.py)
+    from api.bench import FloorList
+
+    urlpatterns.append(path("bench-floor/", FloorList.as_view(), name="bench-floor"))

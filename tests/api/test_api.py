@@ -440,3 +440,18 @@ def test_what_if_that_does_not_apply_says_where(demo, viewer):
     bad_tap = viewer.post(url, {"in_use": ["X1", "X9"]}, format="json")
     assert bad_tap.status_code == 400
     assert bad_tap.json()["errors"][0]["field"].startswith("cts/")
+
+
+def test_a_kept_netlist_is_never_used_after_an_edit(demo, viewer, editor):
+    url = f"{V1}/sites/QFN/procedures/P-R132-OUT/check/"
+    first = viewer.post(url).json()
+    assert viewer.post(url).json() == first and first["safe"] is True
+    # Re-tap CB-132-A in the record only (the leads stay on X1/X5): the new tap X2-X4 is open,
+    # so the same procedure now starts from an open live secondary
+    tap = {"in_use": ["X2", "X4"], "move_leads": False, "reason": "record only"}
+    changed = editor.post(f"{V1}/sites/QFN/cts/CB-132-A/tap-change/", tap, format="json")
+    assert changed.status_code == 200
+    after = viewer.post(url).json()
+    assert after["safe"] is False
+    assert after["first_danger"]["code"] == "open_secondary"
+    assert after["first_danger"]["ct"] == "CB-132-A"
