@@ -269,6 +269,7 @@ class FindingList(generics.ListAPIView):
         # The hottest list of the API: rows go out through the selectors' findings JSON (the
         # same function as ``findings --json``), a plain dict per row, not a DRF field walk.
         page = self.paginate_queryset(self.filter_queryset(self.get_queryset()))
+        assert page is not None  # the list is always paginated (ResultPagination)
         return self.get_paginated_response([selectors.finding_json(row) for row in page])
 
 
