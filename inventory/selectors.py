@@ -94,8 +94,9 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
         .order_by("changed_at", "id")
         .values_list("ct_id", "from_tap", "to_tap", "changed_at", "changed_by", "reason")
     ):
-        at = changed_at.isoformat().replace("+00:00", "Z")
-        tap_changes[ct_id].append(rec.TapChange(tuple(from_tap), tuple(to_tap), at, by, reason))
+        tap_changes[ct_id].append(
+            rec.TapChange(tuple(from_tap), tuple(to_tap), changed_at, by, reason)
+        )
 
     for row in (
         models.CurrentTransformer.objects.filter(site_id__in=ids)

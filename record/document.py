@@ -13,6 +13,7 @@ from __future__ import annotations
 
 from collections.abc import Iterable, Mapping
 from dataclasses import replace
+from datetime import UTC, datetime
 from typing import Any
 
 from record.model import (
@@ -77,7 +78,7 @@ def _items(doc: Mapping[str, Any], section: str) -> Iterable[tuple[int, Any]]:
     return enumerate(doc.get(section) or ())
 
 
-def _ct(c: Mapping[str, Any]) -> CT:
+def _ct(c: Mapping[str, Any], where: str) -> CT:
     terminals = c.get("terminals") or {}
     excitation = c.get("excitation")
     secondary = c.get("secondary_a")
@@ -101,13 +102,28 @@ def _ct(c: Mapping[str, Any]) -> CT:
             TapChange(
                 from_tap=_strings(e.get("from")),
                 to_tap=_strings(e.get("to")),
-                at=str(e.get("at")),
+                at=_utc(e.get("at"), f"{where}/tap_changes/{n}/at"),
                 by=str(e.get("by") or ""),
                 reason=str(e.get("reason") or ""),
             )
-            for e in c.get("tap_changes") or ()
+            for n, e in enumerate(c.get("tap_changes") or ())
         ),
     )
+
+
+def _utc(value: Any, where: str) -> datetime:
+    """An ISO 8601 date-time as an aware UTC datetime (a time without an offset is UTC, as the
+    importer stores it)."""
+    try:
+        at = datetime.fromisoformat(str(value))
+    except ValueError as err:
+        raise RecordError(f"{where}: {value!r} is not an ISO 8601 date-time") from err
+    return at.replace(tzinfo=UTC) if at.tzinfo is None else at.astimezone(UTC)
+
+
+def iso_utc(at: datetime) -> str:
+    """A date-time as the site file writes it: ISO 8601 in UTC with ``Z``."""
+    return at.astimezone(UTC).isoformat().replace("+00:00", "Z")
 
 
 def _input(spec: Mapping[str, Any], m: int) -> DeviceInput:
@@ -232,7 +248,7 @@ def record_from_document(doc: Mapping[str, Any]) -> SiteRecord:
             TerminalBlock(code=str(t["code"]), description=str(t.get("description") or ""))
             for t in doc.get("terminal_blocks") or ()
         ),
-        cts=tuple(_ct(c) for c in doc.get("cts") or ()),
+        cts=tuple(_ct(c, f"/cts/{k}") for k, c in _items(doc, "cts")),
         devices=tuple(_device(d) for d in doc.get("devices") or ()),
         wires=tuple(_wire(w) for w in doc.get("wires") or ()),
         links=tuple(_link(pair, k) for k, pair in _items(doc, "links")),
@@ -278,7 +294,11 @@ def _ct_json(ct: CT) -> dict[str, Any]:
     if ct.tap_changes:
         changes = []
         for e in ct.tap_changes:
-            event: dict[str, Any] = {"from": list(e.from_tap), "to": list(e.to_tap), "at": e.at}
+            event: dict[str, Any] = {
+                "from": list(e.from_tap),
+                "to": list(e.to_tap),
+                "at": iso_utc(e.at),
+            }
             if e.by:
                 event["by"] = e.by
             if e.reason:

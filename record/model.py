@@ -16,6 +16,7 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from dataclasses import dataclass
+from datetime import datetime
 
 from record.operations import Operation
 
@@ -69,12 +70,11 @@ class TerminalBlock:
 
 @dataclass(frozen=True, slots=True)
 class TapChange:
-    """One change of a CT's terminals in use; ``at`` is the ISO 8601 time as the file writes
-    it (UTC with ``Z``)."""
+    """One change of a CT's terminals in use, at ``at`` (timezone-aware, UTC)."""
 
     from_tap: tuple[str, ...]
     to_tap: tuple[str, ...]
-    at: str
+    at: datetime
     by: str = ""
     reason: str = ""
 

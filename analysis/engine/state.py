@@ -47,6 +47,7 @@ from analysis.engine.windings import (
     stamp,
     winding_arrays,
 )
+from record.operations import operation_key
 from siterules.procedure_refs import Problem, RecordNames, default_jumper_id, procedure_problems
 
 # Thresholds of the findings table (design.md), as fractions of the largest CT current of the
@@ -141,22 +142,9 @@ def _between(nl: Netlist, a: str, b: str) -> tuple[list[int], list[int]]:
 
 
 def op_kind(op: dict[str, Any]) -> str:
-    """The operation an op dict names (its key), or "" for none of design.md's."""
-    for key in (
-        "set",
-        "add_jumper",
-        "remove_jumper",
-        "lift",
-        "land",
-        "remove_device",
-        "insert_device",
-        "deenergize",
-        "energize",
-        "note",
-    ):
-        if key in op:
-            return key
-    return ""
+    """The operation an op dict names (its key), or "" for none of design.md's (the record's
+    vocabulary, ``record.operations``)."""
+    return operation_key(op)
 
 
 def validate_op(nl: Netlist, op: Any, step: int) -> None:
