@@ -17,6 +17,9 @@ from django.db.models.functions import Abs
 import record as rec
 from inventory import models
 
+# The site file's number form (integral floats as integers), used by the API too.
+num = rec.document.num
+
 SITE_FORMAT = rec.model.SITE_FORMAT
 _SECTIONS = (
     "buses",
