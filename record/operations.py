@@ -244,8 +244,10 @@ def _pair(value: Any, what: str) -> tuple[str, str]:
 def operation_from_json(op: Any) -> Operation:
     """The typed operation of a step object (``{"set": "TS-1/1", "to": "open"}``).
 
-    Raises ``OperationError`` for an object that names no operation or more than one, that
-    carries keys the operation does not have, or whose values have the wrong shape.
+    Raises ``OperationError`` for an object that names no operation or more than one, or whose
+    values have the wrong shape. Other keys (a plan step's ``why`` and ``readings``) are not
+    part of the operation and are left out; the site file's schema refuses them in a stored
+    procedure.
     """
     if not isinstance(op, Mapping):
         raise OperationError(f"an operation is an object, got {op!r}")
@@ -255,9 +257,6 @@ def operation_from_json(op: Any) -> Operation:
             f"an operation names exactly one of {', '.join(OPERATION_KEYS)}; got {sorted(op)!r}"
         )
     key = keys[0]
-    extra = sorted(set(op) - {key, *OPERATION_COMPANIONS.get(key, ())})
-    if extra:
-        raise OperationError(f"{key}: unexpected {', '.join(map(repr, extra))}")
     value = op[key]
     if key == "set":
         return SetSwitch(switch=_text(value, "set"), to=_text(op.get("to"), "set: to"))
