@@ -1,14 +1,16 @@
-"""From site documents to result rows: the one place where the circuit engine and the ratings
-meet. Plain Python (no ORM); the jobs read documents with ``inventory.selectors.site_documents``
-and write what this returns.
+"""From site records to result rows: the one place where the circuit engine and the ratings
+meet. Plain Python (no ORM); the jobs read records with ``inventory.selectors.site_records``
+and write what this returns. A ``loopkeep.site/1`` dict is accepted wherever a record is
+(converted once with ``record.record_from_document``).
 """
 
 from __future__ import annotations
 
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
+import record as rec
 from analysis import engine
 from analysis.engine import ratings
 from analysis.engine.findings import PROCEDURE_UNCHECKED, SEVERITY, Finding
@@ -70,31 +72,36 @@ def devices_fed_by(feeds: dict[str, set[str]]) -> dict[str, list[str]]:
     return fed
 
 
-def ct_report(doc: dict, ct_code: str) -> dict[str, Any]:
-    """The CT report JSON of design.md for one CT of a site document (burdens from the nodal
-    solve of the site's circuits)."""
-    netlist = engine.build_netlist(doc)
+Source = rec.SiteRecord | Mapping[str, Any]
+
+
+def ct_report(source: Source, ct_code: str) -> dict[str, Any]:
+    """The CT report JSON of design.md for one CT of a site (burdens from the nodal solve of
+    the site's circuits)."""
+    record = rec.as_record(source)
+    netlist = engine.build_netlist(record)
     if ct_code not in netlist.cts:
-        raise KeyError(f"no CT {ct_code!r} at site {doc['site']['code']}")
+        raise KeyError(f"no CT {ct_code!r} at site {record.site.code}")
     burdens = engine.ct_burdens(netlist)
     fed = devices_fed_by(engine.input_feeds(netlist))
     b = burdens[ct_code]
     return ratings.build_ct_report(
-        doc,
+        record,
         ct_code,
         burdens={"ground_fault": b.ground_fault, "phase_fault": b.phase_fault},
         devices_fed=fed.get(ct_code, []),
     )
 
 
-def compute_site(doc: dict) -> SiteResults:
+def compute_site(source: Source) -> SiteResults:
     """Burdens, ratings, static and normal-state findings, circuits and procedure verdicts of
-    one site document."""
+    one site."""
     out = SiteResults()
-    netlist = engine.build_netlist(doc)
+    record = rec.as_record(source)
+    netlist = engine.build_netlist(record)
     analysis = engine.analyze_site(netlist)
     burdens = analysis.burden_map()
-    rated = ratings.site_ratings(doc, burdens=burdens, feeds=analysis.feeds)
+    rated = ratings.site_ratings(record, burdens=burdens, feeds=analysis.feeds)
     for circuit in analysis.circuits:
         devices = sorted({d for d, _ in circuit.device_inputs})
         out.circuits.append(
@@ -137,7 +144,7 @@ def compute_site(doc: dict) -> SiteResults:
         out.findings.append(_finding_row(f))
     for code, error in analysis.procedure_errors.items():
         out.findings.append(unchecked_procedure_row(code, error))
-    site_code = doc["site"]["code"]
+    site_code = record.site.code
     for code, verdict in analysis.verdicts.items():
         body = verdict if isinstance(verdict, dict) else verdict.to_json(site_code)
         out.verdicts.append(
@@ -156,31 +163,34 @@ def compute_site(doc: dict) -> SiteResults:
     return out
 
 
-def compute_sites(docs: dict[int, dict] | Iterable[tuple[int, dict]]) -> dict[int, SiteResults]:
-    """``compute_site`` for many documents, keyed as given."""
-    items = docs.items() if isinstance(docs, dict) else docs
-    return {key: compute_site(doc) for key, doc in items}
+def compute_sites(
+    sites: Mapping[int, Source] | Iterable[tuple[int, Source]],
+) -> dict[int, SiteResults]:
+    """``compute_site`` for many sites (records or documents), keyed as given."""
+    items = sites.items() if isinstance(sites, Mapping) else sites
+    return {key: compute_site(site) for key, site in items}
 
 
-def ct_plots(doc: dict, ct_code: str, fmt: str = "png") -> dict[str, bytes]:
+def ct_plots(source: Source, ct_code: str, fmt: str = "png") -> dict[str, bytes]:
     """The CT's plots as image bytes: ``excitation`` (when it has a curve) and ``burden``."""
     from analysis import plots
 
-    netlist = engine.build_netlist(doc)
+    record = rec.as_record(source)
+    netlist = engine.build_netlist(record)
     if ct_code not in netlist.cts:
-        raise KeyError(f"no CT {ct_code!r} at site {doc['site']['code']}")
+        raise KeyError(f"no CT {ct_code!r} at site {record.site.code}")
     b = engine.ct_burdens(netlist)[ct_code]
     burdens = {"ground_fault": b.ground_fault, "phase_fault": b.phase_fault}
-    report = ratings.build_ct_report(doc, ct_code, burdens=burdens, devices_fed=[])
+    report = ratings.build_ct_report(record, ct_code, burdens=burdens, devices_fed=[])
     out: dict[str, bytes] = {}
-    inputs = ratings.excitation_plot_inputs(doc, ct_code, burdens=burdens)
+    inputs = ratings.excitation_plot_inputs(record, ct_code, burdens=burdens)
     if inputs is not None:
         out["excitation"] = plots.excitation_plot(inputs, fmt)
     out["burden"] = plots.burden_plot(
         [(_printable(e.label), e.kind, e.z_ohm) for e in b.elements],
         report["winding_ohm_at_tap"],
         fmt,
-        title=_printable(f"{doc['site']['code']} {ct_code}: burden by element (ground-fault case)"),
+        title=_printable(f"{record.site.code} {ct_code}: burden by element (ground-fault case)"),
     )
     return out
 

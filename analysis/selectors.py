@@ -29,7 +29,8 @@ from analysis import models
 from analysis.engine.findings import SEVERITY_ORDER
 from inventory import models as inv
 from inventory.models import Site
-from inventory.selectors import site_documents
+from inventory.selectors import site_records
+from record import SiteRecord
 
 FINDING_FIELDS = (
     "site",
@@ -188,13 +189,13 @@ def circuits_sharing_ct(*, site_id: int, ct: str) -> QuerySet:
 
 def chunk_inputs(
     site_ids: Iterable[int], *, skip_current: bool = False
-) -> tuple[dict[int, tuple[str, int]], dict[int, dict]]:
+) -> tuple[dict[int, tuple[str, int]], dict[int, SiteRecord]]:
     """What a recompute chunk reads: ``{site id: (code, revision)}`` of the sites that still
-    exist, and the site documents of those to compute, with a constant number of queries
+    exist, and the site records of those to compute, with a constant number of queries
     whatever the number of sites. With ``skip_current`` a site whose stored results are at its
-    current revision gets no document (nothing to do).
+    current revision gets no record (nothing to do).
 
-    The revisions are read *before* the documents: on READ COMMITTED an edit can commit in
+    The revisions are read *before* the records: on READ COMMITTED an edit can commit in
     between, and then the results are labelled with an older revision than their inputs, so
     they look stale and get recomputed. The other order could label old inputs as current.
     """
@@ -212,8 +213,8 @@ def chunk_inputs(
         heads[pk] = (code, revision)
         if not (skip_current and computed is not None and computed >= revision):
             todo.append(pk)
-    docs = site_documents(todo) if todo else {}
-    return heads, docs
+    records = site_records(todo) if todo else {}
+    return heads, records
 
 
 def computed_revisions(site_ids: Iterable[int]) -> dict[int, int]:

@@ -36,6 +36,7 @@ from analysis.models import RunKind, RunStatus
 from analysis.selectors import chunk_inputs
 from inventory.changes import changes_done, changes_due, changes_give_up, changes_sent
 from inventory.models import Site, SiteChange
+from record import SiteRecord
 
 log = logging.getLogger(__name__)
 
@@ -176,27 +177,27 @@ class ChunkOutcome:
     counted: bool = False
 
 
-def _compute(docs: dict[int, dict]) -> tuple[dict[int, Any], dict[int, str]]:
+def _compute(records: Mapping[int, SiteRecord]) -> tuple[dict[int, Any], dict[int, str]]:
     """The engine on a chunk, site by site, so one site the engine cannot handle costs only
     itself: its old results stay (and show as stale), the others are written."""
     from analysis.compute import compute_sites
 
     results: dict[int, Any] = {}
     failed: dict[int, str] = {}
-    for sid, doc in docs.items():
+    for sid, record in records.items():
         try:
-            results.update(compute_sites({sid: doc}))
+            results.update(compute_sites({sid: record}))
         except Exception:
             log.exception("recompute of site %s failed", sid)
-            failed[sid] = _error_text(doc)
+            failed[sid] = _error_text(record)
     return results, failed
 
 
-def _error_text(doc: dict) -> str:
+def _error_text(record: SiteRecord) -> str:
     import sys
 
     exc = sys.exc_info()[1]
-    return f"site {doc['site']['code']}: {type(exc).__name__}: {exc}"
+    return f"site {record.site.code}: {type(exc).__name__}: {exc}"
 
 
 def chunk_recompute(
@@ -207,11 +208,11 @@ def chunk_recompute(
     rows and counts the chunk's sites once."""
     out = ChunkOutcome()
     t0 = time.perf_counter()
-    heads, docs = chunk_inputs(site_ids, skip_current=not force)
-    out.skipped = sorted(set(heads) - set(docs))
+    heads, records = chunk_inputs(site_ids, skip_current=not force)
+    out.skipped = sorted(set(heads) - set(records))
     out.read_s = time.perf_counter() - t0
     t1 = time.perf_counter()
-    results, out.failed = _compute(docs) if docs else ({}, {})
+    results, out.failed = _compute(records) if records else ({}, {})
     out.compute_s = time.perf_counter() - t1
     t2 = time.perf_counter()
     with transaction.atomic():

@@ -6,18 +6,17 @@ from __future__ import annotations
 import json
 from typing import Any
 
+from record.operations import OperationError, operation_from_json
+
 
 def op_text(op: dict[str, Any] | None) -> str:
     """One operation as a planner writes it: ``set TS-101/1 to open``."""
     if op is None:
         return "(initial state)"
-    if "set" in op:
-        return f"set {op['set']} to {op['to']}"
-    if "add_jumper" in op:
-        a, b = op["add_jumper"]
-        return f"add jumper {op.get('id', '')} {a} – {b}".replace("  ", " ")
-    if "note" in op:
-        return f"note: {op['note']}"
+    try:
+        return operation_from_json(op).text
+    except OperationError:
+        pass  # not one of the operations: say what it holds
     (name, value), *_ = op.items()
     if isinstance(value, list):
         value = " – ".join(value)

@@ -1,8 +1,8 @@
 """Reads of the physical record.
 
-``site_documents`` turns any number of stored sites into site-file documents (``loopkeep.site/1``)
-with a constant number of queries (one per table, whatever the number of sites): the export, the
-engine's input and the fleet recompute all read through it.
+``site_records`` reads any number of stored sites as typed records (``record.SiteRecord``) with
+a constant number of queries (one per table, whatever the number of sites): the engine's input
+and the fleet recompute read through it, and the export (``site_documents``) serialises it.
 """
 
 from __future__ import annotations
@@ -14,166 +14,192 @@ from typing import Any
 from django.db.models import Model, OuterRef, Prefetch, QuerySet, Subquery
 from django.db.models.functions import Abs
 
+import record as rec
 from inventory import models
 
-SITE_FORMAT = "loopkeep.site/1"
+# The site file's number form (integral floats as integers), used by the API too.
+num = rec.document.num
 
-
-def num(value: float | int | None) -> float | int | None:
-    """A stored float as the site file writes it: integral values without a fractional part,
-    so that export → import → export is byte-identical."""
-    if value is None or isinstance(value, bool):
-        return value
-    if isinstance(value, float) and value.is_integer() and abs(value) < 1e15:
-        return int(value)
-    return value
-
-
-def _put(target: dict[str, Any], key: str, value: Any, *, skip: Any = None) -> None:
-    if value is None or value == skip:
-        return
-    target[key] = num(value) if isinstance(value, float | int) else value
+SITE_FORMAT = rec.model.SITE_FORMAT
+_SECTIONS = (
+    "buses",
+    "equipment",
+    "terminal_blocks",
+    "cts",
+    "devices",
+    "wires",
+    "links",
+    "grounds",
+    "switches",
+    "procedures",
+)
 
 
 def site_by_code(code: str) -> models.Site:
     return models.Site.objects.get(code=code)
 
 
-def site_documents(site_ids: Iterable[int]) -> dict[int, dict]:
-    """The site documents of the given sites, keyed by site id, in the canonical order the
-    export writes (codes sorted; wires, links and contacts in the order they were recorded).
-    One query per table, whatever the number of sites."""
-    site_rows = list(models.Site.objects.filter(pk__in=list(site_ids)).order_by("code").values())
-    ids = [row["id"] for row in site_rows]
-    docs: dict[int, dict] = {}
-    for row in site_rows:
-        site: dict[str, Any] = {
-            "code": row["code"],
-            "name": row["name"],
-            "design_temp_c": num(row["design_temp_c"]),
-        }
-        _put(site, "notes", row["notes"], skip="")
-        docs[row["id"]] = {
-            "format": SITE_FORMAT,
-            "site": site,
-            "buses": [],
-            "equipment": [],
-            "terminal_blocks": [],
-            "cts": [],
-            "devices": [],
-            "wires": [],
-            "links": [],
-            "grounds": [],
-            "switches": [],
-            "procedures": [],
-        }
+def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
+    """The typed records of the given sites, keyed by site id, in the canonical order the export
+    writes (codes sorted; wires, links and contacts in the order they were recorded). One query
+    per table, whatever the number of sites; rows are read as tuples (dict rows cost more than
+    the query)."""
+    site_rows = list(
+        models.Site.objects.filter(pk__in=list(site_ids))
+        .order_by("code")
+        .values_list("id", "code", "name", "design_temp_c", "notes")
+    )
+    ids = [row[0] for row in site_rows]
+    sections: dict[int, dict[str, list[Any]]] = {sid: {k: [] for k in _SECTIONS} for sid in ids}
 
     labels: dict[int, str] = {}
-    ct_terminals: dict[int, list[dict]] = defaultdict(list)
+    ct_terminals: dict[int, list[tuple[float, str, str]]] = defaultdict(list)
     for tid, owner, name, ct_id, position_a, tap_role in models.Terminal.objects.filter(
         site_id__in=ids
     ).values_list("id", "owner", "name", "ct_id", "position_a", "tap_role"):
         labels[tid] = f"{owner}:{name}"
         if ct_id is not None:
-            ct_terminals[ct_id].append(
-                {"name": name, "position_a": position_a, "tap_role": tap_role}
-            )
-    label = labels.__getitem__
+            ct_terminals[ct_id].append((position_a, name, tap_role))
 
     bus_codes: dict[int, str] = {}
-    for bus in models.Bus.objects.filter(site_id__in=ids).order_by("code").values():
-        bus_codes[bus["id"]] = bus["code"]
-        entry: dict[str, Any] = {"code": bus["code"]}
-        for key in ("kv", "three_phase_fault_ka", "ground_fault_ka", "x_over_r"):
-            _put(entry, key, bus[key])
-        docs[bus["site_id"]]["buses"].append(entry)
+    for bid, site_id, code, kv, three, ground, xr in (
+        models.Bus.objects.filter(site_id__in=ids)
+        .order_by("code")
+        .values_list(
+            "id", "site_id", "code", "kv", "three_phase_fault_ka", "ground_fault_ka", "x_over_r"
+        )
+    ):
+        bus_codes[bid] = code
+        sections[site_id]["buses"].append(rec.Bus(code, kv, three, ground, xr))
 
     equipment_codes: dict[int, str] = {}
-    for eq in models.Equipment.objects.filter(site_id__in=ids).order_by("code").values():
-        equipment_codes[eq["id"]] = eq["code"]
-        entry = {"code": eq["code"], "kind": eq["kind"]}
-        if eq["bus_id"]:
-            entry["bus"] = bus_codes[eq["bus_id"]]
-        entry["in_service"] = eq["in_service"]
-        _put(entry, "max_load_a", eq["max_load_a"])
-        docs[eq["site_id"]]["equipment"].append(entry)
-
-    for tb in models.TerminalBlock.objects.filter(site_id__in=ids).order_by("code").values():
-        entry = {"code": tb["code"]}
-        _put(entry, "description", tb["description"], skip="")
-        docs[tb["site_id"]]["terminal_blocks"].append(entry)
-
-    tap_changes: dict[int, list[dict]] = defaultdict(list)
-    for change in (
-        models.TapChange.objects.filter(ct__site_id__in=ids).order_by("changed_at", "id").values()
+    for eid, site_id, code, kind, bus_id, in_service, max_load_a in (
+        models.Equipment.objects.filter(site_id__in=ids)
+        .order_by("code")
+        .values_list("id", "site_id", "code", "kind", "bus_id", "in_service", "max_load_a")
     ):
-        event: dict[str, Any] = {
-            "from": change["from_tap"],
-            "to": change["to_tap"],
-            "at": change["changed_at"].isoformat().replace("+00:00", "Z"),
-        }
-        _put(event, "by", change["changed_by"], skip="")
-        _put(event, "reason", change["reason"], skip="")
-        tap_changes[change["ct_id"]].append(event)
-
-    for ct in models.CurrentTransformer.objects.filter(site_id__in=ids).order_by("code").values():
-        own = sorted(ct_terminals[ct["id"]], key=lambda t: (t["position_a"], t["name"]))
-        roles = {t["tap_role"]: t["name"] for t in own if t["tap_role"]}
-        entry = {
-            "code": ct["code"],
-            "equipment": equipment_codes[ct["equipment_id"]],
-            "phase": ct["phase"],
-        }
-        _put(entry, "set", ct["set_name"], skip="")
-        entry["secondary_a"] = ct["secondary_a"]
-        entry["terminals"] = {t["name"]: num(t["position_a"]) for t in own}
-        entry["in_use"] = [roles.get("first"), roles.get("second")]
-        _put(entry, "accuracy", ct["accuracy"], skip="")
-        _put(entry, "rated_burden_va", ct["rated_burden_va"])
-        _put(entry, "knee_v", ct["knee_v"])
-        _put(entry, "winding_ohm", ct["winding_ohm"])
-        _put(entry, "rating_factor", ct["rating_factor"])
-        if ct["excitation"] is not None:
-            entry["excitation"] = [[num(a), num(v)] for a, v in ct["excitation"]]
-        _put(entry, "nameplate", ct["nameplate"], skip="")
-        if tap_changes.get(ct["id"]):
-            entry["tap_changes"] = tap_changes[ct["id"]]
-        docs[ct["site_id"]]["cts"].append(entry)
-
-    inputs: dict[int, list[dict]] = defaultdict(list)
-    for inp in models.DeviceInput.objects.filter(device__site_id__in=ids).order_by("id").values():
-        entry = {
-            "name": inp["name"],
-            "from": label(inp["from_terminal_id"]),
-            "to": label(inp["to_terminal_id"]),
-            "rated_a": inp["rated_a"],
-        }
-        if inp["burden_va"] is not None:
-            entry["burden_va"] = num(inp["burden_va"])
-            entry["pf"] = num(inp["pf"])
-        else:
-            entry["burden_ohm"] = [num(inp["burden_r_ohm"]), num(inp["burden_x_ohm"])]
-        inputs[inp["device_id"]].append(entry)
-    outputs: dict[int, list[dict]] = defaultdict(list)
-    for out in models.DeviceOutput.objects.filter(device__site_id__in=ids).order_by("id").values():
-        outputs[out["device_id"]].append(
-            {
-                "name": out["name"],
-                "terminal": label(out["terminal_id"]),
-                "target": label(out["target_id"]),
-            }
+        equipment_codes[eid] = code
+        bus = bus_codes[bus_id] if bus_id else None
+        sections[site_id]["equipment"].append(
+            rec.Equipment(code, kind, bus, in_service, max_load_a)
         )
-    for dev in models.Device.objects.filter(site_id__in=ids).order_by("code").values():
-        entry = {"code": dev["code"], "kind": dev["kind"]}
-        if dev["functions"]:
-            entry["functions"] = dev["functions"]
-        _put(entry, "ratio_setting", dev["ratio_setting"], skip="")
-        entry["inputs"] = inputs.get(dev["id"], [])
-        if outputs.get(dev["id"]):
-            entry["outputs"] = outputs[dev["id"]]
-        docs[dev["site_id"]]["devices"].append(entry)
 
-    # The largest tables of a site are read as tuples: dict rows cost more than the query.
+    for site_id, code, description in (
+        models.TerminalBlock.objects.filter(site_id__in=ids)
+        .order_by("code")
+        .values_list("site_id", "code", "description")
+    ):
+        sections[site_id]["terminal_blocks"].append(rec.TerminalBlock(code, description))
+
+    tap_changes: dict[int, list[rec.TapChange]] = defaultdict(list)
+    for ct_id, from_tap, to_tap, changed_at, by, reason in (
+        models.TapChange.objects.filter(ct__site_id__in=ids)
+        .order_by("changed_at", "id")
+        .values_list("ct_id", "from_tap", "to_tap", "changed_at", "changed_by", "reason")
+    ):
+        tap_changes[ct_id].append(
+            rec.TapChange(tuple(from_tap), tuple(to_tap), changed_at, by, reason)
+        )
+
+    for row in (
+        models.CurrentTransformer.objects.filter(site_id__in=ids)
+        .order_by("code")
+        .values_list(
+            "id",
+            "site_id",
+            "code",
+            "equipment_id",
+            "phase",
+            "set_name",
+            "secondary_a",
+            "accuracy",
+            "rated_burden_va",
+            "knee_v",
+            "winding_ohm",
+            "rating_factor",
+            "excitation",
+            "nameplate",
+        )
+    ):
+        (ct_id, site_id, code, eq_id, phase, set_name, secondary_a, accuracy) = row[:8]
+        (rated_burden_va, knee_v, winding_ohm, rating_factor, excitation, nameplate) = row[8:]
+        own = sorted(ct_terminals.get(ct_id, ()))
+        roles = {role: name for _, name, role in own if role}
+        sections[site_id]["cts"].append(
+            rec.CT(
+                code=code,
+                equipment=equipment_codes[eq_id],
+                phase=phase,
+                secondary_a=float(secondary_a),
+                terminals=tuple((name, position) for position, name, _ in own),
+                in_use=tuple(roles[r] for r in ("first", "second") if r in roles),
+                set_name=set_name or None,
+                accuracy=accuracy or None,
+                rated_burden_va=rated_burden_va,
+                knee_v=knee_v,
+                winding_ohm=winding_ohm,
+                rating_factor=rating_factor,
+                excitation=(
+                    None
+                    if excitation is None
+                    else tuple((float(a), float(v)) for a, v in excitation)
+                ),
+                nameplate=nameplate,
+                tap_changes=tuple(tap_changes.get(ct_id, ())),
+            )
+        )
+
+    inputs: dict[int, list[rec.DeviceInput]] = defaultdict(list)
+    for device_id, name, a, b, rated_a, burden_va, pf, r_ohm, x_ohm in (
+        models.DeviceInput.objects.filter(device__site_id__in=ids)
+        .order_by("id")
+        .values_list(
+            "device_id",
+            "name",
+            "from_terminal_id",
+            "to_terminal_id",
+            "rated_a",
+            "burden_va",
+            "pf",
+            "burden_r_ohm",
+            "burden_x_ohm",
+        )
+    ):
+        inputs[device_id].append(
+            rec.DeviceInput(
+                name=name,
+                from_terminal=labels[a],
+                to_terminal=labels[b],
+                rated_a=float(rated_a),
+                burden_va=burden_va,
+                pf=pf,
+                burden_ohm=None if burden_va is not None else (r_ohm, x_ohm),
+            )
+        )
+    outputs: dict[int, list[rec.DeviceOutput]] = defaultdict(list)
+    for device_id, name, terminal, target in (
+        models.DeviceOutput.objects.filter(device__site_id__in=ids)
+        .order_by("id")
+        .values_list("device_id", "name", "terminal_id", "target_id")
+    ):
+        outputs[device_id].append(rec.DeviceOutput(name, labels[terminal], labels[target]))
+    for did, site_id, code, kind, functions, ratio_setting in (
+        models.Device.objects.filter(site_id__in=ids)
+        .order_by("code")
+        .values_list("id", "site_id", "code", "kind", "functions", "ratio_setting")
+    ):
+        sections[site_id]["devices"].append(
+            rec.Device(
+                code=code,
+                kind=kind,
+                functions=tuple(functions or ()),
+                ratio_setting=ratio_setting or None,
+                inputs=tuple(inputs.get(did, ())),
+                outputs=tuple(outputs.get(did, ())),
+            )
+        )
+
+    wire = rec.Wire
     for site_id, a, b, size, material, length_m, length_ft, r_ohm in (
         models.Wire.objects.filter(site_id__in=ids)
         .order_by("id")
@@ -188,71 +214,97 @@ def site_documents(site_ids: Iterable[int]) -> dict[int, dict]:
             "r_ohm",
         )
     ):
-        entry = {"from": labels[a], "to": labels[b]}
-        if size:
-            entry["size"] = size
-        if material != "cu":
-            entry["material"] = material
-        if length_m is not None:
-            entry["length_m"] = num(length_m)
-        if length_ft is not None:
-            entry["length_ft"] = num(length_ft)
-        if r_ohm is not None:
-            entry["r_ohm"] = num(r_ohm)
-        docs[site_id]["wires"].append(entry)
+        sections[site_id]["wires"].append(
+            wire(labels[a], labels[b], size, material, length_m, length_ft, r_ohm)
+        )
 
-    for link in models.Link.objects.filter(site_id__in=ids).order_by("id").values():
-        docs[link["site_id"]]["links"].append([label(link["a_id"]), label(link["b_id"])])
-    for ground in models.Ground.objects.filter(site_id__in=ids).order_by("id").values():
-        docs[ground["site_id"]]["grounds"].append(label(ground["terminal_id"]))
+    for site_id, a, b in (
+        models.Link.objects.filter(site_id__in=ids)
+        .order_by("id")
+        .values_list("site_id", "a_id", "b_id")
+    ):
+        sections[site_id]["links"].append(rec.Link(labels[a], labels[b]))
+    for site_id, terminal in (
+        models.Ground.objects.filter(site_id__in=ids)
+        .order_by("id")
+        .values_list("site_id", "terminal_id")
+    ):
+        sections[site_id]["grounds"].append(labels[terminal])
 
-    positions: dict[int, list[dict]] = defaultdict(list)
+    positions: dict[int, list[tuple[str, bool]]] = defaultdict(list)
     for switch_id, name, is_normal in (
         models.SwitchPosition.objects.filter(switch__site_id__in=ids)
         .order_by("switch_id", "order")
         .values_list("switch_id", "name", "is_normal")
     ):
-        positions[switch_id].append({"name": name, "is_normal": is_normal})
-    contacts: dict[int, list[dict]] = defaultdict(list)
+        positions[switch_id].append((name, is_normal))
+    contacts: dict[int, list[rec.Contact]] = defaultdict(list)
     for switch_id, a, b, closed_in in (
         models.SwitchContact.objects.filter(switch__site_id__in=ids)
         .order_by("id")
         .values_list("switch_id", "a_id", "b_id", "closed_in")
     ):
-        contacts[switch_id].append({"between": [labels[a], labels[b]], "closed_in": closed_in})
-    for sw in models.Switch.objects.filter(site_id__in=ids).order_by("code").values():
-        own_positions = positions.get(sw["id"], [])
-        normal = next((p["name"] for p in own_positions if p["is_normal"]), None)
-        docs[sw["site_id"]]["switches"].append(
-            {
-                "code": sw["code"],
-                "kind": sw["kind"],
-                "positions": [p["name"] for p in own_positions],
-                "normal": normal,
-                "transition": sw["transition"],
-                "contacts": contacts.get(sw["id"], []),
-            }
+        contacts[switch_id].append(rec.Contact((labels[a], labels[b]), tuple(closed_in)))
+    for sw_id, site_id, code, kind, transition in (
+        models.Switch.objects.filter(site_id__in=ids)
+        .order_by("code")
+        .values_list("id", "site_id", "code", "kind", "transition")
+    ):
+        own_positions = positions.get(sw_id, [])
+        sections[site_id]["switches"].append(
+            rec.Switch(
+                code=code,
+                kind=kind,
+                positions=tuple(name for name, _ in own_positions),
+                normal=next((name for name, normal in own_positions if normal), None),
+                transition=transition,
+                contacts=tuple(contacts.get(sw_id, ())),
+            )
         )
 
-    steps: dict[int, list[dict]] = defaultdict(list)
-    for step in (
+    steps: dict[int, list[rec.Operation]] = defaultdict(list)
+    for procedure_id, order, op in (
         models.ProcedureStep.objects.filter(procedure__site_id__in=ids)
         .order_by("procedure_id", "order")
-        .values("procedure_id", "op")
+        .values_list("procedure_id", "order", "op")
     ):
-        steps[step["procedure_id"]].append(step["op"])
-    for proc in models.Procedure.objects.filter(site_id__in=ids).order_by("code").values():
-        entry = {"code": proc["code"], "title": proc["title"]}
-        _put(entry, "author", proc["author"], skip="")
-        entry["devices"] = proc["devices"]
-        entry["steps"] = steps.get(proc["id"], [])
-        docs[proc["site_id"]]["procedures"].append(entry)
+        try:
+            steps[procedure_id].append(rec.operation_from_json(op))
+        except rec.OperationError as err:
+            raise rec.RecordError(f"procedure step {order} (id {procedure_id}): {err}") from err
+    for pid, site_id, code, title, author, devices in (
+        models.Procedure.objects.filter(site_id__in=ids)
+        .order_by("code")
+        .values_list("id", "site_id", "code", "title", "author", "devices")
+    ):
+        sections[site_id]["procedures"].append(
+            rec.Procedure(
+                code=code,
+                title=title,
+                steps=tuple(steps.get(pid, ())),
+                author=author,
+                devices=tuple(devices or ()),
+            )
+        )
 
-    for doc in docs.values():
-        for key in ("terminal_blocks", "links", "grounds", "procedures"):
-            if not doc[key]:
-                del doc[key]
-    return docs
+    return {
+        sid: rec.SiteRecord(
+            site=rec.Site(code, name, design_temp_c, notes),
+            **{k: tuple(v) for k, v in sections[sid].items()},
+        )
+        for sid, code, name, design_temp_c, notes in site_rows
+    }
+
+
+def site_record(site: models.Site) -> rec.SiteRecord:
+    """The typed record of one stored site."""
+    return site_records([site.pk])[site.pk]
+
+
+def site_documents(site_ids: Iterable[int]) -> dict[int, dict]:
+    """The site documents (``loopkeep.site/1``) of the given sites, keyed by site id: the
+    export serialises the records of :func:`site_records` (same order, same queries)."""
+    return {sid: rec.record_to_document(r) for sid, r in site_records(site_ids).items()}
 
 
 def site_document(site: models.Site) -> dict:

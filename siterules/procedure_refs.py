@@ -21,8 +21,8 @@ A step may name only what the record has:
 - ``remove_device`` / ``insert_device``: a device of the site; ``deenergize`` / ``energize``:
   equipment of the site.
 
-Pure Python, importing nothing of the project, so both ``inventory`` and ``analysis.engine``
-may use it (it belongs with the typed record once that package exists).
+Pure Python, importing nothing of the project but the typed record's operation vocabulary
+(``record.operations``), so both ``inventory`` and ``analysis.engine`` may use it.
 """
 
 from __future__ import annotations
@@ -31,6 +31,8 @@ import difflib
 from collections.abc import Callable, Collection, Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any
+
+from record.operations import OPERATION_KEYS
 
 __all__ = [
     "OPERATIONS",
@@ -85,18 +87,8 @@ def default_jumper_id(step_index: int) -> str:
     return f"J{step_index + 1}"
 
 
-OPERATIONS = (
-    "set",
-    "add_jumper",
-    "remove_jumper",
-    "lift",
-    "land",
-    "remove_device",
-    "insert_device",
-    "deenergize",
-    "energize",
-    "note",
-)
+# The operations, in design.md's order: the typed record's one vocabulary.
+OPERATIONS = OPERATION_KEYS
 
 
 def nearest(value: str, names: Iterable[str], n: int = 3, cutoff: float = 0.6) -> list[str]:

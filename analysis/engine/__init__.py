@@ -2,7 +2,8 @@
 
 Public entries (see each docstring for the method):
 
-- ``build_netlist(doc)``: a ``loopkeep.site/1`` dict to a ``Netlist``;
+- ``build_netlist(record)``: a site record (``record.SiteRecord``, or a ``loopkeep.site/1``
+  dict) to a ``Netlist``;
 - ``ct_burdens``, ``find_circuits``, ``input_feeds``: normal-state nodal analysis;
 - ``check_procedure``, ``check_operations``: step-by-step procedure verdicts;
 - ``plan_isolation``: the shortest safe isolation and restoration sequences;

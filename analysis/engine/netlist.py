@@ -1,4 +1,4 @@
-"""The netlist of one site: the ``loopkeep.site/1`` dict turned into indexed elements.
+"""The netlist of one site: the site record (``record.SiteRecord``) turned into indexed elements.
 
 Every terminal ``OWNER:NAME`` gets an integer index. Elements keep their terminals as indices
 so that the topology and the nodal solve (``topology.py``, ``nodal.py``) work on numpy arrays:
@@ -17,11 +17,14 @@ from __future__ import annotations
 
 import itertools
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from functools import cached_property
 from typing import Any
 
 import numpy as np
+
+import record as rec
 
 FT_TO_M = 0.3048
 # A branch whose impedance is below this is a zero-impedance connection (merged, not solved).
@@ -236,6 +239,7 @@ class Netlist:
     procedures: dict[str, Procedure]
     terminal_blocks: frozenset[str] = frozenset()
     doc: dict[str, Any] | None = field(default=None, repr=False)
+    record: rec.SiteRecord | None = field(default=None, repr=False)
     cache: dict[Any, Any] = field(default_factory=dict, repr=False)
 
     @property
@@ -351,20 +355,20 @@ class NetArrays:
         )
 
 
-def _input_z_ohm(spec: dict[str, Any]) -> complex:
-    """Device input impedance from ``burden_ohm`` [R, X] or ``burden_va`` at ``rated_a``, ``pf``.
+def _input_z_ohm(spec: rec.DeviceInput) -> complex:
+    """Device input impedance from ``burden_ohm`` (R, X) or ``burden_va`` at ``rated_a``, ``pf``.
 
     |Z| = S / I² (S in VA at the rated current I), R = |Z|·pf, X = |Z|·sin(acos pf), the usual
     conversion of a burden stated in VA (IEEE C57.13 burdens are stated this way).
     """
-    if spec.get("burden_ohm") is not None:
-        r, x = spec["burden_ohm"]
+    if spec.burden_ohm is not None:
+        r, x = spec.burden_ohm
         z = complex(float(r), float(x))
-    elif spec.get("burden_va") is not None:
-        rated_a = float(spec.get("rated_a") or 5.0)
-        pf = float(spec.get("pf", 1.0) if spec.get("pf") is not None else 1.0)
+    elif spec.burden_va is not None:
+        rated_a = float(spec.rated_a or 5.0)
+        pf = float(spec.pf if spec.pf is not None else 1.0)
         pf = min(max(pf, 0.0), 1.0)
-        mag = float(spec["burden_va"]) / (rated_a * rated_a)
+        mag = float(spec.burden_va) / (rated_a * rated_a)
         z = complex(mag * pf, mag * math.sqrt(max(0.0, 1.0 - pf * pf)))
     else:
         z = complex(MIN_INPUT_OHM, 0.0)
@@ -373,40 +377,45 @@ def _input_z_ohm(spec: dict[str, Any]) -> complex:
     return z
 
 
-def _wire_r_ohm(spec: dict[str, Any], temp_c: float, where: str) -> float:
-    if spec.get("r_ohm") is not None:
-        return float(spec["r_ohm"])
-    if spec.get("length_m") is not None:
-        length_m = float(spec["length_m"])
-    elif spec.get("length_ft") is not None:
-        length_m = float(spec["length_ft"]) * FT_TO_M
+def _wire_r_ohm(spec: rec.Wire, temp_c: float, where: str) -> float:
+    if spec.r_ohm is not None:
+        return float(spec.r_ohm)
+    if spec.length_m is not None:
+        length_m = float(spec.length_m)
+    elif spec.length_ft is not None:
+        length_m = float(spec.length_ft) * FT_TO_M
     else:
         raise ValueError(f"{where}: wire needs r_ohm, or size with length_m or length_ft")
-    if not spec.get("size"):
+    if not spec.size:
         raise ValueError(f"{where}: wire has a length but no size")
     # Imported here: the conductor table is a separate module and only needed for sized wires.
     from trade.conductors import wire_resistance_ohm
 
     return float(
         wire_resistance_ohm(
-            size=str(spec["size"]),
+            size=spec.size,
             length_m=length_m,
-            material=str(spec.get("material") or "cu"),
+            material=spec.material or "cu",
             temp_c=temp_c,
         )
     )
 
 
-def build_netlist(doc: dict[str, Any]) -> Netlist:
-    """Turn a ``loopkeep.site/1`` dict into a ``Netlist``.
+def build_netlist(source: rec.SiteRecord | Mapping[str, Any]) -> Netlist:
+    """Turn a site record (``record.SiteRecord``) into a ``Netlist``.
 
+    A ``loopkeep.site/1`` dict is accepted too and converted with
+    ``record.record_from_document`` (the engine's tests build their circuits as dicts).
     Terminals are created as they are referenced. Wire resistances come from ``r_ohm`` or from
     ``conductors.wire_resistance_ohm`` at the site's ``design_temp_c`` (``length_ft`` × 0.3048).
     Raises ``ValueError`` naming the JSON pointer of an element that cannot be built.
     """
-    site = doc.get("site") or {}
-    temp_c = site.get("design_temp_c")
-    temp_c = DEFAULT_DESIGN_TEMP_C if temp_c is None else float(temp_c)
+    if isinstance(source, rec.SiteRecord):
+        record, doc = source, None
+    else:
+        record = rec.record_from_document(source)
+        doc = source if isinstance(source, dict) else dict(source)
+    temp_c = float(record.site.design_temp_c)
     terminals: list[str] = []
     index: dict[str, int] = {}
 
@@ -420,33 +429,32 @@ def build_netlist(doc: dict[str, Any]) -> Netlist:
         return i
 
     equipment: dict[str, Equipment] = {}
-    for e in doc.get("equipment") or []:
-        code = str(e["code"])
-        load = e.get("max_load_a")
-        equipment[code] = Equipment(
-            code=code,
-            kind=str(e.get("kind") or "other"),
-            in_service=bool(e.get("in_service", True)),
+    for e in record.equipment:
+        load = e.max_load_a
+        equipment[e.code] = Equipment(
+            code=e.code,
+            kind=e.kind,
+            in_service=bool(e.in_service),
             max_load_a=float(load) if load is not None else None,
         )
 
     cts: dict[str, CT] = {}
-    for k, c in enumerate(doc.get("cts") or []):
+    for k, c in enumerate(record.cts):
         where = f"/cts/{k}"
-        code = str(c["code"])
-        positions = {str(n): float(p) for n, p in (c.get("terminals") or {}).items()}
-        in_use_raw = c.get("in_use") or list(positions)[:2]
+        code = c.code
+        positions = dict(c.terminals)
+        in_use_raw = c.in_use or tuple(positions)[:2]
         if len(in_use_raw) != 2:
             raise ValueError(f"{where}/in_use: needs exactly two terminals")
-        in_use = (str(in_use_raw[0]), str(in_use_raw[1]))
+        in_use = (in_use_raw[0], in_use_raw[1])
         for n in in_use:
             if n not in positions:
                 positions[n] = 0.0 if not positions else max(positions.values())
         tidx = {n: term(f"{code}:{n}", f"{where}/terminals/{n}") for n in positions}
-        secondary_a = float(c.get("secondary_a") or 5.0)
+        secondary_a = float(c.secondary_a or 5.0)
         tap_a = abs(positions[in_use[0]] - positions[in_use[1]])
-        eq = equipment.get(str(c.get("equipment"))) if c.get("equipment") else None
-        if str(c.get("phase") or "").upper() == "N":
+        eq = equipment.get(c.equipment) if c.equipment else None
+        if str(c.phase or "").upper() == "N":
             # A neutral CT carries the unbalance, about 0 A in normal service, not the load
             # (common practice, no source); the fault current shows in the probe and the
             # ratings' ground-fault case.
@@ -458,9 +466,9 @@ def build_netlist(doc: dict[str, Any]) -> Netlist:
         cts[code] = CT(
             index=len(cts),
             code=code,
-            equipment=str(c["equipment"]) if c.get("equipment") else None,
-            phase=str(c["phase"]).upper() if c.get("phase") else None,
-            set_name=str(c["set"]) if c.get("set") else None,
+            equipment=c.equipment,
+            phase=c.phase.upper() if c.phase else None,
+            set_name=c.set_name,
             secondary_a=secondary_a,
             positions=positions,
             terminals=tidx,
@@ -469,97 +477,92 @@ def build_netlist(doc: dict[str, Any]) -> Netlist:
             second=tidx[in_use[1]],
             tap_primary_a=tap_a,
             load_secondary_a=load_a,
-            winding_ohm=float(c["winding_ohm"]) if c.get("winding_ohm") is not None else None,
+            winding_ohm=float(c.winding_ohm) if c.winding_ohm is not None else None,
         )
 
     devices: dict[str, Device] = {}
     inputs: list[DeviceInput] = []
     outputs: list[DeviceOutput] = []
-    for k, d in enumerate(doc.get("devices") or []):
+    for k, d in enumerate(record.devices):
         where = f"/devices/{k}"
-        code = str(d["code"])
+        code = d.code
         dins: list[DeviceInput] = []
-        for m, spec in enumerate(d.get("inputs") or []):
+        for m, spec in enumerate(d.inputs):
             w = f"{where}/inputs/{m}"
-            rated = spec.get("rated_a")
+            rated = spec.rated_a
             di = DeviceInput(
                 index=len(inputs),
                 device=code,
-                name=str(spec.get("name") or f"I{m + 1}"),
-                a=term(spec.get("from"), f"{w}/from"),
-                b=term(spec.get("to"), f"{w}/to"),
+                name=spec.name,
+                a=term(spec.from_terminal, f"{w}/from"),
+                b=term(spec.to_terminal, f"{w}/to"),
                 z_ohm=_input_z_ohm(spec),
                 rated_a=float(rated) if rated is not None else None,
             )
             inputs.append(di)
             dins.append(di)
         douts: list[DeviceOutput] = []
-        for m, spec in enumerate(d.get("outputs") or []):
+        for m, out in enumerate(d.outputs):
             w = f"{where}/outputs/{m}"
             do = DeviceOutput(
                 index=len(outputs),
                 device=code,
-                name=str(spec.get("name") or f"OUT{m + 1}"),
-                terminal=term(spec.get("terminal"), f"{w}/terminal"),
-                target=term(spec.get("target"), f"{w}/target"),
+                name=out.name,
+                terminal=term(out.terminal, f"{w}/terminal"),
+                target=term(out.target, f"{w}/target"),
             )
             outputs.append(do)
             douts.append(do)
+        setting = d.ratio_setting
         devices[code] = Device(
             code=code,
-            kind=str(d.get("kind") or "other"),
-            functions=tuple(str(f) for f in d.get("functions") or ()),
-            ratio_setting=d.get("ratio_setting"),
+            kind=d.kind,
+            functions=d.functions,
+            ratio_setting=list(setting) if isinstance(setting, tuple) else setting,
             inputs=tuple(dins),
             outputs=tuple(douts),
         )
 
     wires: list[Wire] = []
-    for k, w in enumerate(doc.get("wires") or []):
+    for k, wire in enumerate(record.wires):
         where = f"/wires/{k}"
-        a = term(w.get("from"), f"{where}/from")
-        b = term(w.get("to"), f"{where}/to")
+        a = term(wire.from_terminal, f"{where}/from")
+        b = term(wire.to_terminal, f"{where}/to")
         wires.append(
             Wire(
                 index=k,
                 a=a,
                 b=b,
-                r_ohm=_wire_r_ohm(w, temp_c, where),
+                r_ohm=_wire_r_ohm(wire, temp_c, where),
                 ends=(terminals[a], terminals[b]),
             )
         )
 
     links: list[Link] = []
-    for k, pair in enumerate(doc.get("links") or []):
+    for k, link in enumerate(record.links):
         where = f"/links/{k}"
-        if isinstance(pair, dict):
-            pair = pair.get("between") or [pair.get("from"), pair.get("to")]
-        if len(pair) != 2:
-            raise ValueError(f"{where}: a link joins exactly two terminals")
-        a = term(pair[0], f"{where}/0")
-        b = term(pair[1], f"{where}/1")
+        a = term(link.a, f"{where}/0")
+        b = term(link.b, f"{where}/1")
         links.append(Link(index=k, a=a, b=b, ends=(terminals[a], terminals[b])))
 
-    grounds = tuple(
-        dict.fromkeys(term(g, f"/grounds/{k}") for k, g in enumerate(doc.get("grounds") or []))
-    )
+    grounds = tuple(dict.fromkeys(term(g, f"/grounds/{k}") for k, g in enumerate(record.grounds)))
 
     switches: dict[str, Switch] = {}
     n_contacts = 0
-    for k, s in enumerate(doc.get("switches") or []):
+    for k, s in enumerate(record.switches):
         where = f"/switches/{k}"
-        code = str(s["code"])
-        positions = tuple(str(p) for p in s.get("positions") or ("closed", "open"))
-        normal = str(s.get("normal") or positions[0])
-        if normal not in positions:
-            raise ValueError(f"{where}/normal: {normal!r} is not one of {list(positions)}")
+        code = s.code
+        positions_s = s.positions or ("closed", "open")
+        normal = s.normal or positions_s[0]
+        if normal not in positions_s:
+            raise ValueError(f"{where}/normal: {normal!r} is not one of {list(positions_s)}")
         contacts = []
-        for m, c in enumerate(s.get("contacts") or []):
-            between = c.get("between") or []
+        for m, contact in enumerate(s.contacts):
+            between = contact.between
             if len(between) != 2:
                 raise ValueError(f"{where}/contacts/{m}/between: needs two terminals")
-            closed_in = frozenset(str(p) for p in c.get("closed_in") or ())
-            unknown = sorted(closed_in - set(positions))
+            closed_in = frozenset(contact.closed_in)
+            unknown = sorted(closed_in - set(positions_s))
             if unknown:
                 raise ValueError(f"{where}/contacts/{m}/closed_in: unknown positions {unknown}")
             contacts.append(
@@ -573,27 +576,26 @@ def build_netlist(doc: dict[str, Any]) -> Netlist:
             n_contacts += 1
         switches[code] = Switch(
             code=code,
-            kind=str(s.get("kind") or "other"),
-            positions=positions,
+            kind=s.kind,
+            positions=positions_s,
             normal=normal,
-            transition=str(s.get("transition") or "break_before_make"),
+            transition=s.transition,
             contacts=tuple(contacts),
         )
 
     procedures: dict[str, Procedure] = {}
-    for p in doc.get("procedures") or []:
-        code = str(p["code"])
-        procedures[code] = Procedure(
-            code=code,
-            title=str(p.get("title") or ""),
-            author=p.get("author"),
-            devices=tuple(str(d) for d in p.get("devices") or ()),
-            steps=tuple(p.get("steps") or ()),
+    for p in record.procedures:
+        procedures[p.code] = Procedure(
+            code=p.code,
+            title=p.title,
+            author=p.author or None,
+            devices=p.devices,
+            steps=tuple(op.to_json() for op in p.steps),
         )
 
-    blocks = frozenset(str(b["code"]) for b in doc.get("terminal_blocks") or [])
+    blocks = frozenset(b.code for b in record.terminal_blocks)
     return Netlist(
-        site_code=str(site.get("code") or ""),
+        site_code=record.site.code,
         design_temp_c=temp_c,
         terminals=terminals,
         index=index,
@@ -609,4 +611,5 @@ def build_netlist(doc: dict[str, Any]) -> Netlist:
         procedures=procedures,
         terminal_blocks=blocks,
         doc=doc,
+        record=record,
     )

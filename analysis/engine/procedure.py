@@ -14,7 +14,7 @@ devices found there.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any
 
 import numpy as np
@@ -186,48 +186,38 @@ def region_mask(nl: Netlist, seeds: set[int], jumps: list[tuple[int, int]]) -> n
 
 def subnet(nl: Netlist, mask: np.ndarray) -> Netlist:
     """The netlist of the terminals in ``mask`` (elements outside it left out)."""
-    if mask.all() or nl.doc is None:
+    if mask.all() or nl.record is None:
         return nl
     key = ("subnet", mask.tobytes())
     hit = nl.cache.get(key)
     if hit is not None:
         return hit
-    doc = nl.doc
+    record = nl.record
 
     def inside(name: Any) -> bool:
         i = nl.index.get(name) if isinstance(name, str) else None
         return i is not None and bool(mask[i])
 
-    def link_end(pair: Any) -> Any:
-        if isinstance(pair, dict):
-            pair = pair.get("between") or [pair.get("from")]
-        return pair[0]
-
-    cts = []
-    for c in doc.get("cts") or []:
-        ct = nl.cts[str(c["code"])]
-        if mask[ct.first]:
-            cts.append(c)
     devices = []
-    for d in doc.get("devices") or []:
-        ins = [i for i in d.get("inputs") or [] if inside(i.get("from"))]
-        outs = [o for o in d.get("outputs") or [] if inside(o.get("terminal"))]
+    for d in record.devices:
+        ins = tuple(i for i in d.inputs if inside(i.from_terminal))
+        outs = tuple(o for o in d.outputs if inside(o.terminal))
         if ins or outs:
-            devices.append({**d, "inputs": ins, "outputs": outs})
+            devices.append(replace(d, inputs=ins, outputs=outs))
     switches = []
-    for s in doc.get("switches") or []:
-        contacts = [c for c in s.get("contacts") or [] if inside(c["between"][0])]
+    for s in record.switches:
+        contacts = tuple(c for c in s.contacts if inside(c.between[0]))
         if contacts:
-            switches.append({**s, "contacts": contacts})
-    sub = {
-        **doc,
-        "cts": cts,
-        "devices": devices,
-        "wires": [w for w in doc.get("wires") or [] if inside(w.get("from"))],
-        "links": [k for k in doc.get("links") or [] if inside(link_end(k))],
-        "grounds": [g for g in doc.get("grounds") or [] if inside(g)],
-        "switches": switches,
-    }
+            switches.append(replace(s, contacts=contacts))
+    sub = replace(
+        record,
+        cts=tuple(c for c in record.cts if mask[nl.cts[c.code].first]),
+        devices=tuple(devices),
+        wires=tuple(w for w in record.wires if inside(w.from_terminal)),
+        links=tuple(k for k in record.links if inside(k.a)),
+        grounds=tuple(g for g in record.grounds if inside(g)),
+        switches=tuple(switches),
+    )
     out = build_netlist(sub)
     nl.cache[key] = out
     return out

@@ -47,6 +47,7 @@ from analysis.engine.windings import (
     stamp,
     winding_arrays,
 )
+from record.operations import operation_key
 from siterules.procedure_refs import Problem, RecordNames, default_jumper_id, procedure_problems
 
 # Thresholds of the findings table (design.md), as fractions of the largest CT current of the
@@ -141,22 +142,9 @@ def _between(nl: Netlist, a: str, b: str) -> tuple[list[int], list[int]]:
 
 
 def op_kind(op: dict[str, Any]) -> str:
-    """The operation an op dict names (its key), or "" for none of design.md's."""
-    for key in (
-        "set",
-        "add_jumper",
-        "remove_jumper",
-        "lift",
-        "land",
-        "remove_device",
-        "insert_device",
-        "deenergize",
-        "energize",
-        "note",
-    ):
-        if key in op:
-            return key
-    return ""
+    """The operation an op dict names (its key), or "" for none of design.md's (the record's
+    vocabulary, ``record.operations``)."""
+    return operation_key(op)
 
 
 def validate_op(nl: Netlist, op: Any, step: int) -> None:
@@ -819,16 +807,18 @@ def _fmt_a(x: float) -> str:
 
 def _ground_fault_secondary(nl: Netlist, ct: Any) -> tuple[float, str, float] | None:
     """(bus ground-fault kA, bus code, secondary A through the tap in use) for the CT's
-    equipment, from the site document; None where the record does not say."""
-    doc = getattr(nl, "doc", None) or {}
-    eq = next((e for e in doc.get("equipment") or () if e.get("code") == ct.equipment), None)
-    if eq is None or not eq.get("bus") or ct.tap_primary_a <= 0:
+    equipment, from the site record; None where the record does not say."""
+    record = nl.record
+    if record is None or ct.tap_primary_a <= 0:
         return None
-    bus = next((b for b in doc.get("buses") or () if b.get("code") == eq["bus"]), None)
-    ka = None if bus is None else bus.get("ground_fault_ka")
-    if not isinstance(ka, int | float) or isinstance(ka, bool) or ka <= 0:
+    eq = next((e for e in record.equipment if e.code == ct.equipment), None)
+    if eq is None or not eq.bus:
         return None
-    return float(ka), str(eq["bus"]), float(ka) * 1000.0 * ct.secondary_a / ct.tap_primary_a
+    bus = next((b for b in record.buses if b.code == eq.bus), None)
+    ka = None if bus is None else bus.ground_fault_ka
+    if ka is None or ka <= 0:
+        return None
+    return float(ka), eq.bus, float(ka) * 1000.0 * ct.secondary_a / ct.tap_primary_a
 
 
 def _fault_text(nl: Netlist, ct: Any) -> tuple[str, float | None]:

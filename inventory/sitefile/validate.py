@@ -33,6 +33,7 @@ from jsonschema import Draft202012Validator
 from jsonschema.exceptions import ValidationError
 
 from inventory.sitefile import gate
+from record.operations import OPERATION_COMPANIONS
 from siterules.procedure_refs import OPERATIONS, RecordNames, procedure_problems
 from trade.accuracy import parse_accuracy
 from trade.conductors import conductor_ohm_per_m
@@ -52,9 +53,9 @@ __all__ = [
 FORMAT = "loopkeep.site/1"
 SCHEMA_PATH = Path(__file__).with_name("schema.json")
 
-# The operations of a procedure step (``OPERATIONS``) are in the order of the schema's oneOf
-# branches.
-_OPERATION_COMPANIONS = ("to", "id")
+# The operations of a procedure step (``OPERATIONS``, the record's one vocabulary,
+# ``record.operations``) are in the order of the schema's oneOf branches.
+_OPERATION_COMPANIONS = tuple(k for keys in OPERATION_COMPANIONS.values() for k in keys)
 
 
 @dataclass(frozen=True)

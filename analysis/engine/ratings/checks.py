@@ -1,8 +1,9 @@
 """Static rating and setting checks of CTs and the devices they feed, as findings.
 
 Each check is a small function of plain values (so it can be tested against outside figures)
-plus a gatherer that reads a site document: :func:`evaluate_ct` (one CT, both fault cases) and
-:func:`site_static_findings` (every CT and device of a site).
+plus a gatherer that reads a site record (``record.SiteRecord``; a site-file dict is
+converted): :func:`evaluate_ct` (one CT, both fault cases) and :func:`site_static_findings`
+(every CT and device of a site).
 """
 
 from __future__ import annotations
@@ -12,6 +13,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field, replace
 from typing import Any
 
+import record as rec
 from analysis.engine import findings as fc
 from analysis.engine.findings import Finding
 from analysis.engine.ratings.saturation import SaturationCase, assess_case
@@ -94,12 +96,28 @@ def ratio_setting_check(*, device: str, setting: str, ct: str, tap: Tap) -> Find
     )
 
 
+def _rated_inputs(inputs: Iterable[rec.DeviceInput | Mapping[str, Any]]) -> list[tuple[str, float]]:
+    out = []
+    for i in inputs:
+        if isinstance(i, rec.DeviceInput):
+            name, rated = i.name, i.rated_a
+        else:
+            name, rated = str(i.get("name")), i.get("rated_a")
+        if rated:
+            out.append((name, float(rated)))
+    return out
+
+
 def input_rating_check(
-    *, device: str, inputs: Iterable[Mapping[str, Any]], ct: str, secondary_a: float
+    *,
+    device: str,
+    inputs: Iterable[rec.DeviceInput | Mapping[str, Any]],
+    ct: str,
+    secondary_a: float,
 ) -> Finding | None:
     """``input_rating_mismatch`` when the CT's secondary rating (1 A / 5 A) matches none of the
-    rated currents of the device inputs it can feed."""
-    rated = [(str(i.get("name")), float(i["rated_a"])) for i in inputs if i.get("rated_a")]
+    rated currents of the device inputs it can feed (record inputs or site-file entries)."""
+    rated = _rated_inputs(inputs)
     if not rated or any(abs(r - secondary_a) < 1e-9 for _, r in rated):
         return None
     names = ", ".join(f"{n} {r:g} A" for n, r in rated)
@@ -253,7 +271,7 @@ def evaluate_ct(
     burden at the CT terminals (complex ohms), None where open or unknown."""
     ct = index.ct(ct_code)
     burdens = burdens or {}
-    neutral = str(ct.get("phase") or "").upper() == "N"
+    neutral = str(ct.phase or "").upper() == "N"
     out: list[Finding] = []
     try:
         tap = index.tap(ct)
@@ -262,15 +280,15 @@ def evaluate_ct(
         return CTRating(ct_code, None, None, None, dict.fromkeys(CASES), out)
 
     accuracy: AccuracyClass | None = None
-    text = ct.get("accuracy")
+    text = ct.accuracy
     if not text:
         out.append(_missing(ct_code, "no accuracy class: accuracy and saturation checks not run"))
     else:
         try:
             accuracy = parse_accuracy(
                 text,
-                rated_burden_va=_float(ct.get("rated_burden_va")),
-                knee_v=_float(ct.get("knee_v")),
+                rated_burden_va=_float(ct.rated_burden_va),
+                knee_v=_float(ct.knee_v),
             )
         except ValueError as err:
             out.append(_missing(ct_code, f"accuracy class not understood: {err}"))
@@ -291,18 +309,18 @@ def evaluate_ct(
             )
         )
 
-    winding_full = _float(ct.get("winding_ohm"))
+    winding_full = _float(ct.winding_ohm)
     winding = None if winding_full is None else winding_ohm_at_tap(winding_full, tap)
 
     eq = index.equipment_of(ct)
-    max_load_a = None if eq is None else _float(eq.get("max_load_a"))
+    max_load_a = None if eq is None else _float(eq.max_load_a)
     # A neutral CT carries the unbalance of the phases, about 0 A in normal service, not the
     # equipment's load: a thermal check against the load would be a false finding, and the
     # record holds no unbalance to check it against (common practice, no source).
     if max_load_a is None and not neutral:
         out.append(_missing(ct_code, "thermal check not run: equipment has no max_load_a"))
     elif max_load_a is not None and not neutral:
-        rating_factor = _float(ct.get("rating_factor")) or 1.0
+        rating_factor = _float(ct.rating_factor) or 1.0
         finding = thermal_check(
             ct=ct_code, max_load_a=max_load_a, tap=tap, rating_factor=rating_factor
         )
@@ -322,8 +340,8 @@ def evaluate_ct(
             continue
         if burden is not None and (worst_burden is None or abs(burden) > worst_burden[0]):
             worst_burden = (abs(burden), case, complex(burden))
-        fault_ka = None if bus is None else _float(bus.get(CASE_FAULT_KEY[case]))
-        x_over_r = None if bus is None else _float(bus.get("x_over_r"))
+        fault_ka = None if bus is None else _float(getattr(bus, CASE_FAULT_KEY[case]))
+        x_over_r = None if bus is None else _float(bus.x_over_r)
         std = vx = limit = None
         if accuracy is not None:
             std = accuracy.standard_burden_ohm_at_tap(tap.secondary_a, tap.turns_fraction)
@@ -343,7 +361,7 @@ def evaluate_ct(
             frequency_hz=index.frequency_hz,
         )
         if bus is None and result.missing:
-            eq_code = None if eq is None else eq.get("code")
+            eq_code = None if eq is None else eq.code
             result = _replace_missing(result, f"bus of equipment {eq_code!r}")
         if (
             accuracy is not None
@@ -387,14 +405,14 @@ def _replace_missing(result: SaturationCase, what: str) -> SaturationCase:
 # --- devices -----------------------------------------------------------------------------------
 
 
-def _settings(device: Mapping[str, Any], ct: Mapping[str, Any]) -> list[str]:
+def _settings(device: rec.Device, ct: rec.CT) -> list[str]:
     """Ratio setting(s) that apply to a CT: a string, a list (any may match), or a mapping keyed
     by CT code or CT set name (for devices with several CT inputs, e.g. differential)."""
-    setting = device.get("ratio_setting")
+    setting = device.ratio_setting
     if setting is None or setting == "":
         return []
     if isinstance(setting, Mapping):
-        chosen = setting.get(ct.get("code")) or setting.get(ct.get("set"))
+        chosen = setting.get(ct.code) or (setting.get(ct.set_name) if ct.set_name else None)
         return [] if chosen is None else [str(chosen)]
     if isinstance(setting, (list, tuple)):
         return [str(s) for s in setting]
@@ -411,7 +429,7 @@ def device_static_findings(
     if device is None:
         return []
     out: list[Finding] = []
-    inputs = device.get("inputs") or ()
+    inputs = device.inputs
     reported_missing = False
     for ct_code in sorted(ct_codes):
         ct = index.cts.get(ct_code)
@@ -423,7 +441,7 @@ def device_static_findings(
             continue  # reported on the CT itself
         settings = _settings(device, ct)
         if not settings:
-            if device.get("kind") == "relay" and not reported_missing:
+            if device.kind == "relay" and not reported_missing:
                 out.append(
                     Finding(
                         code=fc.MISSING_DATA,
@@ -465,7 +483,7 @@ def device_static_findings(
 
 
 def site_static_findings(
-    doc: Mapping[str, Any],
+    record: rec.SiteRecord | Mapping[str, Any],
     *,
     burdens: Mapping[str, Mapping[str, complex | None]],
     feeds: Mapping[str, set[str]],
@@ -478,7 +496,7 @@ def site_static_findings(
     None when open or unknown); a CT absent from it is reported as missing its burden.
     ``feeds``: device code -> CT codes whose current reaches the device.
     """
-    index = SiteIndex(doc)
+    index = SiteIndex(record)
     out: list[Finding] = []
     for ct_code in index.cts:
         out.extend(evaluate_ct(index, ct_code, burdens.get(ct_code)).findings)

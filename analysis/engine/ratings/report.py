@@ -1,4 +1,7 @@
-"""The CT report: design.md's "CT report JSON", from a site document and the engine's burdens."""
+"""The CT report: design.md's "CT report JSON", from a site record and the engine's burdens.
+
+The site is a ``record.SiteRecord``; a ``loopkeep.site/1`` dict is converted
+(``record.record_from_document``)."""
 
 from __future__ import annotations
 
@@ -7,6 +10,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
+import record as rec
 from analysis.engine.findings import Finding
 from analysis.engine.ratings.checks import CASES, CTRating, device_static_findings, evaluate_ct
 from analysis.engine.ratings.excitation import (
@@ -32,8 +36,8 @@ def _r(x: float | None, digits: int = SIGNIFICANT_DIGITS) -> float | int | None:
     return int(value) if value.is_integer() else value
 
 
-def _curve_at_tap(ct: Mapping[str, Any], rating: CTRating) -> ExcitationCurve | None:
-    points = ct.get("excitation")
+def _curve_at_tap(ct: rec.CT, rating: CTRating) -> ExcitationCurve | None:
+    points = ct.excitation
     if not points or rating.tap is None:
         return None
     try:
@@ -72,7 +76,7 @@ def _case_json(result: SaturationCase | None) -> dict[str, Any]:
 
 
 def build_ct_report(
-    doc: Mapping[str, Any],
+    record: rec.SiteRecord | Mapping[str, Any],
     ct_code: str,
     *,
     burdens: Mapping[str, complex | None],
@@ -86,10 +90,10 @@ def build_ct_report(
     ``devices_fed``: devices this CT's current reaches; their ratio-setting and input-rating
     findings against this CT are listed with the CT's own. Raises ``KeyError`` for an unknown CT.
     Methods: taps (S4), class at the tap (S5, S6), C37.110 (S7, S8, S25), knee points (S9, S10).
-    ``site_index`` (``SiteIndex(doc)``) saves rebuilding the look-ups when reporting many CTs of
+    ``site_index`` (``SiteIndex(record)``) saves rebuilding the look-ups when reporting many CTs of
     one site; :func:`site_ratings` does that for a whole site.
     """
-    index = site_index if site_index is not None else SiteIndex(doc)
+    index = site_index if site_index is not None else SiteIndex(record)
     rating = evaluate_ct(index, ct_code, burdens)
     findings = list(rating.findings)
     for device in sorted(set(devices_fed)):
@@ -145,16 +149,16 @@ class SiteRatings:
 
 
 def site_ratings(
-    doc: Mapping[str, Any],
+    record: rec.SiteRecord | Mapping[str, Any],
     *,
     burdens: Mapping[str, Mapping[str, complex | None]],
     feeds: Mapping[str, set[str]],
 ) -> SiteRatings:
     """All CT reports and :func:`site_static_findings` of one site in one pass (each CT is
-    evaluated once). ``reports[ct]`` equals ``build_ct_report(doc, ct, burdens=burdens[ct],
+    evaluated once). ``reports[ct]`` equals ``build_ct_report(record, ct, burdens=burdens[ct],
     devices_fed=<devices whose feeds hold ct>)``; ``findings`` equals
-    ``site_static_findings(doc, burdens=burdens, feeds=feeds)``."""
-    index = SiteIndex(doc)
+    ``site_static_findings(record, burdens=burdens, feeds=feeds)``."""
+    index = SiteIndex(record)
     fed: dict[str, list[str]] = {}
     for device, cts in feeds.items():
         for ct in cts:
@@ -202,10 +206,13 @@ class ExcitationPlotInputs:
 
 
 def excitation_plot_inputs(
-    doc: Mapping[str, Any], ct_code: str, *, burdens: Mapping[str, complex | None]
+    record: rec.SiteRecord | Mapping[str, Any],
+    ct_code: str,
+    *,
+    burdens: Mapping[str, complex | None],
 ) -> ExcitationPlotInputs | None:
     """Inputs of the excitation plot of one CT; None when the CT has no usable curve."""
-    index = SiteIndex(doc)
+    index = SiteIndex(record)
     rating = evaluate_ct(index, ct_code, burdens)
     curve = _curve_at_tap(index.ct(ct_code), rating)
     if curve is None or rating.tap is None:

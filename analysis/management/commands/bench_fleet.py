@@ -2,7 +2,7 @@
 design.md (PostgreSQL and a broker required; a measurement, not a test).
 
 (a) End to end: a fleet run through the broker on ``--workers`` Celery worker processes started
-    here, from sending the run to the run row saying success (read with ``site_documents``,
+    here, from sending the run to the run row saying success (read with ``site_records``,
     engine, COPY of the results, outbox and progress bookkeeping).
 (b) The floor, in the same run: one raw SQL read of the same record rows (one ``SELECT`` per
     table), the engine's compute of every site (timed in one process and divided by the number
@@ -191,7 +191,7 @@ class Command(BaseCommand):
         raise CommandError("the worker did not answer a ping within a minute")
 
     def _floor(self, site_ids: list[int], workers: int) -> dict[str, float]:
-        from inventory.selectors import site_documents
+        from inventory.selectors import site_records
 
         t0 = time.perf_counter()
         rows = 0
@@ -201,10 +201,10 @@ class Command(BaseCommand):
                 rows += len(cursor.fetchall())
         read_s = time.perf_counter() - t0
 
-        docs = site_documents(site_ids)  # the engine's input; not part of the floor
-        codes = {sid: (doc["site"]["code"], 0) for sid, doc in docs.items()}
+        records = site_records(site_ids)  # the engine's input; not part of the floor
+        codes = {sid: (r.site.code, 0) for sid, r in records.items()}
         t1 = time.perf_counter()
-        results, _failed = services._compute(docs)
+        results, _failed = services._compute(records)
         compute_one_s = time.perf_counter() - t1
 
         t2 = time.perf_counter()
