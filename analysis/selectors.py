@@ -296,3 +296,27 @@ def cts_feeding_device(*, site_id: int, device: str) -> QuerySet:
     return models.CircuitMember.objects.filter(
         site_id=site_id, circuit_key__in=keys, kind=models.CircuitMember.Kind.CT
     ).order_by("circuit_key", "code")
+
+
+def site_circuits(*, site_id: int, key: str | None = None) -> list[dict[str, Any]]:
+    """A site's stored circuits (or the one with ``key``) with their CTs and devices, ground
+    points, ``computed_at`` and ``stale``: two queries whatever the number of circuits."""
+    circuits = with_stale(models.Circuit.objects.filter(site_id=site_id)).order_by("key")
+    members = models.CircuitMember.objects.filter(site_id=site_id).order_by("kind", "code")
+    if key is not None:
+        circuits = circuits.filter(key=key)
+        members = members.filter(circuit_key=key)
+    by_key: dict[str, dict[str, list[str]]] = {}
+    for circuit_key, kind, code in members.values_list("circuit_key", "kind", "code"):
+        entry = by_key.setdefault(circuit_key, {"cts": [], "devices": []})
+        entry["cts" if kind == models.CircuitMember.Kind.CT else "devices"].append(code)
+    return [
+        {
+            "key": c.key,
+            "ground_points": c.ground_points,
+            **by_key.get(c.key, {"cts": [], "devices": []}),
+            "computed_at": c.computed_at.isoformat().replace("+00:00", "Z"),
+            "stale": bool(c.stale),
+        }
+        for c in circuits
+    ]

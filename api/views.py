@@ -329,6 +329,27 @@ class CTCircuits(SiteScoped, APIView):
         )
 
 
+class CircuitList(SiteScoped, APIView):
+    """A site's secondary circuits (from the stored results): key, CTs, devices, ground
+    points, ``computed_at`` and ``stale``."""
+
+    @extend_schema(responses=OpenApiTypes.OBJECT, operation_id="sites_circuits_list")
+    def get(self, request: Request, site: str) -> Response:
+        return Response({"site": site, "circuits": selectors.site_circuits(site_id=self.site.pk)})
+
+
+class CircuitDetail(SiteScoped, APIView):
+    """One secondary circuit with its members."""
+
+    @extend_schema(responses=OpenApiTypes.OBJECT)
+    def get(self, request: Request, site: str, key: str) -> Response:
+        found = selectors.site_circuits(site_id=self.site.pk, key=key)
+        if not found:
+            known = [c["key"] for c in selectors.site_circuits(site_id=self.site.pk)]
+            raise CodeNotFound("circuit", key, known, site)
+        return Response({"site": site, **found[0]})
+
+
 class DeviceCTs(SiteScoped, APIView):
     """Which CTs feed this device (from the stored circuits)."""
 

@@ -455,3 +455,18 @@ def test_a_kept_netlist_is_never_used_after_an_edit(demo, viewer, editor):
     assert after["safe"] is False
     assert after["first_danger"]["code"] == "open_secondary"
     assert after["first_danger"]["ct"] == "CB-132-A"
+
+
+def test_circuits_list_and_detail_are_two_queries(demo, viewer, django_assert_num_queries):
+    # token, role, site, circuits with ``stale``, members
+    with django_assert_num_queries(5):
+        body = viewer.get(f"{V1}/sites/QFN/circuits/").json()
+    circuits = {c["key"]: c for c in body["circuits"]}
+    # fixtures/demo/README: one summing circuit for the four 87B sets, grounded once at TB-87B:4
+    (summing,) = [c for c in circuits.values() if "R-87B" in c["devices"]]
+    assert len(summing["cts"]) == 12 and summing["ground_points"] == 1
+    assert summing["stale"] is False
+    one = viewer.get(f"{V1}/sites/QFN/circuits/{summing['key']}/").json()
+    assert one["cts"] == summing["cts"] and one["site"] == "QFN"
+    missing = viewer.get(f"{V1}/sites/QFN/circuits/CKT-CB-131-Q/").json()
+    assert missing["status"] == 404 and missing["did_you_mean"]
