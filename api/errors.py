@@ -49,6 +49,18 @@ class FieldErrors(exceptions.ValidationError):
         self.summary = detail
 
 
+class PreconditionRequired(exceptions.APIException):
+    status_code = 428
+    default_detail = "a write to the record needs If-Match with the ETag of your last read"
+    default_code = "precondition_required"
+
+
+class PreconditionFailed(exceptions.APIException):
+    status_code = status.HTTP_412_PRECONDITION_FAILED
+    default_detail = "the site's record changed since your read: read it again"
+    default_code = "precondition_failed"
+
+
 class Conflict(exceptions.APIException):
     status_code = status.HTTP_409_CONFLICT
     default_detail = "the record changed under this request"

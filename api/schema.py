@@ -35,8 +35,10 @@ _TEXT = {
     "403": "the account's role does not allow this",
     "404": "unknown code (with the nearest codes that exist)",
     "405": "method not allowed",
+    "412": "the record changed since the ETag given in If-Match",
     "413": "request body too large",
     "415": "unsupported media type",
+    "428": "If-Match is required on a write to the record",
     "429": "too many requests",
 }
 
@@ -54,6 +56,8 @@ def add_error_responses(result: dict[str, Any], generator: Any, **kwargs: Any) -
                 codes += ["400"]
             if method in {"post", "put", "patch"}:
                 codes += ["413", "415"]
+            if method in {"put", "patch"}:
+                codes += ["412", "428"]
             responses = operation.setdefault("responses", {})
             for code in sorted(codes):
                 responses.setdefault(code, {"description": _TEXT[code], "content": ref})

@@ -20,11 +20,11 @@ from analysis import actions, selectors
 from analysis.compute import ct_plots
 from analysis.engine import ProcedureError
 from api import filters, serializers
-from api.errors import CodeNotFound, FieldErrors
+from api.errors import CodeNotFound, FieldErrors, PreconditionFailed, PreconditionRequired
 from api.pagination import ResultPagination
 from inventory import models as inv
 from inventory import selectors as records
-from inventory.services import SiteImportError, ct_change_tap, site_import
+from inventory.services import SiteImportError, ct_change_tap, ct_save, site_import
 
 # ---------------------------------------------------------------------------------------------
 # helpers
@@ -168,7 +168,16 @@ class CTList(SiteScoped, generics.ListAPIView):
         return records.cts_queryset(site_id=self.site.pk)
 
 
+def _etag(site: inv.Site) -> str:
+    """The version of a site's record a client read: any write to the site bumps it."""
+    return f'"{site.pk}-{site.revision}"'
+
+
 class CTDetail(SiteScoped, generics.RetrieveAPIView):
+    """A CT. ``PATCH`` changes its fields, winding or tap through the CT service (a tap change
+    is recorded as an event); it needs ``If-Match`` with the ``ETag`` of a read (428 without
+    it, 412 when the site's record changed since)."""
+
     serializer_class = serializers.CTSerializer
 
     def get_object(self) -> Any:
@@ -179,6 +188,50 @@ class CTDetail(SiteScoped, generics.RetrieveAPIView):
                 "CT", code, records.codes(inv.CurrentTransformer, site_id=self.site.pk), site
             )
         return ct
+
+    def retrieve(self, request: Request, *args: Any, **kwargs: Any) -> Response:
+        response = super().retrieve(request, *args, **kwargs)
+        response["ETag"] = _etag(self.site)
+        return response
+
+    @extend_schema(request=serializers.CTPatchSerializer, responses=serializers.CTSerializer)
+    def patch(self, request: Request, site: str, code: str) -> Response:
+        ct = self.get_object()
+        body = serializers.CTPatchSerializer(data=request.data)
+        body.is_valid(raise_exception=True)
+        data = dict(body.validated_data)
+        if "HTTP_IF_MATCH" not in request.META:
+            raise PreconditionRequired()
+        try:
+            with transaction.atomic():
+                locked = inv.Site.objects.select_for_update().get(pk=self.site.pk)
+                if request.META["HTTP_IF_MATCH"] != _etag(locked):
+                    raise PreconditionFailed()
+                terminals = data.pop("terminals", None)
+                in_use = data.pop("in_use", None)
+                reason = data.pop("reason", "")
+                for field, value in data.items():
+                    setattr(ct, "set_name" if field == "set" else field, value)
+                ct_save(
+                    ct=ct,
+                    terminals=terminals,
+                    in_use=None if in_use is None else (in_use[0], in_use[1]),
+                    by=request.user.get_username(),
+                    reason=reason,
+                )
+        except DjangoValidationError as exc:
+            raise FieldErrors(
+                "the change was refused; nothing was written",
+                [
+                    ("set" if k == "set_name" else k, m)
+                    for k, msgs in exc.message_dict.items()
+                    for m in msgs
+                ],
+            ) from exc
+        self._site_obj = inv.Site.objects.get(pk=self.site.pk)
+        response = Response(serializers.CTSerializer(self.get_object()).data)
+        response["ETag"] = _etag(self.site)
+        return response
 
 
 class DeviceList(SiteScoped, generics.ListAPIView):

@@ -470,3 +470,38 @@ def test_circuits_list_and_detail_are_two_queries(demo, viewer, django_assert_nu
     assert one["cts"] == summing["cts"] and one["site"] == "QFN"
     missing = viewer.get(f"{V1}/sites/QFN/circuits/CKT-CB-131-Q/").json()
     assert missing["status"] == 404 and missing["did_you_mean"]
+
+
+# ---------------------------------------------------------------------------------------------
+# writes to the record: optimistic concurrency
+
+
+def test_ct_patch_needs_a_current_etag_and_goes_through_the_rules(demo, editor, viewer):
+    url = f"{V1}/sites/QFN/cts/CB-132-A/"
+    read = editor.get(url)
+    etag = read["ETag"]
+    assert viewer.patch(url, {"accuracy": "C400"}, format="json").status_code == 403
+    missing = editor.patch(url, {"accuracy": "C400"}, format="json")
+    assert missing.status_code == 428 and missing.json()["code"] == "precondition_required"
+
+    bad = editor.patch(url, {"accuracy": "C4000"}, format="json", HTTP_IF_MATCH=etag)
+    assert bad.status_code == 400 and bad.json()["errors"][0]["field"] == "accuracy"
+    twin = editor.patch(url, {"phase": "B"}, format="json", HTTP_IF_MATCH=etag)
+    # CB-132-B is already phase B of the set CB-132-R: one CT per phase in a set
+    assert twin.status_code == 400
+    assert inv.CurrentTransformer.objects.get(site__code="QFN", code="CB-132-A").phase == "A"
+
+    done = editor.patch(
+        url, {"accuracy": "C400", "reason": "nameplate re-read"}, format="json", HTTP_IF_MATCH=etag
+    )
+    assert done.status_code == 200 and done.json()["accuracy"] == "C400"
+    assert done["ETag"] != etag
+    stale = editor.patch(url, {"nameplate": "x"}, format="json", HTTP_IF_MATCH=etag)
+    assert stale.status_code == 412 and stale.json()["code"] == "precondition_failed"
+
+    retap = editor.patch(
+        url, {"in_use": ["X1", "X4"], "reason": "WO-9"}, format="json", HTTP_IF_MATCH=done["ETag"]
+    )
+    assert retap.status_code == 200 and retap.json()["ratio"] == "800:5"
+    history = viewer.get(f"{V1}/tap-changes/?ct=CB-132-A").json()["results"]
+    assert history[-1]["to_ratio"] == "800:5" and history[-1]["changed_by"] == "u-editor"
