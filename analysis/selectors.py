@@ -75,7 +75,7 @@ def findings_queryset(
     if site:
         qs = qs.filter(site_code=site)
     if severity and or_worse and severity in SEVERITY_ORDER:
-        qs = qs.filter(severity__in=SEVERITY_ORDER[: SEVERITY_ORDER.index(severity) + 1])
+        qs = qs.filter(severity__in=severity_or_worse(severity))
     elif severity:
         qs = qs.filter(severity=severity)
     rank = Case(

@@ -61,12 +61,6 @@ class PreconditionFailed(exceptions.APIException):
     default_code = "precondition_failed"
 
 
-class Conflict(exceptions.APIException):
-    status_code = status.HTTP_409_CONFLICT
-    default_detail = "the record changed under this request"
-    default_code = "conflict"
-
-
 def _flatten(detail: Any, prefix: str = "") -> list[dict[str, str]]:
     """DRF's nested error detail as ``[{"field": "a/0/b", "message": ...}]``."""
     out: list[dict[str, str]] = []

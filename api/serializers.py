@@ -12,7 +12,8 @@ from inventory.selectors import num
 from trade.ratio import format_ratio
 
 
-def _stamp(value: Any) -> str | None:
+def utc_stamp(value: Any) -> str | None:
+    """A stored time as the API writes it (ISO 8601, ``Z`` for UTC); None stays None."""
     return None if value is None else value.isoformat().replace("+00:00", "Z")
 
 
@@ -125,7 +126,7 @@ class ProcedureSerializer(serializers.Serializer):
 
     def get_verdict_computed_at(self, proc: Any) -> str | None:
         row = self._row(proc)
-        return None if row is None else _stamp(row.computed_at)
+        return None if row is None else utc_stamp(row.computed_at)
 
     def get_verdict_stale(self, proc: Any) -> bool:
         row = self._row(proc)

@@ -53,10 +53,6 @@ def _site_input(site: inv.Site) -> tuple[dict[str, Any], Any]:
     return actions.site_netlist(site.pk, site.revision, lambda: _document(site))
 
 
-def _stamp(value: Any) -> str | None:
-    return None if value is None else value.isoformat().replace("+00:00", "Z")
-
-
 def _printable_code(text: str) -> bool:
     try:
         text.encode("utf-8")
@@ -339,7 +335,7 @@ class CTReport(SiteScoped, APIView):
         return Response(
             {
                 **row.report,
-                "computed_at": _stamp(row.computed_at),
+                "computed_at": serializers.utc_stamp(row.computed_at),
                 "revision": row.revision,
                 "stale": bool(row.stale),
             }
@@ -516,7 +512,7 @@ class CTTapChange(SiteScoped, APIView):
                 "from": change.from_tap,
                 "to": change.to_tap,
                 "ratio": report["ratio"],
-                "changed_at": _stamp(change.changed_at),
+                "changed_at": serializers.utc_stamp(change.changed_at),
                 "changed_by": change.changed_by,
                 "reason": change.reason,
                 "ratio_setting_mismatch": mismatched,
