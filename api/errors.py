@@ -49,6 +49,25 @@ class FieldErrors(exceptions.ValidationError):
         self.summary = detail
 
 
+class Conflict(exceptions.APIException):
+    """A 409: the write clashes with the record as it stands (a code that exists already,
+    a delete of something still wired or referenced); ``errors`` say where."""
+
+    status_code = status.HTTP_409_CONFLICT
+    default_detail = "the write clashes with the record as it stands"
+    default_code = "conflict"
+
+    def __init__(self, detail: str, errors: list[tuple[str, str]] = ()) -> None:  # type: ignore[assignment]
+        super().__init__(detail)
+        self.errors = [{"field": path, "message": message} for path, message in errors]
+
+
+class RequestTooLarge(exceptions.APIException):
+    status_code = status.HTTP_413_REQUEST_ENTITY_TOO_LARGE
+    default_detail = "the request body is larger than this API reads"
+    default_code = "too_large"
+
+
 class PreconditionRequired(exceptions.APIException):
     status_code = 428
     default_detail = "a write to the record needs If-Match with the ETag of your last read"
@@ -111,7 +130,7 @@ def exception_handler(exc: Exception, context: dict[str, Any]) -> Response | Non
     else:
         detail = exc.detail
         body["detail"] = str(detail if not isinstance(detail, (list, dict)) else _flatten(detail))
-        body["errors"] = []
+        body["errors"] = list(getattr(exc, "errors", []))
     if isinstance(exc, CodeNotFound):
         body["did_you_mean"] = exc.did_you_mean
     response.data = body

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import django_filters as df
-from django.db.models import QuerySet
+from django.db.models import Q, QuerySet
 
 from analysis import models as results
 from analysis.engine.findings import SEVERITY_ORDER
@@ -47,6 +47,50 @@ class DeviceFilter(df.FilterSet):
         return qs.filter(functions__icontains=f'"{value}"')
 
 
+class EquipmentFilter(df.FilterSet):
+    kind = df.ChoiceFilter(choices=models.Equipment._meta.get_field("kind").choices)
+    bus = df.CharFilter(field_name="bus__code", help_text="bus code")
+    in_service = df.BooleanFilter()
+
+    class Meta:
+        model = models.Equipment
+        fields: list[str] = []
+
+
+class WireFilter(df.FilterSet):
+    terminal = df.CharFilter(
+        method="by_terminal", help_text="an end of the wire, OWNER:NAME (e.g. TB-101:4)"
+    )
+    owner = df.CharFilter(
+        method="by_owner", help_text="an owner at either end (CT, device, terminal block)"
+    )
+
+    class Meta:
+        model = models.Wire
+        fields: list[str] = []
+
+    def by_terminal(self, qs: QuerySet, name: str, value: str) -> QuerySet:
+        owner, _, point = value.partition(":")
+        return qs.filter(
+            Q(from_terminal__owner=owner, from_terminal__name=point)
+            | Q(to_terminal__owner=owner, to_terminal__name=point)
+        )
+
+    def by_owner(self, qs: QuerySet, name: str, value: str) -> QuerySet:
+        return qs.filter(Q(from_terminal__owner=value) | Q(to_terminal__owner=value))
+
+
+class SwitchFilter(df.FilterSet):
+    kind = df.ChoiceFilter(choices=models.Switch._meta.get_field("kind").choices)
+    group = df.CharFilter(
+        field_name="code", lookup_expr="startswith", help_text="switch group, e.g. TS-101"
+    )
+
+    class Meta:
+        model = models.Switch
+        fields: list[str] = []
+
+
 class FindingFilter(df.FilterSet):
     site = df.CharFilter(field_name="site_code")
     severity = df.ChoiceFilter(
@@ -83,4 +127,12 @@ class TapChangeFilter(df.FilterSet):
         fields: list[str] = []
 
 
-__all__ = ["CTFilter", "DeviceFilter", "FindingFilter", "TapChangeFilter"]
+__all__ = [
+    "CTFilter",
+    "DeviceFilter",
+    "EquipmentFilter",
+    "FindingFilter",
+    "SwitchFilter",
+    "TapChangeFilter",
+    "WireFilter",
+]

@@ -133,6 +133,12 @@ class ProcedureSerializer(serializers.Serializer):
         return True if row is None else bool(row.stale)
 
 
+class ProcedureDetailSerializer(ProcedureSerializer):
+    """A procedure with its stored verdict JSON (null until computed)."""
+
+    verdict = serializers.JSONField(allow_null=True)
+
+
 class FindingSerializer(serializers.Serializer):
     """design.md's findings JSON."""
 
@@ -236,24 +242,3 @@ class WhatIfSerializer(serializers.Serializer):
     )
     wires = WhatIfWireSerializer(many=True, required=False)
     inputs = WhatIfInputSerializer(many=True, required=False)
-
-
-class CTPatchSerializer(serializers.Serializer):
-    """The fields of a CT a PATCH may change (the services check the rules of the record)."""
-
-    phase = serializers.ChoiceField(choices=["A", "B", "C", "N"], required=False)
-    set = serializers.CharField(max_length=60, required=False, allow_blank=True)
-    secondary_a = serializers.ChoiceField(choices=[1, 5], required=False)
-    accuracy = serializers.CharField(max_length=30, required=False, allow_blank=True)
-    rated_burden_va = serializers.FloatField(required=False, allow_null=True, min_value=0)
-    knee_v = serializers.FloatField(required=False, allow_null=True, min_value=0)
-    winding_ohm = serializers.FloatField(required=False, allow_null=True, min_value=0)
-    rating_factor = serializers.FloatField(required=False, min_value=0)
-    nameplate = serializers.CharField(required=False, allow_blank=True, max_length=2000)
-    terminals = serializers.DictField(
-        child=serializers.FloatField(min_value=0), required=False, help_text="name: primary A"
-    )
-    in_use = serializers.ListField(
-        child=serializers.CharField(max_length=30), min_length=2, max_length=2, required=False
-    )
-    reason = serializers.CharField(max_length=150, required=False, allow_blank=True)

@@ -2,24 +2,43 @@
 documentation pages (served from the installed package, no CDN) at /api/v1/docs/."""
 
 import os
+from typing import Any
 
-from django.urls import path
+from django.urls import URLPattern, path
 from drf_spectacular.views import SpectacularAPIView, SpectacularSwaggerView
 
 from api import views
+from api import views_record as record
 
 site = "sites/<str:site>/"
+
+
+def _record(plural: str, key: str, listing: Any, detail: Any, name: str) -> list[URLPattern]:
+    """A record resource: its list (GET, POST) and its detail (GET, PATCH, DELETE)."""
+    return [
+        path(f"{site}{plural}/", listing.as_view(), name=f"{name}-list"),
+        path(f"{site}{plural}/<str:{key}>/", detail.as_view(), name=f"{name}-detail"),
+    ]
+
 
 urlpatterns = [
     path("schema/", SpectacularAPIView.as_view(), name="schema"),
     path("docs/", SpectacularSwaggerView.as_view(url_name="schema"), name="docs"),
-    path("sites/", views.SiteList.as_view(), name="site-list"),
+    path("sites/", record.SiteList.as_view(), name="site-list"),
     path("sites/import/", views.SiteImport.as_view(), name="site-import"),
-    path(site, views.SiteDetail.as_view(), name="site-detail"),
+    path(site, record.SiteDetail.as_view(), name="site-detail"),
     path(f"{site}export/", views.SiteExport.as_view(), name="site-export"),
     path(f"{site}check/", views.DraftCheck.as_view(), name="site-check"),
-    path(f"{site}cts/", views.CTList.as_view(), name="ct-list"),
-    path(f"{site}cts/<str:code>/", views.CTDetail.as_view(), name="ct-detail"),
+    *_record("buses", "code", record.BusList, record.BusDetail, "bus"),
+    *_record("equipment", "code", record.EquipmentList, record.EquipmentDetail, "equipment"),
+    *_record(
+        "terminal-blocks",
+        "code",
+        record.TerminalBlockList,
+        record.TerminalBlockDetail,
+        "terminal-block",
+    ),
+    *_record("cts", "code", record.CTList, record.CTDetail, "ct"),
     path(f"{site}cts/<str:code>/report/", views.CTReport.as_view(), name="ct-report"),
     path(
         f"{site}cts/<str:code>/report/<str:name>.<str:fmt>",
@@ -31,16 +50,18 @@ urlpatterns = [
     path(f"{site}cts/<str:code>/what-if/", views.CTWhatIf.as_view(), name="ct-what-if"),
     path(f"{site}circuits/", views.CircuitList.as_view(), name="circuit-list"),
     path(f"{site}circuits/<str:key>/", views.CircuitDetail.as_view(), name="circuit-detail"),
-    path(f"{site}devices/", views.DeviceList.as_view(), name="device-list"),
-    path(f"{site}devices/<str:code>/", views.DeviceDetail.as_view(), name="device-detail"),
+    *_record("devices", "code", record.DeviceList, record.DeviceDetail, "device"),
     path(f"{site}devices/<str:code>/cts/", views.DeviceCTs.as_view(), name="device-cts"),
     path(
         f"{site}devices/<str:code>/isolation-plan/",
         views.IsolationPlan.as_view(),
         name="device-plan",
     ),
-    path(f"{site}procedures/", views.ProcedureList.as_view(), name="procedure-list"),
-    path(f"{site}procedures/<str:code>/", views.ProcedureDetail.as_view(), name="procedure-detail"),
+    *_record("wires", "id", record.WireList, record.WireDetail, "wire"),
+    *_record("links", "id", record.LinkList, record.LinkDetail, "link"),
+    *_record("grounds", "id", record.GroundList, record.GroundDetail, "ground"),
+    *_record("switches", "code", record.SwitchList, record.SwitchDetail, "switch"),
+    *_record("procedures", "code", record.ProcedureList, record.ProcedureDetail, "procedure"),
     path(
         f"{site}procedures/<str:code>/check/",
         views.ProcedureCheck.as_view(),

@@ -20,11 +20,11 @@ from analysis import actions, selectors
 from analysis.compute import ct_plots
 from analysis.engine import ProcedureError
 from api import filters, serializers
-from api.errors import CodeNotFound, FieldErrors, PreconditionFailed, PreconditionRequired
+from api.errors import CodeNotFound, FieldErrors
 from api.pagination import ResultPagination
 from inventory import models as inv
 from inventory import selectors as records
-from inventory.services import SiteImportError, ct_change_tap, ct_save, site_import
+from inventory.services import SiteImportError, ct_change_tap, site_import
 
 # ---------------------------------------------------------------------------------------------
 # helpers
@@ -88,23 +88,6 @@ class SiteScoped:
 # sites
 
 
-class SiteList(generics.ListAPIView):
-    """Every site with its counts and whether its stored results are current."""
-
-    serializer_class = serializers.SiteSerializer
-    queryset = selectors.sites_overview()
-    pagination_class = None
-
-
-class SiteDetail(SiteScoped, APIView):
-    """One site with its counts and the state of its stored results."""
-
-    @extend_schema(responses=serializers.SiteSerializer)
-    def get(self, request: Request, site: str) -> Response:
-        row = selectors.sites_overview().filter(pk=self.site.pk).first()
-        return Response(serializers.SiteSerializer(row).data)
-
-
 class SiteExport(SiteScoped, APIView):
     """The site file (``loopkeep.site/1``) of a stored site."""
 
@@ -152,143 +135,9 @@ class SiteImport(APIView):
 # the record
 
 
-class CTList(SiteScoped, generics.ListAPIView):
-    """A site's CTs with their terminal positions, tap in use and its ratio."""
-
-    serializer_class = serializers.CTSerializer
-    filterset_class = filters.CTFilter
-
-    def get_queryset(self) -> Any:
-        if getattr(self, "swagger_fake_view", False):  # the schema generator
-            return inv.CurrentTransformer.objects.none()
-        return records.cts_queryset(site_id=self.site.pk)
-
-
-def _etag(site: inv.Site) -> str:
+def etag(site: inv.Site) -> str:
     """The version of a site's record a client read: any write to the site bumps it."""
     return f'"{site.pk}-{site.revision}"'
-
-
-class CTDetail(SiteScoped, generics.RetrieveAPIView):
-    """A CT. ``PATCH`` changes its fields, winding or tap through the CT service (a tap change
-    is recorded as an event); it needs ``If-Match`` with the ``ETag`` of a read (428 without
-    it, 412 when the site's record changed since)."""
-
-    serializer_class = serializers.CTSerializer
-
-    def get_object(self) -> Any:
-        code, site = self.kwargs["code"], self.kwargs["site"]
-        ct = records.cts_queryset(site_id=self.site.pk).filter(code=code).first()
-        if ct is None:
-            raise CodeNotFound(
-                "CT", code, records.codes(inv.CurrentTransformer, site_id=self.site.pk), site
-            )
-        return ct
-
-    def retrieve(self, request: Request, *args: Any, **kwargs: Any) -> Response:
-        response = super().retrieve(request, *args, **kwargs)
-        response["ETag"] = _etag(self.site)
-        return response
-
-    @extend_schema(request=serializers.CTPatchSerializer, responses=serializers.CTSerializer)
-    def patch(self, request: Request, site: str, code: str) -> Response:
-        ct = self.get_object()
-        body = serializers.CTPatchSerializer(data=request.data)
-        body.is_valid(raise_exception=True)
-        data = dict(body.validated_data)
-        if "HTTP_IF_MATCH" not in request.META:
-            raise PreconditionRequired()
-        try:
-            with transaction.atomic():
-                locked = inv.Site.objects.select_for_update().get(pk=self.site.pk)
-                if request.META["HTTP_IF_MATCH"] != _etag(locked):
-                    raise PreconditionFailed()
-                terminals = data.pop("terminals", None)
-                in_use = data.pop("in_use", None)
-                reason = data.pop("reason", "")
-                for field, value in data.items():
-                    setattr(ct, "set_name" if field == "set" else field, value)
-                ct_save(
-                    ct=ct,
-                    terminals=terminals,
-                    in_use=None if in_use is None else (in_use[0], in_use[1]),
-                    by=request.user.get_username(),
-                    reason=reason,
-                )
-        except DjangoValidationError as exc:
-            raise FieldErrors(
-                "the change was refused; nothing was written",
-                [
-                    ("set" if k == "set_name" else k, m)
-                    for k, msgs in exc.message_dict.items()
-                    for m in msgs
-                ],
-            ) from exc
-        self._site_obj = inv.Site.objects.get(pk=self.site.pk)
-        response = Response(serializers.CTSerializer(self.get_object()).data)
-        response["ETag"] = _etag(self.site)
-        return response
-
-
-class DeviceList(SiteScoped, generics.ListAPIView):
-    """A site's devices with their inputs and outputs."""
-
-    serializer_class = serializers.DeviceSerializer
-    filterset_class = filters.DeviceFilter
-
-    def get_queryset(self) -> Any:
-        if getattr(self, "swagger_fake_view", False):  # the schema generator
-            return inv.Device.objects.none()
-        return records.devices_queryset(site_id=self.site.pk)
-
-
-class DeviceDetail(SiteScoped, generics.RetrieveAPIView):
-    serializer_class = serializers.DeviceSerializer
-
-    def get_object(self) -> Any:
-        code, site = self.kwargs["code"], self.kwargs["site"]
-        device = records.devices_queryset(site_id=self.site.pk).filter(code=code).first()
-        if device is None:
-            raise CodeNotFound(
-                "device", code, records.codes(inv.Device, site_id=self.site.pk), site
-            )
-        return device
-
-
-class ProcedureList(SiteScoped, generics.ListAPIView):
-    """A site's procedures with their steps and their stored verdict (``safe``)."""
-
-    serializer_class = serializers.ProcedureSerializer
-
-    def get_queryset(self) -> Any:
-        if getattr(self, "swagger_fake_view", False):  # the schema generator
-            return inv.Procedure.objects.none()
-        return records.procedures_queryset(site_id=self.site.pk)
-
-    def get_serializer_context(self) -> dict[str, Any]:
-        context = super().get_serializer_context()
-        context["verdicts"] = selectors.procedure_verdict_rows(site_id=self.site.pk)
-        return context
-
-
-class ProcedureDetail(SiteScoped, generics.RetrieveAPIView):
-    """A procedure, its steps and its stored verdict (the full verdict JSON under
-    ``verdict``, null until computed)."""
-
-    serializer_class = serializers.ProcedureSerializer
-
-    def retrieve(self, request: Request, *args: Any, **kwargs: Any) -> Response:
-        code, site = self.kwargs["code"], self.kwargs["site"]
-        proc = records.procedures_queryset(site_id=self.site.pk).filter(code=code).first()
-        if proc is None:
-            raise CodeNotFound(
-                "procedure", code, records.codes(inv.Procedure, site_id=self.site.pk), site
-            )
-        verdicts = selectors.procedure_verdict_rows(site_id=self.site.pk)
-        body = serializers.ProcedureSerializer(proc, context={"verdicts": verdicts}).data
-        row = verdicts.get(code)
-        body["verdict"] = None if row is None else row.verdict
-        return Response(body)
 
 
 class TapChangeList(generics.ListAPIView):

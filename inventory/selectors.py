@@ -372,3 +372,47 @@ def codes(model: type[Model], *, site_id: int | None = None) -> list[str]:
     """Every code of ``model`` (of one site), for "did you mean" on a 404."""
     qs = model.objects.all() if site_id is None else model.objects.filter(site_id=site_id)
     return list(qs.values_list("code", flat=True))
+
+
+def buses_queryset(*, site_id: int) -> QuerySet:
+    """A site's buses with their fault levels."""
+    return models.Bus.objects.filter(site_id=site_id)
+
+
+def equipment_queryset(*, site_id: int) -> QuerySet:
+    """A site's primary equipment with the bus each is on."""
+    return models.Equipment.objects.filter(site_id=site_id).select_related("bus")
+
+
+def terminal_blocks_queryset(*, site_id: int) -> QuerySet:
+    """A site's terminal blocks."""
+    return models.TerminalBlock.objects.filter(site_id=site_id)
+
+
+def wires_queryset(*, site_id: int) -> QuerySet:
+    """A site's wires with the terminals at their ends."""
+    return models.Wire.objects.filter(site_id=site_id).select_related(
+        "from_terminal", "to_terminal"
+    )
+
+
+def links_queryset(*, site_id: int) -> QuerySet:
+    """A site's zero-impedance links with the terminals they join."""
+    return models.Link.objects.filter(site_id=site_id).select_related("a", "b")
+
+
+def grounds_queryset(*, site_id: int) -> QuerySet:
+    """A site's ground points with their terminals."""
+    return models.Ground.objects.filter(site_id=site_id).select_related("terminal")
+
+
+def switches_queryset(*, site_id: int) -> QuerySet:
+    """A site's switches with their positions in order and their contacts (and the terminals
+    those join), in the order they were recorded."""
+    return models.Switch.objects.filter(site_id=site_id).prefetch_related(
+        Prefetch("positions", queryset=models.SwitchPosition.objects.order_by("order")),
+        Prefetch(
+            "contacts",
+            queryset=models.SwitchContact.objects.select_related("a", "b").order_by("id"),
+        ),
+    )

@@ -339,6 +339,27 @@ def site_save(*, site: models.Site) -> models.Site:
     return site
 
 
+@transaction.atomic
+def site_delete(*, site: models.Site) -> None:
+    """Delete a site and its whole record (results go with it). Rows that name terminals go
+    first: a terminal is protected while anything is wired to it."""
+    _lock_site(site.pk)
+    for query in (
+        models.ProcedureStep.objects.filter(procedure__site=site),
+        models.SwitchContact.objects.filter(switch__site=site),
+        models.DeviceInput.objects.filter(device__site=site),
+        models.DeviceOutput.objects.filter(device__site=site),
+        models.Wire.objects.filter(site=site),
+        models.Link.objects.filter(site=site),
+        models.Ground.objects.filter(site=site),
+        models.Terminal.objects.filter(site=site),
+        models.CurrentTransformer.objects.filter(site=site),
+        models.Equipment.objects.filter(site=site),
+    ):
+        query.delete()
+    site.delete()
+
+
 def _coded_save(model: type[djm.Model], obj: djm.Model, section: str, **target: Any) -> Any:
     _lock_site(obj.site_id)
     old_code = _old_code(model, obj)

@@ -139,6 +139,8 @@ SPECTACULAR_SETTINGS = {
     "SWAGGER_UI_FAVICON_HREF": "SIDECAR",
     "REDOC_DIST": "SIDECAR",
     "COMPONENT_SPLIT_REQUEST": True,
+    # 1 A / 5 A: CT secondaries and device inputs share one enum.
+    "ENUM_NAME_OVERRIDES": {"RatedAmperesEnum": [(1, 1), (5, 5)]},
     "POSTPROCESSING_HOOKS": [
         "drf_spectacular.hooks.postprocess_schema_enums",
         "api.schema.add_error_responses",
