@@ -15,7 +15,7 @@ import difflib
 from collections.abc import Iterable
 from typing import Any
 
-from django.core.exceptions import PermissionDenied
+from django.core.exceptions import PermissionDenied, RequestDataTooBig
 from django.http import Http404
 from rest_framework import exceptions, status
 from rest_framework.response import Response
@@ -109,7 +109,10 @@ def _code(exc: exceptions.APIException) -> str:
 
 def exception_handler(exc: Exception, context: dict[str, Any]) -> Response | None:
     """DRF's handler, then the body reshaped to the one error shape."""
-    if isinstance(exc, Http404):
+    if isinstance(exc, RequestDataTooBig):
+        # Django's own body limit (DATA_UPLOAD_MAX_MEMORY_SIZE), met when DRF reads the body
+        exc = RequestTooLarge(f"the body is larger than this API reads ({exc})")
+    elif isinstance(exc, Http404):
         exc = exceptions.NotFound(str(exc) or "not found")
     elif isinstance(exc, PermissionDenied):
         exc = exceptions.PermissionDenied(str(exc) or None)

@@ -29,12 +29,22 @@ ERROR_SCHEMA: dict[str, Any] = {
     "required": ["status", "code", "detail", "errors"],
 }
 
+IF_MATCH: dict[str, Any] = {
+    "in": "header",
+    "name": "If-Match",
+    "required": True,
+    "schema": {"type": "string"},
+    "description": "the ETag of your last read of the site's record (428 without it, 412 when "
+    "the record changed since)",
+}
+
 _TEXT = {
     "400": "invalid request: each error names its field or JSON pointer; nothing was written",
     "401": "not signed in",
     "403": "the account's role does not allow this",
     "404": "unknown code (with the nearest codes that exist)",
     "405": "method not allowed",
+    "409": "the write clashes with the record (the code exists, or it is still in use)",
     "412": "the record changed since the ETag given in If-Match",
     "413": "request body too large",
     "415": "unsupported media type",
@@ -56,8 +66,13 @@ def add_error_responses(result: dict[str, Any], generator: Any, **kwargs: Any) -
                 codes += ["400"]
             if method in {"post", "put", "patch"}:
                 codes += ["413", "415"]
-            if method in {"put", "patch"}:
+            if method in {"post", "delete"}:
+                codes += ["409"]
+            if method in {"put", "patch", "delete"}:
                 codes += ["412", "428"]
+                params = operation.setdefault("parameters", [])
+                if not any(p.get("name") == "If-Match" for p in params):
+                    params.append(IF_MATCH)
             responses = operation.setdefault("responses", {})
             for code in sorted(codes):
                 responses.setdefault(code, {"description": _TEXT[code], "content": ref})

@@ -13,11 +13,13 @@ from api import views_record as record
 site = "sites/<str:site>/"
 
 
-def _record(plural: str, key: str, listing: Any, detail: Any, name: str) -> list[URLPattern]:
+def _record(
+    plural: str, key: str, listing: Any, detail: Any, name: str, converter: str = "str"
+) -> list[URLPattern]:
     """A record resource: its list (GET, POST) and its detail (GET, PATCH, DELETE)."""
     return [
         path(f"{site}{plural}/", listing.as_view(), name=f"{name}-list"),
-        path(f"{site}{plural}/<str:{key}>/", detail.as_view(), name=f"{name}-detail"),
+        path(f"{site}{plural}/<{converter}:{key}>/", detail.as_view(), name=f"{name}-detail"),
     ]
 
 
@@ -60,7 +62,8 @@ urlpatterns = [
     *_record("wires", "id", record.WireList, record.WireDetail, "wire"),
     *_record("links", "id", record.LinkList, record.LinkDetail, "link"),
     *_record("grounds", "id", record.GroundList, record.GroundDetail, "ground"),
-    *_record("switches", "code", record.SwitchList, record.SwitchDetail, "switch"),
+    # a switch code is GROUP/POLE
+    *_record("switches", "code", record.SwitchList, record.SwitchDetail, "switch", "path"),
     *_record("procedures", "code", record.ProcedureList, record.ProcedureDetail, "procedure"),
     path(
         f"{site}procedures/<str:code>/check/",

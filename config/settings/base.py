@@ -120,6 +120,9 @@ REST_FRAMEWORK = {
     "DEFAULT_PAGINATION_CLASS": "api.pagination.CodePagination",
     "PAGE_SIZE": 50,
     "EXCEPTION_HANDLER": "api.errors.exception_handler",
+    # JSON only, size-limited (413); another content type is a 415. A view that takes uploads
+    # names its own parsers.
+    "DEFAULT_PARSER_CLASSES": ["api.parsers.LimitedJSONParser"],
     "DEFAULT_THROTTLE_CLASSES": ["rest_framework.throttling.UserRateThrottle"],
     "DEFAULT_THROTTLE_RATES": {"user": os.environ.get("API_USER_RATE", "6000/min")},
 }

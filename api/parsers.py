@@ -1,0 +1,42 @@
+"""The API reads JSON only (anything else is a 415 in the one error shape), and no more of it
+than ``DATA_UPLOAD_MAX_MEMORY_SIZE`` bytes: a larger body is a 413, refused from its
+``Content-Length`` before it is read, or as soon as a body without one passes the limit."""
+
+from __future__ import annotations
+
+import io
+from typing import Any
+
+from django.conf import settings
+from rest_framework.parsers import JSONParser
+
+from api.errors import RequestTooLarge
+
+
+def body_limit() -> int | None:
+    """The largest body the API reads, in bytes (None: no limit)."""
+    return settings.DATA_UPLOAD_MAX_MEMORY_SIZE
+
+
+class LimitedJSONParser(JSONParser):
+    """DRF's JSON parser behind the size limit (DRF reads the raw stream, which Django's own
+    ``DATA_UPLOAD_MAX_MEMORY_SIZE`` check does not cover)."""
+
+    def parse(self, stream: Any, media_type: str | None = None, parser_context: Any = None) -> Any:
+        limit = body_limit()
+        if limit is not None:
+            request = (parser_context or {}).get("request")
+            meta = getattr(request, "META", {})
+            try:
+                declared = int(meta.get("CONTENT_LENGTH") or 0)
+            except ValueError:
+                declared = 0
+            if declared > limit:
+                raise RequestTooLarge(
+                    f"the body is {declared} bytes; this API reads {limit} at most"
+                )
+            data = stream.read(limit + 1)
+            if len(data) > limit:
+                raise RequestTooLarge(f"the body is over {limit} bytes; this API reads no more")
+            stream = io.BytesIO(data)
+        return super().parse(stream, media_type, parser_context)
