@@ -44,6 +44,34 @@ def site_netlist(
     return hit
 
 
+_VERDICTS_KEPT = 512
+_verdicts: OrderedDict[tuple[int, int, str], dict[str, Any]] = OrderedDict()
+_verdicts_lock = threading.Lock()
+
+
+def procedure_check_at(
+    site_id: int, revision: int, procedure: str, load: Callable[[], dict[str, Any]]
+) -> dict[str, Any]:
+    """The verdict JSON of a stored procedure of a site at ``revision``, computed now unless
+    this process computed it already. The check is a function of the record alone, and the
+    record at a revision never changes (any write bumps the revision), so the verdict of
+    ``(site, revision, procedure)`` is kept, process-wide, for the last few hundred asked:
+    an edit is a new key, never a stale answer. The caller must not change the body."""
+    key = (site_id, revision, procedure)
+    with _verdicts_lock:
+        hit = _verdicts.get(key)
+        if hit is not None:
+            _verdicts.move_to_end(key)
+            return hit
+    doc, netlist = site_netlist(site_id, revision, load)
+    verdict = procedure_check(doc, procedure, netlist=netlist)
+    with _verdicts_lock:
+        _verdicts[key] = verdict
+        while len(_verdicts) > _VERDICTS_KEPT:
+            _verdicts.popitem(last=False)
+    return verdict
+
+
 def procedure_check(
     doc: dict[str, Any], procedure: str, *, netlist: engine.Netlist | None = None
 ) -> dict[str, Any]:

@@ -13,8 +13,8 @@ from rest_framework import serializers
 
 from inventory import choices
 
-CODE = {"max_length": 60}
-LABEL = {"max_length": 100, "help_text": "terminal OWNER:NAME, e.g. TB-101:4"}
+CODE: dict[str, Any] = {"max_length": 60}
+LABEL: dict[str, Any] = {"max_length": 100, "help_text": "terminal OWNER:NAME, e.g. TB-101:4"}
 
 
 class _Renamed(serializers.Serializer):
@@ -122,7 +122,7 @@ class SwitchSerializer(serializers.Serializer):
 # ---------------------------------------------------------------------------------------------
 # write bodies (POST creates: code and the required fields; PATCH changes what it names)
 
-_FLOAT = {"required": False, "allow_null": True, "min_value": 0}
+_FLOAT: dict[str, Any] = {"required": False, "allow_null": True, "min_value": 0}
 
 
 class SiteWriteSerializer(serializers.Serializer):
@@ -215,8 +215,8 @@ class DeviceWriteSerializer(serializers.Serializer):
         child=serializers.CharField(max_length=20), required=False, max_length=50
     )
     ratio_setting = serializers.CharField(max_length=20, required=False, allow_blank=True)
-    inputs = DeviceInputSerializer(many=True, required=False, max_length=100)
-    outputs = DeviceOutputSerializer(many=True, required=False, max_length=100)
+    inputs = DeviceInputSerializer(many=True, required=False, max_length=100)  # type: ignore[call-arg]
+    outputs = DeviceOutputSerializer(many=True, required=False, max_length=100)  # type: ignore[call-arg]
 
 
 class WireWriteSerializer(_Renamed):
@@ -252,7 +252,7 @@ class SwitchWriteSerializer(serializers.Serializer):
         child=serializers.CharField(max_length=30), min_length=1, max_length=20
     )
     normal = serializers.CharField(max_length=30)
-    contacts = ContactSerializer(many=True, max_length=100)
+    contacts = ContactSerializer(many=True, max_length=100)  # type: ignore[call-arg]
 
 
 class ProcedureWriteSerializer(serializers.Serializer):

@@ -279,9 +279,12 @@ class ProcedureCheck(SiteScoped, APIView):
     @extend_schema(request=None, responses=OpenApiTypes.OBJECT)
     def post(self, request: Request, site: str, code: str) -> Response:
         _coded(inv.Procedure, self.site, code, "procedure")
+        site_obj = self.site
         try:
-            doc, netlist = _site_input(self.site)
-            return Response(actions.procedure_check(doc, code, netlist=netlist))
+            verdict = actions.procedure_check_at(
+                site_obj.pk, site_obj.revision, code, lambda: _document(site_obj)
+            )
+            return Response(verdict)
         except ProcedureError as exc:
             raise FieldErrors("the procedure cannot be checked", [("steps", str(exc))]) from exc
 

@@ -32,7 +32,7 @@ from api import filters
 from api import record_serializers as rs
 from api import serializers as out
 from api.errors import CodeNotFound, Conflict, FieldErrors, PreconditionFailed, PreconditionRequired
-from api.views import SiteScoped, _site, etag
+from api.views import SiteScoped, etag
 from inventory import models as inv
 from inventory import selectors as records
 from inventory import services
@@ -68,7 +68,7 @@ def guarded_write(request: Request, site: inv.Site, write: Callable[[], Any]) ->
         return write()
 
 
-def _by_code(model: type[Model], site: inv.Site, code: str | None, what: str) -> Any:
+def _by_code(model: Any, site: inv.Site, code: str | None, what: str) -> Any:
     """A coded object the body names (``equipment``, ``bus``), or a 400 saying which exist."""
     if code is None:
         return None
@@ -198,7 +198,7 @@ class Resource:
     """One kind of record as an API resource."""
 
     noun: str
-    model: type[Model]
+    model: Any  # a model class of ``inventory.models``
     queryset: Callable[..., QuerySet]
     output: type[serializers.Serializer]
     write: type[serializers.Serializer]
@@ -325,16 +325,18 @@ class RecordSchema(AutoSchema):
     output serializer out; 201 on create, 204 on delete."""
 
     def get_request_serializer(self) -> Any:
+        view: Any = self.view
         if self.method in {"POST", "PATCH", "PUT"}:
-            return self.view.write_serializer()
+            return view.write_serializer()
         return None
 
     def get_response_serializers(self) -> Any:
+        view: Any = self.view
         if self.method == "DELETE":
             return {204: OpenApiResponse(description="deleted")}
         if self.method == "POST":
-            return {201: self.view.output_serializer()}
-        return self.view.output_serializer()
+            return {201: view.output_serializer()}
+        return view.output_serializer()
 
 
 def _saved_response(view: Any, obj: Any, code: int = status.HTTP_200_OK) -> Response:
@@ -345,19 +347,11 @@ def _saved_response(view: Any, obj: Any, code: int = status.HTTP_200_OK) -> Resp
     return response
 
 
-class RecordList(SiteScoped, generics.ListAPIView):
-    """Base of the lists: ``GET`` (cursor pages, filters, ``ordering``) and ``POST``."""
+class _Resourceful:
+    """What the schema and the writes ask of a resource's views."""
 
     resource: ClassVar[Resource]
-    schema = RecordSchema()
-    filter_backends = [DjangoFilterBackend, OrderingFilter]
-
-    def __init_subclass__(cls, **kwargs: Any) -> None:
-        super().__init_subclass__(**kwargs)
-        cls.serializer_class = cls.resource.output
-        cls.filterset_class = cls.resource.filterset
-        cls.ordering = cls.resource.ordering
-        cls.ordering_fields = list(cls.resource.ordering)
+    get_serializer_context: Callable[[], dict[str, Any]]
 
     def output_serializer(self) -> Any:
         return self.resource.output
@@ -367,6 +361,23 @@ class RecordList(SiteScoped, generics.ListAPIView):
 
     def render_one(self, obj: Any) -> Any:
         return self.resource.output(obj, context=self.get_serializer_context()).data
+
+
+class RecordList(_Resourceful, SiteScoped, generics.ListAPIView):
+    """Base of the lists: ``GET`` (cursor pages, filters, ``ordering``) and ``POST``."""
+
+    schema = RecordSchema()
+    filter_backends = [DjangoFilterBackend, OrderingFilter]
+    filterset_class: Any = None
+    ordering: Any = None
+    ordering_fields: Any = None
+
+    def __init_subclass__(cls, **kwargs: Any) -> None:
+        super().__init_subclass__(**kwargs)
+        cls.serializer_class = cls.resource.output
+        cls.filterset_class = cls.resource.filterset
+        cls.ordering = cls.resource.ordering
+        cls.ordering_fields = list(cls.resource.ordering)
 
     def get_queryset(self) -> Any:
         if getattr(self, "swagger_fake_view", False):  # the schema generator
@@ -401,10 +412,9 @@ class RecordList(SiteScoped, generics.ListAPIView):
         return _saved_response(self, obj, status.HTTP_201_CREATED)
 
 
-class RecordDetail(SiteScoped, generics.GenericAPIView):
+class RecordDetail(_Resourceful, SiteScoped, generics.GenericAPIView):
     """Base of the details: ``GET``, ``PATCH`` and ``DELETE`` (both with ``If-Match``)."""
 
-    resource: ClassVar[Resource]
     schema = RecordSchema()
     filter_backends: list[Any] = []
     pagination_class = None
@@ -412,10 +422,6 @@ class RecordDetail(SiteScoped, generics.GenericAPIView):
     def __init_subclass__(cls, **kwargs: Any) -> None:
         super().__init_subclass__(**kwargs)
         cls.serializer_class = cls.resource.output
-
-    output_serializer = RecordList.output_serializer
-    write_serializer = RecordList.write_serializer
-    render_one = RecordList.render_one
 
     def get_object(self) -> Any:
         res = self.resource
@@ -584,9 +590,9 @@ class SiteDetail(SiteScoped, generics.GenericAPIView):
     write_serializer = SiteList.write_serializer
 
     def _body(self, pk: int) -> Response:
-        row = results.sites_overview().filter(pk=pk).first()
+        row = results.sites_overview().get(pk=pk)
         response = Response(out.SiteSerializer(row).data)
-        response["ETag"] = etag(_site(row.code))
+        response["ETag"] = etag(row)
         return response
 
     def get(self, request: Request, site: str) -> Response:

@@ -505,3 +505,18 @@ def test_ct_patch_needs_a_current_etag_and_goes_through_the_rules(demo, editor, 
     assert retap.status_code == 200 and retap.json()["ratio"] == "800:5"
     history = viewer.get(f"{V1}/tap-changes/?ct=CB-132-A").json()["results"]
     assert history[-1]["to_ratio"] == "800:5" and history[-1]["changed_by"] == "u-editor"
+
+
+def test_report_and_history_queries_are_pinned(demo, viewer, django_assert_num_queries):
+    # token, role, site, the stored report with ``stale``
+    with django_assert_num_queries(4):
+        assert viewer.get(f"{V1}/sites/QFN/cts/CB-131-A/report/").status_code == 200
+    # token, role, the page of changes with CT and site, the CTs' terminals
+    with django_assert_num_queries(4):
+        rows = viewer.get(f"{V1}/tap-changes/?page_size=500").json()["results"]
+    assert len(rows) == inv.TapChange.objects.count() > 1
+    url = f"{V1}/sites/QFN/procedures/P-R132-OUT/check/"
+    first = viewer.post(url).json()
+    # token, role, site, the procedure's code: the verdict of this revision is kept
+    with django_assert_num_queries(4):
+        assert viewer.post(url).json() == first
