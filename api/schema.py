@@ -53,6 +53,72 @@ _TEXT = {
 }
 
 
+def _link(operation_id: str, key: str, with_etag: bool) -> dict[str, Any]:
+    parameters = {"site": "$request.path.site", key: f"$response.body#/{key}"}
+    if with_etag:
+        parameters["header.If-Match"] = "$response.header.ETag"
+    return {"operationId": operation_id, "parameters": parameters}
+
+
+def add_record_links(result: dict[str, Any], generator: Any, **kwargs: Any) -> dict[str, Any]:
+    """drf-spectacular post-processing hook: OpenAPI links from a record's create (201) to
+    reading, changing and deleting what it created (its code or id, and the ETag the create
+    answered), so stateful clients and tests can follow them."""
+    paths = result.get("paths", {})
+    for path, item in paths.items():
+        created = item.get("post", {}).get("responses", {}).get("201")
+        if created is None or not path.startswith("/api/v1/sites/{site}/"):
+            continue
+        detail = next(
+            (
+                (p, k)
+                for p, k in ((f"{path}{{code}}/", "code"), (f"{path}{{id}}/", "id"))
+                if p in paths
+            ),
+            None,
+        )
+        if detail is None:
+            continue
+        detail_path, key = detail
+        links = created.setdefault("links", {})
+        for method, name, etag in (
+            ("get", "Read", False),
+            ("patch", "Change", True),
+            ("delete", "Delete", True),
+        ):
+            operation = paths[detail_path].get(method)
+            if operation and "operationId" in operation:
+                links[f"{name}Created"] = _link(operation["operationId"], key, etag)
+    _add_site_links(paths)
+    return result
+
+
+def _add_site_links(paths: dict[str, Any]) -> None:
+    """From a new site (201) to reading, changing and deleting it and to creating records in
+    it, so a stateful client can build a site up from nothing."""
+    created = paths.get("/api/v1/sites/", {}).get("post", {}).get("responses", {}).get("201")
+    if created is None:
+        return
+    links = created.setdefault("links", {})
+    site = {"site": "$response.body#/code"}
+    for method, name in (("get", "Read"), ("patch", "Change"), ("delete", "Delete")):
+        operation = paths.get("/api/v1/sites/{site}/", {}).get(method)
+        if operation:
+            extra = {"header.If-Match": "$response.header.ETag"} if method != "get" else {}
+            links[f"{name}Site"] = {
+                "operationId": operation["operationId"],
+                "parameters": {**site, **extra},
+            }
+    for path, item in paths.items():
+        operation = item.get("post")
+        if operation and "201" in operation.get("responses", {}) and path.count("{") == 1:
+            if path.startswith("/api/v1/sites/{site}/"):
+                links[f"CreateIn_{operation['operationId']}"] = {
+                    "operationId": operation["operationId"],
+                    "parameters": site,
+                }
+
+
 def add_error_responses(result: dict[str, Any], generator: Any, **kwargs: Any) -> dict[str, Any]:
     """drf-spectacular post-processing hook: the error responses of every operation."""
     result.setdefault("components", {}).setdefault("schemas", {})["Error"] = ERROR_SCHEMA

@@ -147,6 +147,7 @@ SPECTACULAR_SETTINGS = {
     "POSTPROCESSING_HOOKS": [
         "drf_spectacular.hooks.postprocess_schema_enums",
         "api.schema.add_error_responses",
+        "api.schema.add_record_links",
     ],
 }
 

@@ -65,3 +65,35 @@ def test_every_operation_answers_as_documented(case, site, editor):
             checks.response_schema_conformance,
         ],
     )
+
+
+def test_created_records_can_be_read_changed_and_deleted_through_the_links(site, editor):
+    """Stateful: sequences that follow the schema's links from a create (201) to reading,
+    changing (If-Match from the create's ETag) and deleting what was created; every answer
+    checked as above."""
+    token = editor._credentials["HTTP_AUTHORIZATION"]
+
+    class Workflow(schema.as_state_machine()):  # type: ignore[misc]
+        def get_call_kwargs(self, case):
+            return {"headers": {"Authorization": token}}
+
+        def validate_response(self, response, case, **kwargs):
+            case.validate_response(
+                response,
+                checks=[
+                    checks.not_a_server_error,
+                    checks.status_code_conformance,
+                    checks.content_type_conformance,
+                    checks.response_schema_conformance,
+                ],
+            )
+
+    Workflow.run(
+        settings=settings(
+            max_examples=25,
+            stateful_step_count=4,
+            deadline=None,
+            derandomize=True,
+            suppress_health_check=list(HealthCheck),
+        )
+    )
