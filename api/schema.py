@@ -110,13 +110,13 @@ def _add_site_links(paths: dict[str, Any]) -> None:
                 "parameters": {**site, **extra},
             }
     for path, item in paths.items():
-        operation = item.get("post")
-        if operation and "201" in operation.get("responses", {}) and path.count("{") == 1:
-            if path.startswith("/api/v1/sites/{site}/"):
-                links[f"CreateIn_{operation['operationId']}"] = {
-                    "operationId": operation["operationId"],
-                    "parameters": site,
-                }
+        operation = item.get("post") or {}
+        in_site = path.startswith("/api/v1/sites/{site}/") and path.count("{") == 1
+        if in_site and "201" in operation.get("responses", {}):
+            links[f"CreateIn_{operation['operationId']}"] = {
+                "operationId": operation["operationId"],
+                "parameters": site,
+            }
 
 
 def add_error_responses(result: dict[str, Any], generator: Any, **kwargs: Any) -> dict[str, Any]:
