@@ -357,7 +357,7 @@ class CTTapChange(SiteScoped, APIView):
         mismatched = sorted(
             {f["device"] for f in report["findings"] if f["code"] == "ratio_setting_mismatch"}
         )
-        return Response(
+        response = Response(
             {
                 "site": site,
                 "ct": code,
@@ -370,6 +370,8 @@ class CTTapChange(SiteScoped, APIView):
                 "ratio_setting_mismatch": mismatched,
             }
         )
+        response["ETag"] = etag(inv.Site.objects.get(pk=self.site.pk))
+        return response
 
 
 class CTWhatIf(SiteScoped, APIView):

@@ -152,6 +152,24 @@ OPERATIONS = [
     ("get", "/sites/TST/procedures/P-1/", None, 200),
     ("patch", "/sites/TST/procedures/P-1/", {"author": "J. Planner"}, 200),
     ("delete", "/sites/TST/procedures/P-1/", None, 204),
+    # writes that are actions rather than resources
+    ("post", "/sites/TST/cts/CB-1-A/tap-change/", {"in_use": ["X1", "X5"]}, 200),
+    ("post", "/sites/import/", {**small_site(), "site": {"code": "TST", "name": "Re-read"}}, 200),
+]
+
+# Reads and answers that store nothing: every role from viewer up gets them, nobody
+# anonymous does.
+ANSWERS = [
+    ("get", "/sites/TST/export/", None),
+    ("get", "/sites/TST/circuits/", None),
+    ("get", "/sites/TST/cts/CB-1-A/circuits/", None),
+    ("get", "/sites/TST/devices/R-1/cts/", None),
+    ("get", "/findings/", None),
+    ("get", "/tap-changes/", None),
+    ("post", "/sites/TST/procedures/P-1/check/", None),
+    ("post", "/sites/TST/check/", {"steps": [{"set": "TS-1/T1", "to": "open"}]}),
+    ("get", "/sites/TST/devices/R-1/isolation-plan/", None),
+    ("post", "/sites/TST/cts/CB-1-A/what-if/", {"in_use": ["X1", "X5"]}),
 ]
 
 
@@ -212,6 +230,16 @@ def test_editor_reads_and_writes(tst, editor, method, path, body, status):
         assert _state() != before
         if status != 204 and "/TST/" in _url(path):
             assert response["ETag"] == _etag(editor)
+
+
+@pytest.mark.parametrize(("method", "path", "body"), ANSWERS, ids=[a[1] for a in ANSWERS])
+def test_answers_are_for_every_role_and_store_nothing(tst, viewer, editor, method, path, body):
+    assert _send(APIClient(), method, path, body).status_code == 401
+    before = _state()
+    for client in (viewer, editor):
+        response = _send(client, method, path, body)
+        assert response.status_code == 200, response.content
+    assert _state() == before
 
 
 # ---------------------------------------------------------------------------------------------
