@@ -6,10 +6,13 @@ from __future__ import annotations
 
 import copy
 import json
+import logging
 import threading
 from collections import OrderedDict
 from collections.abc import Callable
 from typing import Any
+
+from django.core.cache import cache
 
 from analysis import engine
 from analysis.compute import ct_report
@@ -18,6 +21,33 @@ from inventory.sitefile.validate import validate_site_document
 
 _SITES_KEPT = 8
 _local = threading.local()
+_SHARED_SECONDS = 24 * 3600
+_log = logging.getLogger(__name__)
+
+
+def shared_at_revision(key: str, compute: Callable[[], Any]) -> Any:
+    """A value computed from a site's record at one revision, kept in Django's cache (shared
+    by every process of the server when the cache is Redis, ``CACHE_URL``). The record at a
+    revision never changes, so the key (which must name the revision) never goes stale. The
+    cache hands back a copy on every get. A cache that fails is passed by: the answer is then
+    computed, never refused."""
+    try:
+        hit = cache.get(key)
+    except Exception:  # any backend error: compute instead
+        _log.warning("cache unavailable for %s", key, exc_info=True)
+        return compute()
+    if hit is None:
+        hit = compute()
+        try:
+            cache.set(key, hit, _SHARED_SECONDS)
+        except Exception:
+            _log.warning("cache unavailable for %s", key, exc_info=True)
+    return hit
+
+
+def site_document_at(site_id: int, revision: int, load: Callable[[], dict[str, Any]]) -> Any:
+    """The site document at ``revision`` (``load`` reads it from the database), shared."""
+    return shared_at_revision(f"loopkeep:site-document:{site_id}:{revision}", load)
 
 
 def site_netlist(
@@ -56,20 +86,32 @@ def procedure_check_at(
     this process computed it already. The check is a function of the record alone, and the
     record at a revision never changes (any write bumps the revision), so the verdict of
     ``(site, revision, procedure)`` is kept, process-wide, for the last few hundred asked:
-    an edit is a new key, never a stale answer. The caller must not change the body."""
+    an edit is a new key, never a stale answer. Another process's verdict is taken from the
+    shared cache (``shared_at_revision``). The caller must not change the body."""
     key = (site_id, revision, procedure)
     with _verdicts_lock:
         hit = _verdicts.get(key)
         if hit is not None:
             _verdicts.move_to_end(key)
             return hit
-    doc, netlist = site_netlist(site_id, revision, load)
-    verdict = procedure_check(doc, procedure, netlist=netlist)
+
+    def compute() -> dict[str, Any]:
+        doc, netlist = site_netlist(site_id, revision, load)
+        return procedure_check(doc, procedure, netlist=netlist)
+
+    verdict = shared_at_revision(f"loopkeep:verdict:{site_id}:{revision}:{procedure}", compute)
     with _verdicts_lock:
         _verdicts[key] = verdict
         while len(_verdicts) > _VERDICTS_KEPT:
             _verdicts.popitem(last=False)
     return verdict
+
+
+def clear_kept() -> None:
+    """Forget what this process kept (this thread's netlists, the verdicts)."""
+    _local.__dict__.clear()
+    with _verdicts_lock:
+        _verdicts.clear()
 
 
 def procedure_check(

@@ -4,6 +4,7 @@ writes through the services of ``inventory``."""
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any
 
 from django.core.exceptions import ValidationError as DjangoValidationError
@@ -48,9 +49,14 @@ def _document(site: inv.Site) -> dict[str, Any]:
     return records.site_document(site)
 
 
+def _shared_document(site: inv.Site) -> Callable[[], dict[str, Any]]:
+    """A loader of the site document at the site's revision, through the shared cache."""
+    return lambda: actions.site_document_at(site.pk, site.revision, lambda: _document(site))
+
+
 def _site_input(site: inv.Site) -> tuple[dict[str, Any], Any]:
     """The site document and netlist at the site's current revision (kept per thread)."""
-    return actions.site_netlist(site.pk, site.revision, lambda: _document(site))
+    return actions.site_netlist(site.pk, site.revision, _shared_document(site))
 
 
 def _printable_code(text: str) -> bool:
@@ -282,7 +288,7 @@ class ProcedureCheck(SiteScoped, APIView):
         site_obj = self.site
         try:
             verdict = actions.procedure_check_at(
-                site_obj.pk, site_obj.revision, code, lambda: _document(site_obj)
+                site_obj.pk, site_obj.revision, code, _shared_document(site_obj)
             )
             return Response(verdict)
         except ProcedureError as exc:

@@ -42,3 +42,15 @@ def _require_services(request: pytest.FixtureRequest) -> None:
         url = os.environ.get("CELERY_BROKER_URL", "")
         if not url or not broker_reachable(url):
             _missing(f"needs a reachable Celery broker (CELERY_BROKER_URL={url!r})")
+
+
+@pytest.fixture(autouse=True)
+def _fresh_answer_caches() -> None:
+    """Answers are kept by (site id, revision), which a rolled-back test database hands out
+    again to another site: every test starts with empty caches."""
+    from django.core.cache import cache
+
+    from analysis import actions
+
+    cache.clear()
+    actions.clear_kept()

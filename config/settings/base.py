@@ -151,6 +151,20 @@ SPECTACULAR_SETTINGS = {
     ],
 }
 
+# Django's cache: the per-user throttle counts and the record-at-a-revision answers the API
+# keeps (site documents, procedure verdicts). Redis (``CACHE_URL=redis://host:6379/N``) shares
+# them between the server's processes; unset, each process keeps its own.
+CACHES = {
+    "default": (
+        {
+            "BACKEND": "django.core.cache.backends.redis.RedisCache",
+            "LOCATION": os.environ["CACHE_URL"],
+        }
+        if os.environ.get("CACHE_URL")
+        else {"BACKEND": "django.core.cache.backends.locmem.LocMemCache"}
+    )
+}
+
 # Largest request body the API reads (a site file of a large substation is a few MB).
 DATA_UPLOAD_MAX_MEMORY_SIZE = int(os.environ.get("API_MAX_BODY_BYTES", str(20 * 1024 * 1024)))
 
