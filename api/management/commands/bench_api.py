@@ -4,7 +4,10 @@ concurrent keep-alive clients on loopback, beside a bare DRF list of 50 rows ser
 server (the floor). Prints p50/p95 latency and throughput per endpoint; a figure, not a test.
 
 Endpoints: the findings list (first page), a stored CT report, "which circuits share this CT",
-and a stored procedure checked now (the longest procedure of the sample sites).
+and a stored procedure checked now (the longest procedure of the sample sites). Run it with
+``CACHE_URL`` set as in production (Redis) so the server's processes share the site documents
+and verdicts they computed at a revision; without it each process keeps its own, and the
+first check of each procedure in each process reads the site from the database.
 """
 
 from __future__ import annotations
