@@ -63,7 +63,10 @@ def guarded_write(request: Request, site: inv.Site, write: Callable[[], Any]) ->
         raise PreconditionRequired()
     with transaction.atomic():
         locked = inv.Site.objects.select_for_update().get(pk=site.pk)
-        if request.META["HTTP_IF_MATCH"].strip() not in {etag(locked), "*"}:
+        # A proxy that compresses the body may have weakened the ETag (W/"..."): the revision
+        # in it is the same.
+        given = request.META["HTTP_IF_MATCH"].strip().removeprefix("W/")
+        if given not in {etag(locked), "*"}:
             raise PreconditionFailed()
         return write()
 
