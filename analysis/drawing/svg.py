@@ -1,0 +1,674 @@
+"""A circuit of the record drawn as SVG, laid out by graphviz ``dot``.
+
+What is drawn, for the part of the site asked for (a circuit, a device's circuits with its
+trip paths, or a CT's circuit):
+
+- a CT as one box: its code, phase and set, every terminal position of the winding in order
+  with its cumulative primary rating, the polarity terminal (the X1 end, position 0) marked
+  with a filled square, the tap in use in bold with its ratio;
+- every other owner of terminals (terminal block, test switch, device with its draw-out case,
+  equipment cabinet) as a framed group of its terminals;
+- wires (with their resistance), links, switch contacts (named by role: knife, shorting jaw,
+  case contact, shorting screw, slide link), temporary jumpers, device current inputs (a box
+  between their two terminals, with the burden) and ground points (a triangle);
+- with a step's state: closed contacts solid, open ones dashed and labelled ``open``, the
+  shorting paths in place thick and labelled ``SHORT`` with their current, lifted conductors
+  dashed ``LIFTED``, removed devices ``REMOVED``, a CT that would open drawn red with a
+  double-octagon ``OPEN SECONDARY`` marker (never colour alone), and the step's clamp-meter
+  readings on the device inputs and shorting paths.
+
+Layout: ``dot`` (left to right, CT side first) places the groups so that an arbitrary recorded
+netlist stays readable without hand placement; the elements are oriented by their distance
+from the CTs so the current's path reads left to right. Everything fed to ``dot`` is sorted,
+so the same record gives the same SVG, byte for byte (``dot`` is deterministic for the same
+input and version).
+"""
+
+from __future__ import annotations
+
+import html
+import re
+from collections import deque
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import graphviz
+
+import record as rec
+from analysis.drawing.states import StepState
+from analysis.engine.netlist import Netlist, Switch, build_netlist
+from analysis.textout import op_text
+
+# Our own neutral palette; meaning is always carried by text and line style as well.
+INK = "#2b2b2b"
+MUTED = "#8a8a8a"
+SHORT = "#0b6e75"
+DANGER = "#b3261e"
+DANGER_FILL = "#fbe9e7"
+FILLS = {
+    "device": "#f4f1ea",
+    "switch": "#eaf0f2",
+    "block": "#f2f2f2",
+    "equipment": "#ffffff",
+    "other": "#ffffff",
+}
+FONT = "Helvetica"
+
+_CONTACT_ROLE = {
+    "test_switch_pole": ("knife", "shorting jaw"),
+    "draw_out_case": ("case contact", "case short"),
+    "shorting_screw": ("contact", "shorting screw"),
+    "slide_link": ("slide link", "shorting contact"),
+}
+
+
+class DrawingError(ValueError):
+    """The part of the site asked for does not exist (the message names it and what does)."""
+
+
+def _natural(name: str) -> tuple[Any, ...]:
+    return tuple(int(p) if p.isdigit() else p for p in re.split(r"(\d+)", name))
+
+
+def _q(text: str) -> str:
+    """A DOT double-quoted string."""
+    return '"' + text.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n") + '"'
+
+
+def _h(text: str) -> str:
+    """Text for a graphviz HTML-like label."""
+    return html.escape(text, quote=True)
+
+
+def _sid(text: str) -> str:
+    """An SVG id made of the record's code (letters, digits, ``-`` and ``_`` only)."""
+    return re.sub(r"[^A-Za-z0-9_-]", "_", text)
+
+
+def _amps(a: float) -> str:
+    return f"{a:.2f} A"
+
+
+def as_netlist(source: Netlist | rec.SiteRecord | Mapping[str, Any]) -> Netlist:
+    """The engine netlist of ``source`` (a netlist is returned as it is)."""
+    if isinstance(source, Netlist):
+        return source
+    return build_netlist(source)
+
+
+# ---------------------------------------------------------------------------------------------
+# the part of the site to draw
+
+
+def _union(nl: Netlist) -> list[int]:
+    """Component of every terminal over every element, whatever its state (cached)."""
+    hit = nl.cache.get("drawing_union")
+    if hit is not None:
+        return list(hit)
+    parent = list(range(nl.n_terminals))
+
+    def find(x: int) -> int:
+        while parent[x] != x:
+            parent[x] = parent[parent[x]]
+            x = parent[x]
+        return x
+
+    def join(a: int, b: int) -> None:
+        ra, rb = find(a), find(b)
+        if ra != rb:
+            parent[max(ra, rb)] = min(ra, rb)
+
+    for k in nl.links:
+        join(k.a, k.b)
+    for c in nl.contacts:
+        join(c.a, c.b)
+    for w in nl.wires:
+        join(w.a, w.b)
+    for i in nl.inputs:
+        join(i.a, i.b)
+    for ct in nl.ct_list:
+        ts = sorted(ct.terminals.values())
+        for t in ts[1:]:
+            join(ts[0], t)
+    labels = [find(t) for t in range(nl.n_terminals)]
+    nl.cache["drawing_union"] = tuple(labels)
+    return labels
+
+
+def region(
+    nl: Netlist, *, circuit: str | None = None, device: str | None = None, ct: str | None = None
+) -> set[int]:
+    """Terminals to draw: the parts (over every element, open or closed) holding the CT of
+    ``circuit`` (``CKT-<CT code>``), ``ct`` or the terminals of ``device``, plus the trip
+    paths of every device with an input there. None of them: the whole site."""
+    if circuit is None and device is None and ct is None:
+        return set(range(nl.n_terminals))
+    seeds: set[int] = set()
+    if circuit is not None:
+        code = circuit.removeprefix("CKT-")
+        if code not in nl.cts or not circuit.startswith("CKT-"):
+            raise DrawingError(f"no circuit {circuit!r} at site {nl.site_code}")
+        seeds.update(nl.cts[code].terminals.values())
+    if ct is not None:
+        if ct not in nl.cts:
+            known = ", ".join(sorted(nl.cts)) or "none"
+            raise DrawingError(f"no CT {ct!r} at site {nl.site_code} (CTs: {known})")
+        seeds.update(nl.cts[ct].terminals.values())
+    if device is not None:
+        dev = nl.devices.get(device)
+        if dev is None:
+            known = ", ".join(sorted(nl.devices)) or "none"
+            raise DrawingError(f"no device {device!r} at site {nl.site_code} (devices: {known})")
+        seeds.update(t for i in dev.inputs for t in (i.a, i.b))
+        seeds.update(t for o in dev.outputs for t in (o.terminal, o.target))
+    lab = _union(nl)
+    chosen = {lab[t] for t in seeds}
+    for dev in nl.devices.values():
+        if any(lab[i.a] in chosen for i in dev.inputs):
+            chosen.update(lab[t] for o in dev.outputs for t in (o.terminal, o.target))
+    return {t for t in range(nl.n_terminals) if lab[t] in chosen}
+
+
+# ---------------------------------------------------------------------------------------------
+# DOT
+
+
+@dataclass
+class _Edge:
+    a: int
+    b: int
+    attrs: dict[str, str]
+    sort: tuple[Any, ...] = ()
+
+
+@dataclass
+class _Doc:
+    nl: Netlist
+    terms: list[int]
+    node: dict[int, str]
+    state: StepState | None
+    highlight: frozenset[str]
+    reading: dict[frozenset[str], float] = field(default_factory=dict)
+    lines: list[str] = field(default_factory=list)
+    edges: list[_Edge] = field(default_factory=list)
+
+
+def _switch_group(code: str) -> str:
+    return code.split("/", 1)[0]
+
+
+def _position(doc: _Doc, sw: Switch) -> str:
+    if doc.state is None:
+        return sw.normal
+    return str(doc.state.positions.get(sw.code, sw.normal))
+
+
+def _energized(doc: _Doc, equipment: str | None) -> bool:
+    if equipment is None:
+        return True
+    if doc.state is not None and doc.state.energized is not None:
+        return equipment in doc.state.energized
+    eq = doc.nl.equipment.get(equipment)
+    return eq is None or eq.in_service
+
+
+def _ct_node(doc: _Doc, code: str, lines: list[str]) -> None:
+    nl = doc.nl
+    ct = nl.cts[code]
+    open_ = doc.state is not None and code in doc.state.open_cts
+    live = _energized(doc, ct.equipment)
+    border = DANGER if open_ else INK
+    width = "3" if open_ or code in doc.highlight else "1"
+    bg = DANGER_FILL if open_ else "#ffffff"
+    order = sorted(ct.terminals, key=lambda n: (ct.positions[n], _natural(n)))
+    polarity = order[0]
+    ratio = f"{ct.tap_primary_a:g}:{ct.secondary_a:g}"
+    head = f"phase {ct.phase or '?'}" + (f", set {ct.set_name}" if ct.set_name else "")
+    rows = [
+        f'<tr><td colspan="2"><b>{_h(code)}</b></td></tr>',
+        f'<tr><td colspan="2"><font point-size="8">{_h(head)}</font></td></tr>',
+    ]
+    for name in order:
+        t = ct.terminals[name]
+        mark = (
+            '<td width="7" height="7" fixedsize="true" bgcolor="#111111"></td>'
+            if name == polarity
+            else '<td width="7" height="7" fixedsize="true"></td>'
+        )
+        text = f"{_h(name)} {ct.positions[name]:g}"
+        if name in ct.in_use:
+            text = f"<b>{text}</b>"
+            cell = f'<td port="{doc.node[t]}" align="left" border="1">{text}</td>'
+        else:
+            cell = f'<td port="{doc.node[t]}" align="left"><font color="{MUTED}">{text}</font></td>'
+        rows.append(f"<tr>{mark}{cell}</tr>")
+    tap = f"tap {ct.in_use[0]}-{ct.in_use[1]} {ratio}"
+    rows.append(f'<tr><td colspan="2"><font point-size="8">{_h(tap)}</font></td></tr>')
+    if not live:
+        rows.append('<tr><td colspan="2"><font point-size="8">de-energized</font></td></tr>')
+    if open_:
+        rows.append(
+            f'<tr><td colspan="2" bgcolor="{DANGER}"><font color="#ffffff">'
+            "<b>OPEN SECONDARY</b></font></td></tr>"
+        )
+    label = (
+        f'<<table border="{width}" cellborder="0" cellspacing="1" cellpadding="2" '
+        f'color="{border}" bgcolor="{bg}">' + "".join(rows) + "</table>>"
+    )
+    name = f"ct_{ct.index}"
+    lines.append(
+        f"  {name} [shape=plain label={label} id={_q('lk-ct-' + _sid(code))}"
+        f" class={_q('lk-ct lk-danger' if open_ else 'lk-ct')}];"
+    )
+    if open_:
+        lines.append(
+            f"  {name}_open [shape=doubleoctagon style=filled fillcolor={_q(DANGER)} "
+            f'fontcolor="#ffffff" color={_q(DANGER)} fontsize=9 '
+            f'label="OPEN\\nSECONDARY" id={_q("lk-open-" + _sid(code))} class="lk-danger"];'
+        )
+        lines.append(
+            f"  {name} -> {name}_open [dir=none style=dashed color={_q(DANGER)} penwidth=2];"
+        )
+
+
+def _owner_kind(nl: Netlist, owner: str, switch_groups: set[str]) -> str:
+    if owner in nl.devices:
+        return "device"
+    if owner in nl.terminal_blocks:
+        return "block"
+    if owner in switch_groups:
+        return "switch"
+    if owner in nl.equipment:
+        return "equipment"
+    return "other"
+
+
+def _owner_label(doc: _Doc, owner: str, kind: str, switches: list[Switch]) -> str:
+    nl = doc.nl
+    parts = [owner]
+    if kind == "device":
+        dev = nl.devices[owner]
+        funcs = " ".join(dev.functions)
+        parts.append(f"{dev.kind} {funcs}".strip())
+        if dev.ratio_setting:
+            parts.append(f"set {dev.ratio_setting}")
+    elif kind == "block":
+        parts.append("terminal block")
+    elif kind == "equipment":
+        parts.append(nl.equipment[owner].kind)
+    for sw in switches:
+        kind_text = sw.kind.replace("_", " ")
+        parts.append(f"{sw.code} ({kind_text}): {_position(doc, sw)}")
+    if doc.state is not None and owner in doc.state.removed:
+        parts.append("REMOVED")
+    if owner in doc.highlight:
+        parts.insert(0, "WORK ON")
+    return "\n".join(parts)
+
+
+def _terminal_node(doc: _Doc, t: int, outputs: Mapping[int, str]) -> str:
+    name = doc.nl.terminals[t]
+    short = name.split(":", 1)[1]
+    label = short
+    if t in outputs:
+        label = f"{short}\n{outputs[t]}"
+    return (
+        f'    {doc.node[t]} [label={_q(label)} id={_q("lk-t-" + _sid(name))} class="lk-terminal"];'
+    )
+
+
+def _reading(doc: _Doc, a: int, b: int) -> float | None:
+    key = frozenset((doc.nl.terminals[a], doc.nl.terminals[b]))
+    return doc.reading.get(key)
+
+
+def _end(doc: _Doc, t: int) -> str:
+    owner = doc.nl.owner(t)
+    if owner in doc.nl.cts:
+        return f"ct_{doc.nl.cts[owner].index}:{doc.node[t]}"
+    return doc.node[t]
+
+
+def _contact_edges(doc: _Doc, inside: set[int]) -> None:
+    for sw in doc.nl.switches.values():
+        pos = _position(doc, sw)
+        role_normal, role_short = _CONTACT_ROLE.get(sw.kind, ("contact", "shorting contact"))
+        for k, c in enumerate(sw.contacts):
+            if c.a not in inside:
+                continue
+            closed = pos in c.closed_in
+            normally = sw.normal in c.closed_in
+            role = role_normal if normally else role_short
+            eid = _q(f"lk-contact-{_sid(sw.code)}-{k}")
+            if closed and not normally:
+                amps = _reading(doc, c.a, c.b)
+                label = f"{sw.code} {role}\nSHORT" + (f" {_amps(amps)}" if amps is not None else "")
+                attrs = {
+                    "color": SHORT,
+                    "fontcolor": SHORT,
+                    "penwidth": "3.5",
+                    "style": "bold",
+                    "class": '"lk-contact lk-closed lk-short"',
+                }
+            elif closed:
+                label = f"{sw.code} {role}\nclosed"
+                attrs = {
+                    "color": INK,
+                    "penwidth": "2.2",
+                    "class": '"lk-contact lk-closed"',
+                }
+            else:
+                label = f"{sw.code} {role}\nopen"
+                attrs = {
+                    "color": MUTED,
+                    "fontcolor": MUTED,
+                    "style": "dashed",
+                    "class": '"lk-contact lk-open"',
+                }
+            attrs["label"] = _q(label)
+            attrs["id"] = eid
+            doc.edges.append(_Edge(c.a, c.b, attrs, ("c", _natural(sw.code), k)))
+
+
+def _lifted(doc: _Doc, a: int, b: int) -> bool:
+    if doc.state is None:
+        return False
+    return frozenset((doc.nl.terminals[a], doc.nl.terminals[b])) in doc.state.lifted
+
+
+def _dot(doc: _Doc, title: str | None) -> str:
+    nl = doc.nl
+    inside = set(doc.terms)
+    switch_groups = {_switch_group(code) for code in nl.switches}
+    lines = doc.lines
+    lines.append("digraph circuit {")
+    lines.append(
+        f"  graph [rankdir=LR nodesep=0.18 ranksep=0.55 fontname={_q(FONT)} fontsize=10 "
+        f'labelloc=t labeljust=l pad=0.2 bgcolor="#ffffff"];'
+    )
+    lines.append(
+        f"  node [fontname={_q(FONT)} fontsize=9 shape=box style=rounded height=0.2 "
+        f'width=0.3 margin="0.05,0.02" color={_q(INK)}];'
+    )
+    lines.append(f"  edge [fontname={_q(FONT)} fontsize=8 dir=none color={_q(INK)}];")
+    lines.append(f"  label=<{_legend(doc, title)}>;")
+
+    outputs: dict[int, str] = {}
+    for o in nl.outputs:
+        if o.terminal in inside:
+            outputs[o.terminal] = f"{o.name} output, operates {nl.terminals[o.target]}"
+
+    by_owner: dict[str, list[int]] = {}
+    for t in doc.terms:
+        by_owner.setdefault(nl.owner(t), []).append(t)
+    switches_of: dict[str, list[Switch]] = {}
+    for sw in nl.switches.values():
+        if any(c.a in inside for c in sw.contacts):
+            owner = nl.owner(sw.contacts[0].a) if sw.contacts else _switch_group(sw.code)
+            switches_of.setdefault(owner, []).append(sw)
+    for owner in sorted(by_owner, key=_natural):
+        if owner in nl.cts:
+            _ct_node(doc, owner, lines)
+            continue
+        kind = _owner_kind(nl, owner, switch_groups)
+        sws = sorted(switches_of.get(owner, []), key=lambda s: _natural(s.code))
+        removed = doc.state is not None and owner in doc.state.removed
+        style = "rounded,dashed" if removed else "rounded"
+        pen = "3" if owner in doc.highlight else "1"
+        lines.append(f"  subgraph {_q('cluster_' + _sid(owner))} {{")
+        lines.append(
+            f"    graph [label={_q(_owner_label(doc, owner, kind, sws))} style={_q(style)} "
+            f"fillcolor={_q(FILLS[kind])} bgcolor={_q(FILLS[kind])} penwidth={pen} "
+            f"color={_q(INK)} id={_q('lk-' + kind + '-' + _sid(owner))} "
+            f"class={_q('lk-' + kind + (' lk-removed' if removed else ''))}];"
+        )
+        for t in sorted(by_owner[owner], key=lambda t: _natural(nl.terminals[t])):
+            lines.append(_terminal_node(doc, t, outputs))
+        if kind == "device":
+            for inp in nl.devices[owner].inputs:
+                if inp.a not in inside:
+                    continue
+                amps = _reading(doc, inp.a, inp.b) if not removed else None
+                z = abs(inp.z_ohm)
+                text = f"input {inp.name}\n{z:.3g} ohm"
+                if amps is not None:
+                    text += f"\n{_amps(amps)}"
+                nid = f"in_{inp.index}"
+                lines.append(
+                    f"    {nid} [label={_q(text)} style={_q('filled' if not removed else 'dashed')}"
+                    f' fillcolor="#ffffff" penwidth=1.4 '
+                    f"id={_q('lk-input-' + _sid(owner) + '-' + _sid(inp.name))} "
+                    f'class="lk-input"];'
+                )
+        lines.append("  }")
+
+    # grounds
+    for g in sorted((g for g in nl.grounds if g in inside), key=lambda t: nl.terminals[t]):
+        gid = f"gnd_{g}"
+        lines.append(
+            f'  {gid} [shape=invtriangle label="" xlabel="ground" width=0.25 height=0.2 '
+            f'style=filled fillcolor="#555555" id={_q("lk-ground-" + _sid(nl.terminals[g]))} '
+            f'class="lk-ground"];'
+        )
+        doc.edges.append(_Edge(g, -1, {"penwidth": "1.5", "_head": gid}, ("g", nl.terminals[g])))
+
+    for w in nl.wires:
+        if w.a not in inside:
+            continue
+        if _lifted(doc, w.a, w.b):
+            attrs = {"label": '"LIFTED"', "style": "dashed", "color": MUTED, "fontcolor": MUTED}
+        else:
+            attrs = {"label": _q(f"{w.r_ohm:.3g} ohm"), "penwidth": "1.3"}
+        attrs["id"] = _q(f"lk-wire-{w.index}")
+        attrs["class"] = '"lk-wire"'
+        doc.edges.append(_Edge(w.a, w.b, attrs, ("w", w.index)))
+    for k in nl.links:
+        if k.a not in inside:
+            continue
+        if _lifted(doc, k.a, k.b):
+            attrs = {"label": '"LIFTED"', "style": "dashed", "color": MUTED, "fontcolor": MUTED}
+        else:
+            attrs = {"penwidth": "2.4"}
+        attrs["id"] = _q(f"lk-link-{k.index}")
+        attrs["class"] = '"lk-link"'
+        doc.edges.append(_Edge(k.a, k.b, attrs, ("l", k.index)))
+    _contact_edges(doc, inside)
+    if doc.state is not None:
+        for jid, a_name, b_name in doc.state.jumpers:
+            a, b = nl.index.get(a_name), nl.index.get(b_name)
+            if a is None or b is None or a not in inside:
+                continue
+            amps = _reading(doc, a, b)
+            label = f"jumper {jid}\nSHORT" + (f" {_amps(amps)}" if amps is not None else "")
+            doc.edges.append(
+                _Edge(
+                    a,
+                    b,
+                    {
+                        "label": _q(label),
+                        "color": SHORT,
+                        "fontcolor": SHORT,
+                        "style": '"bold,dashed"',
+                        "penwidth": "3.5",
+                        "id": _q(f"lk-jumper-{_sid(jid)}"),
+                        "class": '"lk-jumper lk-short"',
+                    },
+                    ("j", jid),
+                )
+            )
+    for inp in nl.inputs:
+        if inp.a not in inside:
+            continue
+        removed = doc.state is not None and inp.device in doc.state.removed
+        attrs = {"penwidth": "1.3"}
+        if removed:
+            attrs = {"style": "dotted", "color": MUTED}
+        doc.edges.append(
+            _Edge(inp.a, -1, {**attrs, "_head": f"in_{inp.index}"}, ("i", 0, inp.index))
+        )
+        doc.edges.append(
+            _Edge(-1, inp.b, {**attrs, "_tail": f"in_{inp.index}"}, ("i", 1, inp.index))
+        )
+
+    _emit_edges(doc)
+    lines.append("}")
+    return "\n".join(lines) + "\n"
+
+
+def _distances(doc: _Doc) -> dict[int, int]:
+    """Hops of every terminal from the nearest CT terminal, over the drawn elements."""
+    adj: dict[int, list[int]] = {}
+    for e in doc.edges:
+        a = e.a
+        b = e.b
+        if a < 0 or b < 0:
+            continue
+        adj.setdefault(a, []).append(b)
+        adj.setdefault(b, []).append(a)
+    for inp in doc.nl.inputs:
+        adj.setdefault(inp.a, []).append(inp.b)
+        adj.setdefault(inp.b, []).append(inp.a)
+    dist: dict[int, int] = {}
+    queue: deque[int] = deque()
+    for ct in doc.nl.ct_list:
+        for t in sorted(ct.terminals.values()):
+            if t in doc.node:
+                dist[t] = 0
+                queue.append(t)
+    while queue:
+        t = queue.popleft()
+        for u in sorted(adj.get(t, ())):
+            if u not in dist:
+                dist[u] = dist[t] + 1
+                queue.append(u)
+    return dist
+
+
+def _emit_edges(doc: _Doc) -> None:
+    dist = _distances(doc)
+    far = 1 << 20
+    for e in sorted(doc.edges, key=lambda e: e.sort):
+        attrs = dict(e.attrs)
+        head_node = attrs.pop("_head", None)
+        tail_node = attrs.pop("_tail", None)
+        if head_node is not None:
+            tail, head = _end(doc, e.a), head_node
+        elif tail_node is not None:
+            tail, head = tail_node, _end(doc, e.b)
+        else:
+            ka = (dist.get(e.a, far), _natural(doc.nl.terminals[e.a]))
+            kb = (dist.get(e.b, far), _natural(doc.nl.terminals[e.b]))
+            a, b = (e.a, e.b) if ka <= kb else (e.b, e.a)
+            tail, head = _end(doc, a), _end(doc, b)
+        text = " ".join(
+            f"{k}={v if v.startswith(chr(34)) else _q(v)}" for k, v in sorted(attrs.items())
+        )
+        doc.lines.append(f"  {tail} -> {head} [{text}];")
+
+
+def _legend(doc: _Doc, title: str | None) -> str:
+    rows = []
+    if title:
+        rows.append(f'<tr><td align="left"><b>{_h(title)}</b></td></tr>')
+    st = doc.state
+    if st is not None:
+        what = "normal state" if st.op is None else op_text(dict(st.op))
+        rows.append(f'<tr><td align="left">Step {st.step}: {_h(what)}</td></tr>')
+        for d in st.dangers:
+            rows.append(
+                f'<tr><td align="left"><font color="{DANGER}"><b>DANGER</b> '
+                f"{_h(d)}</font></td></tr>"
+            )
+    else:
+        rows.append(
+            '<tr><td align="left">Normal state (every switch in its normal position)</td></tr>'
+        )
+    legend = (
+        "Solid dark line: closed contact, link or wire (with its resistance).",
+        "Dashed grey 'open': open contact. Thick blue-green 'SHORT': a shorting path in place,"
+        " with its current.",
+        "Red 'OPEN SECONDARY' double octagon: a CT that would open.",
+        "Black square: CT polarity terminal (X1 end); bold boxed: the tap in use."
+        " Triangle: ground point.",
+    )
+    text = "".join(f'{_h(line)}<br align="left"/>' for line in legend)
+    rows.append(f'<tr><td align="left"><font point-size="8">{text}</font></td></tr>')
+    return '<table border="0" cellborder="0" cellspacing="0">' + "".join(rows) + "</table>"
+
+
+def _readings(state: StepState | None) -> dict[frozenset[str], float]:
+    out: dict[frozenset[str], float] = {}
+    if state is None:
+        return out
+    for r in state.readings:
+        between = r.get("between") or ()
+        if len(between) == 2 and r.get("a") is not None:
+            out[frozenset(str(x) for x in between)] = float(r["a"])
+    return out
+
+
+def circuit_dot(
+    source: Netlist | rec.SiteRecord | Mapping[str, Any],
+    *,
+    circuit: str | None = None,
+    device: str | None = None,
+    ct: str | None = None,
+    state: StepState | None = None,
+    highlight: Iterable[str] = (),
+    title: str | None = None,
+) -> str:
+    """The DOT text ``circuit_svg`` lays out (see there)."""
+    nl = as_netlist(source)
+    terms = sorted(
+        region(nl, circuit=circuit, device=device, ct=ct), key=lambda t: _natural(nl.terminals[t])
+    )
+    node = {t: f"n{k}" for k, t in enumerate(terms)}
+    doc = _Doc(
+        nl=nl,
+        terms=terms,
+        node=node,
+        state=state,
+        highlight=frozenset(highlight),
+        reading=_readings(state),
+    )
+    return _dot(doc, title or _default_title(nl, circuit, device, ct))
+
+
+def _default_title(nl: Netlist, circuit: str | None, device: str | None, ct: str | None) -> str:
+    what = circuit or (f"device {device}" if device else None) or (f"CT {ct}" if ct else None)
+    return f"{nl.site_code} " + (what or "whole site")
+
+
+def circuit_svg(
+    source: Netlist | rec.SiteRecord | Mapping[str, Any],
+    *,
+    circuit: str | None = None,
+    device: str | None = None,
+    ct: str | None = None,
+    state: StepState | None = None,
+    highlight: Iterable[str] = (),
+    title: str | None = None,
+) -> str:
+    """The circuit as an SVG document (text, no XML prolog), laid out by graphviz ``dot``.
+
+    ``source``: a netlist, a site record or a site document. ``circuit`` (``CKT-<CT code>``),
+    ``device`` or ``ct`` choose the part to draw (none: the whole site); ``state``: a step's
+    state (``step_states``), else the normal state; ``highlight``: codes drawn with a heavy
+    frame (the device worked on). Raises ``DrawingError`` for an unknown circuit, device or
+    CT. The same input gives the same bytes."""
+    nl = as_netlist(source)
+    title = title or _default_title(nl, circuit, device, ct)
+    dot = circuit_dot(
+        nl, circuit=circuit, device=device, ct=ct, state=state, highlight=highlight, title=title
+    )
+    raw = graphviz.pipe("dot", "svg", dot.encode("utf-8")).decode("utf-8")
+    start = raw.find("<svg")
+    svg = raw[start:]
+    # comments name the graphviz version and the graph: not needed inline
+    svg = re.sub(r"<!--.*?-->\n?", "", svg, flags=re.S)
+    # graphviz writes "-" as "&#45;" (for comments' sake); plain is easier to select on
+    svg = svg.replace("&#45;", "-")
+    label = _h(title)
+    svg = svg.replace("<svg ", f'<svg role="img" aria-label="{label}" class="lk-drawing" ', 1)
+    return svg

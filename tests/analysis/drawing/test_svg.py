@@ -1,0 +1,133 @@
+"""Circuit drawings: the elements of the record are drawn and named, the same record gives the
+same bytes, and a step's state shows on the drawing with text and line style, not colour
+alone (issue 13 item 3). The conventions drawn (polarity at the X1 end, knife and shorting jaw
+of a CT test-switch pole, a shorting path confirmed by its current) are common practice, no
+source."""
+
+from __future__ import annotations
+
+import copy
+import json
+import re
+from pathlib import Path
+
+import pytest
+
+from analysis.actions import draft_check
+from analysis.drawing import DrawingError, circuit_svg, procedure_svgs, step_states
+from analysis.engine import build_netlist
+from tests.analysis.engine.builders import wye_panel
+
+DEMO = Path(__file__).resolve().parents[3] / "fixtures" / "demo"
+
+
+def _quillfen() -> dict:
+    return json.loads((DEMO / "quillfen.json").read_text())
+
+
+def _panel() -> dict:
+    """A 3-phase wye set into a relay with a residual input, through a test switch with
+    shorting jaws and a draw-out case, with a trip pole."""
+    return wye_panel(
+        z_residual_ohm=0.5, test_switch=True, draw_out=True, trip=True, code="PNL"
+    ).build()
+
+
+def _ids(svg: str) -> set[str]:
+    return set(re.findall(r'id="(lk-[^"]+)"', svg))
+
+
+def _texts(svg: str) -> str:
+    return " ".join(re.findall(r">([^<>]+)</text>", svg))
+
+
+def test_same_record_same_bytes() -> None:
+    doc = _quillfen()
+    one = circuit_svg(doc, device="R-131")
+    two = circuit_svg(build_netlist(copy.deepcopy(doc)), device="R-131")
+    assert one == two
+    assert one.startswith("<svg ")
+    assert 'role="img"' in one
+
+
+def test_wye_set_with_residual_relay_is_drawn_and_labelled() -> None:
+    svg = circuit_svg(_panel(), device="R-1", highlight=["R-1"])
+    ids = _ids(svg)
+    text = _texts(svg)
+    for p in "ABC":
+        assert f"lk-ct-CB-1-{p}" in ids
+        assert f"lk-input-R-1-I{p}" in ids
+        assert f"lk-contact-TS-1_{p}-0" in ids  # knife
+        assert f"lk-contact-TS-1_{p}-1" in ids  # shorting jaw
+    assert "lk-input-R-1-IN" in ids  # the residual input in the common return
+    assert "lk-ground-TB-1_N" in ids
+    assert "lk-block-TB-1" in ids
+    assert "lk-switch-TS-1" in ids
+    assert "lk-device-R-1" in ids
+    assert "input IN" in text
+    assert "TS-1/A knife" in text and "TS-1/A shorting jaw" in text
+    assert "DC-1 (draw out case): inserted" in text
+    assert "tap X1-X2 400:5" in text
+    assert "WORK ON" in text
+    # the trip output and the breaker coil it operates
+    assert "TRIP output, operates CB-1:TC" in text
+    assert not {i for i in ids if i.startswith("lk-open-")}  # normal state: nothing open
+
+
+def test_87b_summation_of_four_sets_is_drawn() -> None:
+    svg = circuit_svg(_quillfen(), device="R-87B")
+    ids = _ids(svg)
+    text = _texts(svg)
+    cts = {i for i in ids if i.startswith("lk-ct-")}
+    # four breakers' 87B sets, paralleled phase by phase (fixtures/demo/README.md)
+    assert cts == {f"lk-ct-CB-13{b}-D{p}" for b in "0123" for p in "ABC"}
+    for b in "0123":
+        assert f"lk-block-TB-13{b}D" in ids
+        assert f"TB-13{b}D/SS (shorting screw): open" in text
+    assert "lk-block-TB-87B" in ids
+    assert "lk-switch-TS-87B" in ids
+    assert {f"lk-input-R-87B-I{p}" for p in "ABC"} <= ids
+
+
+def test_unknown_part_is_refused_with_what_exists() -> None:
+    with pytest.raises(DrawingError, match=r"no device 'R-999'.*R-131"):
+        circuit_svg(_quillfen(), device="R-999")
+    with pytest.raises(DrawingError, match="no circuit"):
+        circuit_svg(_quillfen(), circuit="CKT-NOPE")
+
+
+def test_open_ct_drawn_red_with_text_and_shape() -> None:
+    doc = _panel()
+    ops = [{"lift": ["CB-1-B:X1", "TB-1:B"]}]
+    verdict = draft_check(doc, ops, ["R-1"])
+    assert not verdict["safe"]
+    states = step_states(doc, verdict)
+    assert [s.step for s in states] == [0, 1]
+    assert states[1].open_cts == {"CB-1-B"}
+    svg = circuit_svg(doc, device="R-1", state=states[1])
+    text = _texts(svg)
+    assert "lk-open-CB-1-B" in _ids(svg)
+    assert "doubleoctagon" not in svg  # shapes are drawn, not named
+    assert re.search(r'id="lk-open-CB-1-B".*?<polygon', svg, re.S)
+    assert "OPEN SECONDARY" in text and "SECONDARY" in text
+    assert "LIFTED" in text
+    assert "DANGER" in text
+    assert "#b3261e" in svg  # and red as well
+
+
+def test_shorting_jaw_carries_its_reading() -> None:
+    doc = _panel()
+    ops = [{"set": "TS-1/A", "to": "open"}]
+    verdict = draft_check(doc, ops, [])
+    svgs = procedure_svgs(doc, verdict, device="R-1")
+    assert len(svgs) == 2
+    before, after = _texts(svgs[0]), _texts(svgs[1])
+    assert "lk-short" not in svgs[0] and "SHORT 0" not in before
+    jaw = next(r for r in verdict["steps"][1]["readings"] if "TS-1:SB" in r["between"])
+    assert jaw["a"] > 0
+    assert f"SHORT {jaw['a']:.2f} A" in after
+    assert "TS-1/A knife" in after and "open" in after
+    # the residual input now sees the phase A current: the verdict's danger is on the drawing
+    assert "DANGER" in after and "trip_not_isolated" in after
+    assert 'lk-contact lk-closed lk-short"' in svgs[1]
+    assert 'lk-contact lk-open"' in svgs[1]
