@@ -22,15 +22,19 @@ from typing import Any
 from reportlab.graphics.shapes import Drawing
 from reportlab.lib import colors
 from reportlab.lib.enums import TA_LEFT
-from reportlab.lib.pagesizes import A4
+from reportlab.lib.pagesizes import A4, landscape
 from reportlab.lib.styles import ParagraphStyle, getSampleStyleSheet
 from reportlab.lib.units import mm
 from reportlab.pdfgen import canvas as rl_canvas
 from reportlab.platypus import (
+    BaseDocTemplate,
     CondPageBreak,
+    Frame,
     KeepTogether,
+    NextPageTemplate,
+    PageBreak,
+    PageTemplate,
     Paragraph,
-    SimpleDocTemplate,
     Spacer,
     Table,
     TableStyle,
@@ -44,7 +48,6 @@ from analysis.textout import op_text
 PAGE = A4
 MARGIN = 15 * mm
 HEADER_H = 14 * mm
-FOOTER_H = 42 * mm
 INK = colors.HexColor("#2b2b2b")
 RULE = colors.HexColor("#9a9a9a")
 SHADE = colors.HexColor("#f2f2f2")
@@ -94,13 +97,6 @@ def _fit(drawing: Drawing, width: float, height: float) -> Drawing:
     drawing.width *= scale
     drawing.height *= scale
     return drawing
-
-
-def _drawing(svg: str, width: float, height: float) -> Flowable | None:
-    found = svg2rlg(io.BytesIO(svg.encode("utf-8")))
-    if found is None:
-        return None
-    return _fit(found, width, height)
 
 
 def _readings_cells(
@@ -204,13 +200,19 @@ class _Pages(rl_canvas.Canvas):
         total = len(self._saved)
         for state in self._saved:
             self.__dict__.update(state)
+            width, height = self._pagesize
             self.setFont("Helvetica", 7)
             self.setFillColor(INK)
             self.drawRightString(
-                PAGE[0] - MARGIN, PAGE[1] - MARGIN + 2, f"page {self._pageNumber} of {total}"
+                width - MARGIN, height - MARGIN + 2, f"page {self._pageNumber} of {total}"
             )
             super().showPage()
         super().save()
+
+
+def _footer_h(paras: Sequence[Paragraph], width: float) -> float:
+    """Height the cautions take at ``width`` (they are wrapped again on each page)."""
+    return sum(p.wrap(width, PAGE[1])[1] + 1 for p in paras) + 6
 
 
 def worksheet_pdf(
@@ -226,7 +228,7 @@ def worksheet_pdf(
     cautions: Sequence[str],
     prepared_by: str = "",
 ) -> bytes:
-    """The work sheet as PDF bytes.
+    """The work sheet as PDF bytes (A4; a drawing wider than tall gets a landscape page).
 
     ``steps`` and ``restore``: ``{"op": operation dict or None, "why": text (optional),
     "readings": [{"between": [T1, T2], "a": amps, "parallel": bool}]}`` in order; ``restore``
@@ -235,39 +237,59 @@ def worksheet_pdf(
     cautions = list(cautions) or default_cautions()
     st = _styles()
     buf = io.BytesIO()
-    width = PAGE[0] - 2 * MARGIN
-    height = PAGE[1] - 2 * MARGIN - HEADER_H - FOOTER_H
     header = f"Work sheet  {site}  {subject}  (record revision {revision})"
     caution_paras = [Paragraph(f"<b>CAUTION.</b> {_p(c)}", st["caution"]) for c in cautions]
+    sizes = {"portrait": PAGE, "landscape": landscape(PAGE)}
+    footers = {k: _footer_h(caution_paras, w - 2 * MARGIN) for k, (w, _h) in sizes.items()}
 
-    def on_page(canvas: rl_canvas.Canvas, _doc: Any) -> None:
+    def on_page(canvas: rl_canvas.Canvas, doc: Any) -> None:
+        page_w, page_h = canvas._pagesize
+        width = page_w - 2 * MARGIN
         canvas.saveState()
-        top = PAGE[1] - MARGIN
+        top = page_h - MARGIN
         canvas.setFont("Helvetica-Bold", 9)
         canvas.setFillColor(INK)
-        canvas.drawString(MARGIN, top + 2, _p(header).replace("&amp;", "&"))
+        canvas.drawString(MARGIN, top + 2, str(header).translate(_PLAIN))
         canvas.setStrokeColor(RULE)
-        canvas.line(MARGIN, top - 2, PAGE[0] - MARGIN, top - 2)
-        y = MARGIN + FOOTER_H - 4
-        canvas.line(MARGIN, y + 2, PAGE[0] - MARGIN, y + 2)
+        canvas.line(MARGIN, top - 2, page_w - MARGIN, top - 2)
+        y = MARGIN + _footer_h(caution_paras, width) - 4
+        canvas.line(MARGIN, y + 2, page_w - MARGIN, y + 2)
         for para in caution_paras:
-            _w, h = para.wrap(width, FOOTER_H)
+            _w, h = para.wrap(width, page_h)
             y -= h
             para.drawOn(canvas, MARGIN, y)
             y -= 1
         canvas.restoreState()
 
-    doc = SimpleDocTemplate(
+    templates = []
+    frames: dict[str, tuple[float, float]] = {}
+    for name, (page_w, page_h) in sizes.items():
+        fw = page_w - 2 * MARGIN
+        fh = page_h - 2 * MARGIN - HEADER_H - footers[name]
+        frames[name] = (fw, fh)
+        frame = Frame(
+            MARGIN,
+            MARGIN + footers[name],
+            fw,
+            fh,
+            id=name,
+            leftPadding=0,
+            rightPadding=0,
+            topPadding=0,
+            bottomPadding=0,
+        )
+        templates.append(
+            PageTemplate(id=name, frames=[frame], onPage=on_page, pagesize=(page_w, page_h))
+        )
+    doc = BaseDocTemplate(
         buf,
         pagesize=PAGE,
-        leftMargin=MARGIN,
-        rightMargin=MARGIN,
-        topMargin=MARGIN + HEADER_H,
-        bottomMargin=MARGIN + FOOTER_H,
-        title=_p(f"Work sheet {site} {subject}"),
+        pageTemplates=templates,
+        title=str(f"Work sheet {site} {subject}").translate(_PLAIN),
         author="Loopkeep",
         invariant=True,
     )
+    width = frames["portrait"][0]
     story: list[Flowable] = [
         Paragraph(_p(f"Work sheet: {subject}"), st["title"]),
         Paragraph(_p(subtitle), st["body"]),
@@ -290,15 +312,16 @@ def worksheet_pdf(
     )
     facts_table.setStyle(TableStyle([("GRID", (0, 0), (-1, -1), 0.5, RULE)]))
     story += [facts_table, Spacer(1, 4 * mm)]
-    if svg:
-        pic = _drawing(svg, width, height * 0.8)
-        if pic is not None:
-            story += [
-                Paragraph("Circuit (normal state)", st["h2"]),
-                pic,
-                Spacer(1, 2 * mm),
-            ]
-    story.append(CondPageBreak(40 * mm))
+    found = svg2rlg(io.BytesIO(svg.encode("utf-8"))) if svg else None
+    if found is not None:
+        wide = found.width > 1.2 * found.height
+        fw, fh = frames["landscape" if wide else "portrait"]
+        heading = Paragraph("Circuit (normal state)", st["h2"])
+        if wide:
+            story += [NextPageTemplate("landscape"), PageBreak(), heading]
+            story += [_fit(found, fw, fh - 12 * mm), NextPageTemplate("portrait"), PageBreak()]
+        else:
+            story += [PageBreak(), heading, _fit(found, fw, fh - 12 * mm), PageBreak()]
     story.append(Paragraph("Isolation steps" if restore else "Steps", st["h2"]))
     story.append(
         Paragraph(
@@ -317,7 +340,7 @@ def worksheet_pdf(
     story.append(
         KeepTogether([Paragraph("Sign-off", st["h2"]), _sign_off(st, width), Spacer(1, 2 * mm)])
     )
-    doc.build(story, onFirstPage=on_page, onLaterPages=on_page, canvasmaker=_Pages)
+    doc.build(story, canvasmaker=_Pages)
     return buf.getvalue()
 
 
