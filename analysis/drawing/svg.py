@@ -662,7 +662,12 @@ def circuit_svg(
     dot = circuit_dot(
         nl, circuit=circuit, device=device, ct=ct, state=state, highlight=highlight, title=title
     )
-    raw = graphviz.pipe("dot", "svg", dot.encode("utf-8")).decode("utf-8")
+    try:
+        raw = graphviz.pipe("dot", "svg", dot.encode("utf-8")).decode("utf-8")
+    except graphviz.ExecutableNotFound as exc:
+        raise RuntimeError(
+            "circuit drawings need graphviz's `dot` program (Debian: apt-get install graphviz)"
+        ) from exc
     start = raw.find("<svg")
     svg = raw[start:]
     # comments name the graphviz version and the graph: not needed inline

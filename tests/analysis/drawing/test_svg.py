@@ -14,7 +14,7 @@ from pathlib import Path
 import pytest
 
 from analysis.actions import draft_check
-from analysis.drawing import DrawingError, circuit_svg, procedure_svgs, step_states
+from analysis.drawing import DrawingError, circuit_svg, procedure_svgs, region, step_states
 from analysis.engine import build_netlist
 from tests.analysis.engine.builders import wye_panel
 
@@ -87,6 +87,32 @@ def test_87b_summation_of_four_sets_is_drawn() -> None:
     assert "lk-block-TB-87B" in ids
     assert "lk-switch-TS-87B" in ids
     assert {f"lk-input-R-87B-I{p}" for p in "ABC"} <= ids
+
+
+@pytest.mark.parametrize(("device", "site"), [("R-131", "quillfen"), ("R-87B", "quillfen")])
+def test_every_element_of_the_part_is_drawn(device: str, site: str) -> None:
+    doc = json.loads((DEMO / f"{site}.json").read_text())
+    nl = build_netlist(doc)
+    inside = region(nl, device=device)
+    svg = circuit_svg(nl, device=device)
+    ids = _ids(svg)
+    wires = {f"lk-wire-{w.index}" for w in nl.wires if w.a in inside}
+    links = {f"lk-link-{k.index}" for k in nl.links if k.a in inside}
+    contacts = {
+        f"lk-contact-{s.code.replace('/', '_')}-{k}"
+        for s in nl.switches.values()
+        for k, c in enumerate(s.contacts)
+        if c.a in inside
+    }
+    cts = {f"lk-ct-{c.code}" for c in nl.ct_list if c.first in inside}
+    inputs = {f"lk-input-{i.device}-{i.name}" for i in nl.inputs if i.a in inside}
+    assert wires and contacts and cts and inputs
+    for group in (wires, links, contacts, cts, inputs):
+        assert group <= ids
+    # and nothing of another circuit: every drawn CT is one of the part's
+    assert {i for i in ids if i.startswith("lk-ct-")} == cts
+    # an element joins terminals of the part only (the part is closed over every element)
+    assert all((w.a in inside) == (w.b in inside) for w in nl.wires)
 
 
 def test_unknown_part_is_refused_with_what_exists() -> None:
