@@ -36,12 +36,16 @@ def procedure_svgs(
     device: str | None = None,
     ct: str | None = None,
     highlight: Iterable[str] = (),
+    devices: Iterable[str] = (),
 ) -> list[str]:
     """``circuit_svg`` of every step of ``verdict`` (index = step number)."""
     nl = as_netlist(source)
     marks = tuple(highlight)
+    several = tuple(devices)
     return [
-        circuit_svg(nl, circuit=circuit, device=device, ct=ct, state=s, highlight=marks)
+        circuit_svg(
+            nl, circuit=circuit, device=device, ct=ct, state=s, highlight=marks, devices=several
+        )
         for s in _step_states(nl, verdict)
     ]
 

@@ -137,12 +137,19 @@ def _union(nl: Netlist) -> list[int]:
 
 
 def region(
-    nl: Netlist, *, circuit: str | None = None, device: str | None = None, ct: str | None = None
+    nl: Netlist,
+    *,
+    circuit: str | None = None,
+    device: str | None = None,
+    ct: str | None = None,
+    devices: Iterable[str] = (),
 ) -> set[int]:
     """Terminals to draw: the parts (over every element, open or closed) holding the CT of
     ``circuit`` (``CKT-<CT code>``), ``ct`` or the terminals of ``device``, plus the trip
-    paths of every device with an input there. None of them: the whole site."""
-    if circuit is None and device is None and ct is None:
+    paths of every device with an input there (``devices``: several devices). None of them:
+    the whole site."""
+    wanted = ([device] if device is not None else []) + list(devices)
+    if circuit is None and not wanted and ct is None:
         return set(range(nl.n_terminals))
     seeds: set[int] = set()
     if circuit is not None:
@@ -155,11 +162,11 @@ def region(
             known = ", ".join(sorted(nl.cts)) or "none"
             raise DrawingError(f"no CT {ct!r} at site {nl.site_code} (CTs: {known})")
         seeds.update(nl.cts[ct].terminals.values())
-    if device is not None:
-        dev = nl.devices.get(device)
+    for code in wanted:
+        dev = nl.devices.get(code)
         if dev is None:
             known = ", ".join(sorted(nl.devices)) or "none"
-            raise DrawingError(f"no device {device!r} at site {nl.site_code} (devices: {known})")
+            raise DrawingError(f"no device {code!r} at site {nl.site_code} (devices: {known})")
         seeds.update(t for i in dev.inputs for t in (i.a, i.b))
         seeds.update(t for o in dev.outputs for t in (o.terminal, o.target))
     lab = _union(nl)
@@ -617,11 +624,14 @@ def circuit_dot(
     state: StepState | None = None,
     highlight: Iterable[str] = (),
     title: str | None = None,
+    devices: Iterable[str] = (),
 ) -> str:
     """The DOT text ``circuit_svg`` lays out (see there)."""
     nl = as_netlist(source)
+    devices = tuple(devices)
     terms = sorted(
-        region(nl, circuit=circuit, device=device, ct=ct), key=lambda t: _natural(nl.terminals[t])
+        region(nl, circuit=circuit, device=device, ct=ct, devices=devices),
+        key=lambda t: _natural(nl.terminals[t]),
     )
     node = {t: f"n{k}" for k, t in enumerate(terms)}
     doc = _Doc(
@@ -632,11 +642,18 @@ def circuit_dot(
         highlight=frozenset(highlight),
         reading=_readings(state),
     )
-    return _dot(doc, title or _default_title(nl, circuit, device, ct))
+    return _dot(doc, title or _default_title(nl, circuit, device, ct, devices))
 
 
-def _default_title(nl: Netlist, circuit: str | None, device: str | None, ct: str | None) -> str:
-    what = circuit or (f"device {device}" if device else None) or (f"CT {ct}" if ct else None)
+def _default_title(
+    nl: Netlist, circuit: str | None, device: str | None, ct: str | None, devices: Iterable[str]
+) -> str:
+    named = ([device] if device else []) + list(devices)
+    what = (
+        circuit
+        or (("device " if len(named) == 1 else "devices ") + ", ".join(named) if named else None)
+        or (f"CT {ct}" if ct else None)
+    )
     return f"{nl.site_code} " + (what or "whole site")
 
 
@@ -649,18 +666,28 @@ def circuit_svg(
     state: StepState | None = None,
     highlight: Iterable[str] = (),
     title: str | None = None,
+    devices: Iterable[str] = (),
 ) -> str:
     """The circuit as an SVG document (text, no XML prolog), laid out by graphviz ``dot``.
 
     ``source``: a netlist, a site record or a site document. ``circuit`` (``CKT-<CT code>``),
-    ``device`` or ``ct`` choose the part to draw (none: the whole site); ``state``: a step's
+    ``device`` (or several ``devices``) or ``ct`` choose the part to draw (none: the whole
+    site); ``state``: a step's
     state (``step_states``), else the normal state; ``highlight``: codes drawn with a heavy
     frame (the device worked on). Raises ``DrawingError`` for an unknown circuit, device or
     CT. The same input gives the same bytes."""
     nl = as_netlist(source)
-    title = title or _default_title(nl, circuit, device, ct)
+    devices = tuple(devices)
+    title = title or _default_title(nl, circuit, device, ct, devices)
     dot = circuit_dot(
-        nl, circuit=circuit, device=device, ct=ct, state=state, highlight=highlight, title=title
+        nl,
+        circuit=circuit,
+        device=device,
+        ct=ct,
+        state=state,
+        highlight=highlight,
+        title=title,
+        devices=devices,
     )
     try:
         raw = graphviz.pipe("dot", "svg", dot.encode("utf-8")).decode("utf-8")

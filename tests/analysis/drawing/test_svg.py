@@ -157,3 +157,10 @@ def test_shorting_jaw_carries_its_reading() -> None:
     assert "DANGER" in after and "trip_not_isolated" in after
     assert 'lk-contact lk-closed lk-short"' in svgs[1]
     assert 'lk-contact lk-open"' in svgs[1]
+
+
+def test_several_devices_draw_the_union_of_their_parts() -> None:
+    doc = _quillfen()
+    ids = _ids(circuit_svg(doc, devices=["R-131", "R-132"]))
+    assert {"lk-ct-CB-131-A", "lk-ct-CB-132-A", "lk-device-R-131", "lk-device-R-132"} <= ids
+    assert "lk-ct-CB-133-A" not in ids
