@@ -254,6 +254,11 @@ def _ct_node(doc: _Doc, code: str, lines: list[str]) -> None:
     rows.append(f'<tr><td colspan="2"><font point-size="8">{_h(tap)}</font></td></tr>')
     if not live:
         rows.append('<tr><td colspan="2"><font point-size="8">de-energized</font></td></tr>')
+    else:
+        # the secondary current the engine injects in every state (equipment maximum load
+        # through the tap; 1 A where unknown): what the branches' readings come from
+        drive = f"drives {_amps(ct.load_secondary_a)}"
+        rows.append(f'<tr><td colspan="2"><font point-size="8">{drive}</font></td></tr>')
     if open_:
         rows.append(
             f'<tr><td colspan="2" bgcolor="{DANGER}"><font color="#ffffff">'

@@ -68,6 +68,8 @@ def test_wye_set_with_residual_relay_is_drawn_and_labelled() -> None:
     assert "TS-1/A knife" in text and "TS-1/A shorting jaw" in text
     assert "DC-1 (draw out case): inserted" in text
     assert "tap X1-X2 400:5" in text
+    # 320 A maximum load through 400:5 drives 4.00 A in each phase CT
+    assert text.count("drives 4.00 A") == 3
     assert "WORK ON" in text
     # the trip output and the breaker coil it operates
     assert "TRIP output, operates CB-1:TC" in text
@@ -164,3 +166,18 @@ def test_several_devices_draw_the_union_of_their_parts() -> None:
     ids = _ids(circuit_svg(doc, devices=["R-131", "R-132"]))
     assert {"lk-ct-CB-131-A", "lk-ct-CB-132-A", "lk-device-R-131", "lk-device-R-132"} <= ids
     assert "lk-ct-CB-133-A" not in ids
+
+
+def test_deenergized_and_removed_are_written_out() -> None:
+    doc = _panel()
+    ops = [{"deenergize": "CB-1"}, {"set": "DC-1", "to": "withdrawn"}, {"remove_device": "R-1"}]
+    verdict = draft_check(doc, ops, ["R-1"])
+    last = step_states(doc, verdict)[-1]
+    assert last.removed == {"R-1"} and "CB-1" not in (last.energized or ())
+    svg = circuit_svg(doc, device="R-1", state=last)
+    text = _texts(svg)
+    assert text.count("de-energized") == 3
+    assert "drives" not in text
+    assert "REMOVED" in text
+    assert "DC-1 (draw out case): withdrawn" in text
+    assert "lk-removed" in svg
