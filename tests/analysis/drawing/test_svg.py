@@ -181,3 +181,18 @@ def test_deenergized_and_removed_are_written_out() -> None:
     assert "REMOVED" in text
     assert "DC-1 (draw out case): withdrawn" in text
     assert "lk-removed" in svg
+
+
+def test_jumper_drawn_as_a_shorting_path_with_its_current() -> None:
+    doc = _panel()
+    ops = [{"add_jumper": ["TB-1:A", "TB-1:N"], "id": "J1"}]
+    verdict = draft_check(doc, ops, [])
+    reading = next(
+        r for r in verdict["steps"][1]["readings"] if set(r["between"]) == {"TB-1:A", "TB-1:N"}
+    )
+    states = step_states(doc, verdict)
+    assert states[1].jumpers == (("J1", "TB-1:A", "TB-1:N"),)
+    svg = circuit_svg(doc, device="R-1", state=states[1])
+    assert "lk-jumper-J1" in _ids(svg)
+    assert f"SHORT {reading['a']:.2f} A" in _texts(svg)
+    assert "lk-jumper lk-short" in svg
