@@ -38,15 +38,25 @@ def procedure_svgs(
     highlight: Iterable[str] = (),
     devices: Iterable[str] = (),
 ) -> list[str]:
-    """``circuit_svg`` of every step of ``verdict`` (index = step number)."""
+    """``circuit_svg`` of every step of ``verdict`` (index = step number), all with the same
+    layout: what any step adds (a jumper, an open-CT marker, a danger line) has its room in
+    every step, so a planner walking the steps sees the states change, not the drawing."""
     nl = as_netlist(source)
     marks = tuple(highlight)
     several = tuple(devices)
+    states = _step_states(nl, verdict)
     return [
         circuit_svg(
-            nl, circuit=circuit, device=device, ct=ct, state=s, highlight=marks, devices=several
+            nl,
+            circuit=circuit,
+            device=device,
+            ct=ct,
+            state=s,
+            highlight=marks,
+            devices=several,
+            layout_states=states,
         )
-        for s in _step_states(nl, verdict)
+        for s in states
     ]
 
 

@@ -29,7 +29,7 @@ from __future__ import annotations
 import html
 import re
 from collections import deque
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -54,6 +54,8 @@ FILLS = {
     "other": "#ffffff",
 }
 FONT = "Helvetica"
+LEFT = ' align="left"'
+SPAN2 = ' colspan="2"'
 
 _CONTACT_ROLE = {
     "test_switch_pole": ("knife", "shorting jaw"),
@@ -88,6 +90,21 @@ def _sid(text: str) -> str:
 
 def _amps(a: float) -> str:
     return f"{a:.2f} A"
+
+
+def _cell(html_text: str, width: int, height: int = 15, *, extra: str = "") -> str:
+    """A table cell of a fixed size: what changes from state to state sits in cells like
+    this, so every step of a procedure gets the same layout."""
+    return f'<td fixedsize="true" width="{width}" height="{height}"{extra}>{html_text}</td>'
+
+
+def _two_line(const: str, var: str, width: int) -> str:
+    """An HTML-like label: a line fixed for the element, then a fixed-size line for its
+    state."""
+    return (
+        '<<table border="0" cellborder="0" cellspacing="0" cellpadding="0">'
+        f"<tr><td>{_h(const)}</td></tr><tr>{_cell(_h(var), width)}</tr></table>>"
+    )
 
 
 def as_netlist(source: Netlist | rec.SiteRecord | Mapping[str, Any]) -> Netlist:
@@ -197,6 +214,10 @@ class _Doc:
     state: StepState | None
     highlight: frozenset[str]
     reading: dict[frozenset[str], float] = field(default_factory=dict)
+    # room kept for what other states of the same procedure show (same layout every step)
+    reserve_jumpers: tuple[tuple[str, str, str], ...] = ()
+    reserve_open: frozenset[str] = frozenset()
+    danger_lines: int = 0
     lines: list[str] = field(default_factory=list)
     edges: list[_Edge] = field(default_factory=list)
 
@@ -226,7 +247,9 @@ def _ct_node(doc: _Doc, code: str, lines: list[str]) -> None:
     open_ = doc.state is not None and code in doc.state.open_cts
     live = _energized(doc, ct.equipment)
     border = DANGER if open_ else INK
-    width = "3" if open_ or code in doc.highlight else "1"
+    # the frame keeps its width from step to step (same layout): red, with the OPEN
+    # SECONDARY row and the double-octagon marker, tells the open CT apart
+    width = "3" if code in doc.highlight else "2"
     bg = DANGER_FILL if open_ else "#ffffff"
     order = sorted(ct.terminals, key=lambda n: (ct.positions[n], _natural(n)))
     polarity = order[0]
@@ -252,18 +275,15 @@ def _ct_node(doc: _Doc, code: str, lines: list[str]) -> None:
         rows.append(f"<tr>{mark}{cell}</tr>")
     tap = f"tap {ct.in_use[0]}-{ct.in_use[1]} {ratio}"
     rows.append(f'<tr><td colspan="2"><font point-size="8">{_h(tap)}</font></td></tr>')
-    if not live:
-        rows.append('<tr><td colspan="2"><font point-size="8">de-energized</font></td></tr>')
-    else:
-        # the secondary current the engine injects in every state (equipment maximum load
-        # through the tap; 1 A where unknown): what the branches' readings come from
-        drive = f"drives {_amps(ct.load_secondary_a)}"
-        rows.append(f'<tr><td colspan="2"><font point-size="8">{drive}</font></td></tr>')
-    if open_:
-        rows.append(
-            f'<tr><td colspan="2" bgcolor="{DANGER}"><font color="#ffffff">'
-            "<b>OPEN SECONDARY</b></font></td></tr>"
-        )
+    # the secondary current the engine injects in every state (equipment maximum load
+    # through the tap; 1 A where unknown): what the branches' readings come from
+    drive = f"drives {_amps(ct.load_secondary_a)}" if live else "de-energized"
+    small = f'<font point-size="8">{drive}</font>'
+    rows.append(f"<tr>{_cell(small, 76, extra=SPAN2)}</tr>")
+    if open_ or code in doc.reserve_open:
+        text = '<font color="#ffffff"><b>OPEN SECONDARY</b></font>' if open_ else ""
+        fill = f' bgcolor="{DANGER}"' if open_ else ""
+        rows.append(f"<tr>{_cell(text, 100, 17, extra=SPAN2 + fill)}</tr>")
     label = (
         f'<<table border="{width}" cellborder="0" cellspacing="1" cellpadding="2" '
         f'color="{border}" bgcolor="{bg}">' + "".join(rows) + "</table>>"
@@ -273,14 +293,18 @@ def _ct_node(doc: _Doc, code: str, lines: list[str]) -> None:
         f"  {name} [shape=plain label={label} id={_q('lk-ct-' + _sid(code))}"
         f" class={_q('lk-ct lk-danger' if open_ else 'lk-ct')}];"
     )
-    if open_:
+    if open_ or code in doc.reserve_open:
+        # the marker's room is kept in every step that does not show it (style invis)
+        mid = ("lk-open-" if open_ else "lk-reserved-") + _sid(code)
+        style = "filled" if open_ else "invis"
         lines.append(
-            f"  {name}_open [shape=doubleoctagon style=filled fillcolor={_q(DANGER)} "
+            f"  {name}_open [shape=doubleoctagon style={style} fillcolor={_q(DANGER)} "
             f'fontcolor="#ffffff" color={_q(DANGER)} fontsize=9 '
-            f'label="OPEN\\nSECONDARY" id={_q("lk-open-" + _sid(code))} class="lk-danger"];'
+            f'label="OPEN\\nSECONDARY" id={_q(mid)} class="lk-danger"];'
         )
+        edge_style = "dashed" if open_ else "invis"
         lines.append(
-            f"  {name} -> {name}_open [dir=none style=dashed color={_q(DANGER)} penwidth=2];"
+            f"  {name} -> {name}_open [dir=none style={edge_style} color={_q(DANGER)} penwidth=2];"
         )
 
 
@@ -298,25 +322,37 @@ def _owner_kind(nl: Netlist, owner: str, switch_groups: set[str]) -> str:
 
 def _owner_label(doc: _Doc, owner: str, kind: str, switches: list[Switch]) -> str:
     nl = doc.nl
-    parts = [owner]
+    rows: list[str] = []
+    if owner in doc.highlight:
+        rows.append("<b>WORK ON</b>")
+    rows.append(f"<b>{_h(owner)}</b>")
     if kind == "device":
         dev = nl.devices[owner]
         funcs = " ".join(dev.functions)
-        parts.append(f"{dev.kind} {funcs}".strip())
+        rows.append(_h(f"{dev.kind} {funcs}".strip()))
         if dev.ratio_setting:
-            parts.append(f"set {dev.ratio_setting}")
+            rows.append(_h(f"set {dev.ratio_setting}"))
     elif kind == "block":
-        parts.append("terminal block")
+        rows.append("terminal block")
     elif kind == "equipment":
-        parts.append(nl.equipment[owner].kind)
+        rows.append(_h(nl.equipment[owner].kind))
+    out = [f'<tr><td colspan="2">{r}</td></tr>' for r in rows]
     for sw in switches:
         kind_text = sw.kind.replace("_", " ")
-        parts.append(f"{sw.code} ({kind_text}): {_position(doc, sw)}")
-    if doc.state is not None and owner in doc.state.removed:
-        parts.append("REMOVED")
-    if owner in doc.highlight:
-        parts.insert(0, "WORK ON")
-    return "\n".join(parts)
+        width = 10 + 6 * max(len(p) for p in sw.positions)
+        out.append(
+            f'<tr><td align="right">{_h(f"{sw.code} ({kind_text}):")}</td>'
+            f"{_cell(_h(_position(doc, sw)), width, extra=LEFT)}</tr>"
+        )
+    if kind == "device":
+        removed = doc.state is not None and owner in doc.state.removed
+        mark = "<b>REMOVED</b>" if removed else ""
+        out.append(f"<tr>{_cell(mark, 64, 17, extra=SPAN2)}</tr>")
+    return (
+        '<<table border="0" cellborder="0" cellspacing="0" cellpadding="1">'
+        + "".join(out)
+        + "</table>>"
+    )
 
 
 def _terminal_node(doc: _Doc, t: int, outputs: Mapping[int, str]) -> str:
@@ -355,7 +391,7 @@ def _contact_edges(doc: _Doc, inside: set[int]) -> None:
             eid = _q(f"lk-contact-{_sid(sw.code)}-{k}")
             if closed and not normally:
                 amps = _reading(doc, c.a, c.b)
-                label = f"{sw.code} {role}\nSHORT" + (f" {_amps(amps)}" if amps is not None else "")
+                label = "SHORT" + (f" {_amps(amps)}" if amps is not None else "")
                 attrs = {
                     "color": SHORT,
                     "fontcolor": SHORT,
@@ -364,21 +400,21 @@ def _contact_edges(doc: _Doc, inside: set[int]) -> None:
                     "class": '"lk-contact lk-closed lk-short"',
                 }
             elif closed:
-                label = f"{sw.code} {role}\nclosed"
+                label = "closed"
                 attrs = {
                     "color": INK,
                     "penwidth": "2.2",
                     "class": '"lk-contact lk-closed"',
                 }
             else:
-                label = f"{sw.code} {role}\nopen"
+                label = "open"
                 attrs = {
                     "color": MUTED,
                     "fontcolor": MUTED,
                     "style": "dashed",
                     "class": '"lk-contact lk-open"',
                 }
-            attrs["label"] = _q(label)
+            attrs["label"] = _two_line(f"{sw.code} {role}", label, 74)
             attrs["id"] = eid
             doc.edges.append(_Edge(c.a, c.b, attrs, ("c", _natural(sw.code), k)))
 
@@ -430,7 +466,7 @@ def _dot(doc: _Doc, title: str | None) -> str:
         pen = "3" if owner in doc.highlight else "1"
         lines.append(f"  subgraph {_q('cluster_' + _sid(owner))} {{")
         lines.append(
-            f"    graph [label={_q(_owner_label(doc, owner, kind, sws))} style={_q(style)} "
+            f"    graph [label={_owner_label(doc, owner, kind, sws)} style={_q(style)} "
             f"fillcolor={_q(FILLS[kind])} bgcolor={_q(FILLS[kind])} penwidth={pen} "
             f"color={_q(INK)} id={_q('lk-' + kind + '-' + _sid(owner))} "
             f"class={_q('lk-' + kind + (' lk-removed' if removed else ''))}];"
@@ -443,12 +479,15 @@ def _dot(doc: _Doc, title: str | None) -> str:
                     continue
                 amps = _reading(doc, inp.a, inp.b) if not removed else None
                 z = abs(inp.z_ohm)
-                text = f"input {inp.name}\n{z:.3g} ohm"
-                if amps is not None:
-                    text += f"\n{_amps(amps)}"
+                text = (
+                    '<<table border="0" cellborder="0" cellspacing="0" cellpadding="0">'
+                    f"<tr><td>{_h(f'input {inp.name}')}</td></tr>"
+                    f"<tr><td>{_h(f'{z:.3g} ohm')}</td></tr>"
+                    f"<tr>{_cell('' if amps is None else _amps(amps), 48)}</tr></table>>"
+                )
                 nid = f"in_{inp.index}"
                 lines.append(
-                    f"    {nid} [label={_q(text)} style={_q('filled' if not removed else 'dashed')}"
+                    f"    {nid} [label={text} style={_q('filled' if not removed else 'dashed')}"
                     f' fillcolor="#ffffff" penwidth=1.4 '
                     f"id={_q('lk-input-' + _sid(owner) + '-' + _sid(inp.name))} "
                     f'class="lk-input"];'
@@ -469,9 +508,13 @@ def _dot(doc: _Doc, title: str | None) -> str:
         if w.a not in inside:
             continue
         if _lifted(doc, w.a, w.b):
-            attrs = {"label": '"LIFTED"', "style": "dashed", "color": MUTED, "fontcolor": MUTED}
+            attrs = {"style": "dashed", "color": MUTED, "fontcolor": MUTED}
+            attrs["label"] = f'<<table border="0"><tr>{_cell("LIFTED", 66)}</tr></table>>'
         else:
-            attrs = {"label": _q(f"{w.r_ohm:.3g} ohm"), "penwidth": "1.3"}
+            attrs = {"penwidth": "1.3"}
+            attrs["label"] = (
+                f'<<table border="0"><tr>{_cell(_h(f"{w.r_ohm:.3g} ohm"), 66)}</tr></table>>'
+            )
         attrs["id"] = _q(f"lk-wire-{w.index}")
         attrs["class"] = '"lk-wire"'
         doc.edges.append(_Edge(w.a, w.b, attrs, ("w", w.index)))
@@ -479,36 +522,40 @@ def _dot(doc: _Doc, title: str | None) -> str:
         if k.a not in inside:
             continue
         if _lifted(doc, k.a, k.b):
-            attrs = {"label": '"LIFTED"', "style": "dashed", "color": MUTED, "fontcolor": MUTED}
+            attrs = {"style": "dashed", "color": MUTED, "fontcolor": MUTED}
+            attrs["label"] = f'<<table border="0"><tr>{_cell("LIFTED", 44)}</tr></table>>'
         else:
             attrs = {"penwidth": "2.4"}
+            attrs["label"] = f'<<table border="0"><tr>{_cell("", 44)}</tr></table>>'
         attrs["id"] = _q(f"lk-link-{k.index}")
         attrs["class"] = '"lk-link"'
         doc.edges.append(_Edge(k.a, k.b, attrs, ("l", k.index)))
     _contact_edges(doc, inside)
-    if doc.state is not None:
-        for jid, a_name, b_name in doc.state.jumpers:
-            a, b = nl.index.get(a_name), nl.index.get(b_name)
-            if a is None or b is None or a not in inside:
-                continue
-            amps = _reading(doc, a, b)
-            label = f"jumper {jid}\nSHORT" + (f" {_amps(amps)}" if amps is not None else "")
-            doc.edges.append(
-                _Edge(
-                    a,
-                    b,
-                    {
-                        "label": _q(label),
-                        "color": SHORT,
-                        "fontcolor": SHORT,
-                        "style": '"bold,dashed"',
-                        "penwidth": "3.5",
-                        "id": _q(f"lk-jumper-{_sid(jid)}"),
-                        "class": '"lk-jumper lk-short"',
-                    },
-                    ("j", jid),
-                )
+    placed = set(doc.state.jumpers) if doc.state is not None else set()
+    for jumper in sorted(placed | set(doc.reserve_jumpers)):
+        jid, a_name, b_name = jumper
+        a, b = nl.index.get(a_name), nl.index.get(b_name)
+        if a is None or b is None or a not in inside:
+            continue
+        amps = _reading(doc, a, b) if jumper in placed else None
+        label = "SHORT" + (f" {_amps(amps)}" if amps is not None else "")
+        shown = jumper in placed
+        doc.edges.append(
+            _Edge(
+                a,
+                b,
+                {
+                    "label": _two_line(f"jumper {jid}", label, 74),
+                    "color": SHORT,
+                    "fontcolor": SHORT,
+                    "style": '"bold,dashed"' if shown else "invis",
+                    "penwidth": "3.5",
+                    "id": _q(f"lk-jumper-{_sid(jid)}" if shown else f"lk-reserved-{_sid(jid)}"),
+                    "class": '"lk-jumper lk-short"' if shown else '"lk-reserved"',
+                },
+                ("j", jid, a_name, b_name),
             )
+        )
     for inp in nl.inputs:
         if inp.a not in inside:
             continue
@@ -574,7 +621,7 @@ def _emit_edges(doc: _Doc) -> None:
             a, b = (e.a, e.b) if ka <= kb else (e.b, e.a)
             tail, head = _end(doc, a), _end(doc, b)
         text = " ".join(
-            f"{k}={v if v.startswith(chr(34)) else _q(v)}" for k, v in sorted(attrs.items())
+            f"{k}={v if v.startswith((chr(34), '<')) else _q(v)}" for k, v in sorted(attrs.items())
         )
         doc.lines.append(f"  {tail} -> {head} [{text}];")
 
@@ -586,12 +633,14 @@ def _legend(doc: _Doc, title: str | None) -> str:
     st = doc.state
     if st is not None:
         what = "normal state" if st.op is None else op_text(dict(st.op))
-        rows.append(f'<tr><td align="left">Step {st.step}: {_h(what)}</td></tr>')
-        for d in st.dangers:
-            rows.append(
-                f'<tr><td align="left"><font color="{DANGER}"><b>DANGER</b> '
-                f"{_h(d)}</font></td></tr>"
+        rows.append(f"<tr>{_cell(_h(f'Step {st.step}: {what}'), 560, 18, extra=LEFT)}</tr>")
+        for k in range(max(doc.danger_lines, len(st.dangers))):
+            text = (
+                f'<font color="{DANGER}"><b>DANGER</b> {_h(st.dangers[k])}</font>'
+                if k < len(st.dangers)
+                else ""
             )
+            rows.append(f"<tr>{_cell(text, 560, 17, extra=LEFT)}</tr>")
     else:
         rows.append(
             '<tr><td align="left">Normal state (every switch in its normal position)</td></tr>'
@@ -630,6 +679,7 @@ def circuit_dot(
     highlight: Iterable[str] = (),
     title: str | None = None,
     devices: Iterable[str] = (),
+    layout_states: Sequence[StepState] = (),
 ) -> str:
     """The DOT text ``circuit_svg`` lays out (see there)."""
     nl = as_netlist(source)
@@ -646,6 +696,9 @@ def circuit_dot(
         state=state,
         highlight=frozenset(highlight),
         reading=_readings(state),
+        reserve_jumpers=tuple(sorted({j for s in layout_states for j in s.jumpers})),
+        reserve_open=frozenset(c for s in layout_states for c in s.open_cts),
+        danger_lines=max((len(s.dangers) for s in layout_states), default=0),
     )
     return _dot(doc, title or _default_title(nl, circuit, device, ct, devices))
 
@@ -672,15 +725,17 @@ def circuit_svg(
     highlight: Iterable[str] = (),
     title: str | None = None,
     devices: Iterable[str] = (),
+    layout_states: Sequence[StepState] = (),
 ) -> str:
     """The circuit as an SVG document (text, no XML prolog), laid out by graphviz ``dot``.
 
     ``source``: a netlist, a site record or a site document. ``circuit`` (``CKT-<CT code>``),
     ``device`` (or several ``devices``) or ``ct`` choose the part to draw (none: the whole
-    site); ``state``: a step's
-    state (``step_states``), else the normal state; ``highlight``: codes drawn with a heavy
-    frame (the device worked on). Raises ``DrawingError`` for an unknown circuit, device or
-    CT. The same input gives the same bytes."""
+    site); ``layout_states``: the other states of the same procedure, whose jumpers, open-CT
+    markers and danger lines get room (hidden) here too, so every step has the same layout;
+    ``state``: a step's state (``step_states``), else the normal state; ``highlight``: codes
+    drawn with a heavy frame (the device worked on). Raises ``DrawingError`` for an unknown
+    circuit, device or CT. The same input gives the same bytes."""
     nl = as_netlist(source)
     devices = tuple(devices)
     title = title or _default_title(nl, circuit, device, ct, devices)
@@ -693,9 +748,10 @@ def circuit_svg(
         highlight=highlight,
         title=title,
         devices=devices,
+        layout_states=layout_states,
     )
     try:
-        raw = graphviz.pipe("dot", "svg", dot.encode("utf-8")).decode("utf-8")
+        raw = graphviz.pipe("dot", "svg", dot.encode("utf-8"), quiet=True).decode("utf-8")
     except graphviz.ExecutableNotFound as exc:
         raise RuntimeError(
             "circuit drawings need graphviz's `dot` program (Debian: apt-get install graphviz)"

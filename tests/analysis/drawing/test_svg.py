@@ -9,12 +9,20 @@ from __future__ import annotations
 import copy
 import json
 import re
+import subprocess
 from pathlib import Path
 
 import pytest
 
-from analysis.actions import draft_check
-from analysis.drawing import DrawingError, circuit_svg, procedure_svgs, region, step_states
+from analysis.actions import draft_check, procedure_check
+from analysis.drawing import (
+    DrawingError,
+    circuit_dot,
+    circuit_svg,
+    procedure_svgs,
+    region,
+    step_states,
+)
 from analysis.engine import build_netlist
 from tests.analysis.engine.builders import wye_panel
 
@@ -196,3 +204,48 @@ def test_jumper_drawn_as_a_shorting_path_with_its_current() -> None:
     assert "lk-jumper-J1" in _ids(svg)
     assert f"SHORT {reading['a']:.2f} A" in _texts(svg)
     assert "lk-jumper lk-short" in svg
+
+
+def _node_boxes(svg: str) -> dict[str, str]:
+    """The outline of every terminal, CT and input node, by id: where the layout put it."""
+    out = {}
+    for m in re.finditer(
+        r'<g id="(lk-(?:t|ct|input)-[^"]+)" class="node[^"]*">(.*?)</g>', svg, re.S
+    ):
+        shape = re.search(r'(?:points|d)="([^"]+)"', m.group(2))
+        assert shape is not None
+        out[m.group(1)] = shape.group(1)
+    return out
+
+
+def test_every_step_of_a_procedure_has_the_same_layout() -> None:
+    doc = _panel()
+    ops = [
+        {"add_jumper": ["TB-1:A", "TB-1:N"], "id": "J1"},
+        {"lift": ["CB-1-B:X1", "TB-1:B"]},
+        {"land": ["CB-1-B:X1", "TB-1:B"]},
+        {"remove_jumper": "J1"},
+        {"set": "DC-1", "to": "withdrawn"},
+    ]
+    verdict = draft_check(doc, ops, ["R-1"])
+    svgs = procedure_svgs(doc, verdict, device="R-1")
+    assert len(svgs) == len(ops) + 1
+    boxes = [_node_boxes(svg) for svg in svgs]
+    assert len(boxes[0]) > 20
+    for k, b in enumerate(boxes[1:], start=1):
+        assert b == boxes[0], f"step {k} moved the drawing"
+    # the steps still differ where the state does
+    assert "lk-jumper-J1" in _ids(svgs[1]) and "lk-jumper-J1" not in _ids(svgs[4])
+    assert "lk-open-CB-1-B" in _ids(svgs[2]) and "lk-open-CB-1-B" not in _ids(svgs[3])
+
+
+@pytest.mark.parametrize("device", ["R-131", "R-87B"])
+def test_dot_lays_it_out_without_a_warning(device: str) -> None:
+    """Every fixed-size label cell is large enough for its text (dot warns otherwise)."""
+    doc = _quillfen()
+    verdict = procedure_check(doc, "P-87B-CB131-OUT" if device == "R-87B" else "P-R131-CASE")
+    states = step_states(doc, verdict)
+    for st in states:
+        dot = circuit_dot(doc, device=device, state=st, layout_states=states)
+        run = subprocess.run(["dot", "-Tsvg"], input=dot.encode(), capture_output=True, check=True)
+        assert run.stderr.decode() == ""
