@@ -453,7 +453,10 @@ def _dot(doc: _Doc, title: str | None) -> str:
     switches_of: dict[str, list[Switch]] = {}
     for sw in nl.switches.values():
         if any(c.a in inside for c in sw.contacts):
-            owner = nl.owner(sw.contacts[0].a) if sw.contacts else _switch_group(sw.code)
+            # listed with its group (TS-1 for TS-1/A) where the group has terminals drawn,
+            # else with the owner of its first contact (a case's contacts are the relay's)
+            group = _switch_group(sw.code)
+            owner = group if group in by_owner else nl.owner(sw.contacts[0].a)
             switches_of.setdefault(owner, []).append(sw)
     for owner in sorted(by_owner, key=_natural):
         if owner in nl.cts:

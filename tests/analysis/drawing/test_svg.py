@@ -75,6 +75,11 @@ def test_wye_set_with_residual_relay_is_drawn_and_labelled() -> None:
     assert "input IN" in text
     assert "TS-1/A knife" in text and "TS-1/A shorting jaw" in text
     assert "DC-1 (draw out case): inserted" in text
+    # each pole is listed with its test switch, not with the block its line side lands on
+    ts = re.search(r'id="lk-switch-TS-1".*?</g>\s*(?=<g id="lk-)', svg, re.S)
+    assert ts is not None and "TS-1/A (test switch pole):" in ts.group(0)
+    block = re.search(r'id="lk-block-TB-1".*?</g>\s*(?=<g id="lk-)', svg, re.S)
+    assert block is not None and "test switch pole" not in block.group(0)
     assert "tap X1-X2 400:5" in text
     # 320 A maximum load through 400:5 drives 4.00 A in each phase CT
     assert text.count("drives 4.00 A") == 3
