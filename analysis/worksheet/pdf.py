@@ -227,13 +227,15 @@ def worksheet_pdf(
     restore: Sequence[Mapping[str, Any]],
     cautions: Sequence[str],
     prepared_by: str = "",
+    affected: Sequence[str] = (),
 ) -> bytes:
     """The work sheet as PDF bytes (A4; a drawing wider than tall gets a landscape page).
 
     ``steps`` and ``restore``: ``{"op": operation dict or None, "why": text (optional),
     "readings": [{"between": [T1, T2], "a": amps, "parallel": bool}]}`` in order; ``restore``
     may be empty (a stored procedure holds its restoration among its steps). ``cautions``
-    are printed in the footer of every page; none given means the engine's."""
+    are printed in the footer of every page; none given means the engine's. ``affected``:
+    the protection and metering lost on other devices while the work is under way."""
     cautions = list(cautions) or default_cautions()
     st = _styles()
     buf = io.BytesIO()
@@ -312,6 +314,10 @@ def worksheet_pdf(
     )
     facts_table.setStyle(TableStyle([("GRID", (0, 0), (-1, -1), 0.5, RULE)]))
     story += [facts_table, Spacer(1, 4 * mm)]
+    if affected:
+        story.append(Paragraph("Lost while the work is under way", st["h2"]))
+        story += [Paragraph(f"- {_p(a)}", st["body"]) for a in affected]
+        story.append(Spacer(1, 2 * mm))
     found = svg2rlg(io.BytesIO(svg.encode("utf-8"))) if svg else None
     if found is not None:
         wide = found.width > 1.2 * found.height
@@ -411,8 +417,6 @@ def worksheet_for_plan(
         for a in plan.get("affected") or ()
     ]
     subtitle = f"Take {device} out of service and put it back (isolation plan)."
-    if affected:
-        subtitle += " Also affected while the work is under way: " + "; ".join(affected)
     return worksheet_pdf(
         site=str(plan.get("site")),
         site_name=site_name,
@@ -424,6 +428,7 @@ def worksheet_for_plan(
         restore=[_plan_step(x) for x in plan.get("restore") or ()],
         cautions=list(plan.get("cautions") or ()),
         prepared_by=prepared_by,
+        affected=affected,
     )
 
 

@@ -156,3 +156,13 @@ def test_impossible_plan_prints_no_sheet_and_says_why() -> None:
     assert not plan["possible"]
     with pytest.raises(WorksheetRefused, match="No safe isolation plan for R-1: no sequence"):
         worksheet_for_plan(plan, site_name="x", revision=1)
+
+
+def test_plan_sheet_names_what_else_loses_its_current() -> None:
+    doc = _quillfen()
+    plan = isolation_plan(doc, "R-132")
+    assert plan["possible"] and plan["affected"]
+    text = " ".join(_pages(worksheet_for_plan(plan, site_name="Quillfen", revision=2)))
+    assert "Lost while the work is under way" in text
+    for item in plan["affected"]:
+        assert " ".join(item["message"].split()[:6]) in text
