@@ -58,8 +58,16 @@ def test_plan_sheet_content(plan_sheet: tuple[dict[str, Any], bytes]) -> None:
     assert "QFN - Quillfen 115/13.8 kV" in text
     assert "device R-131" in text
     assert "Record revision checked against 12" in text
-    assert f"page 1 of {len(pages)}" in pages[0]
-    assert f"page {len(pages)} of {len(pages)}" in pages[-1]
+    for k, page in enumerate(pages, start=1):
+        assert f"page {k} of {len(pages)}" in page
+        assert "Work sheet QFN device R-131 (record revision 12)" in page  # the header
+    # cover, the drawing on a landscape page of its own (it is wider than tall), the steps
+    reader = PdfReader(io.BytesIO(pdf))
+    shapes = [(float(p.mediabox.width), float(p.mediabox.height)) for p in reader.pages]
+    assert shapes[0][0] < shapes[0][1]
+    assert shapes[1][0] > shapes[1][1] and "Circuit (normal state)" in pages[1]
+    assert all(w < h for w, h in shapes[2:])
+    assert len(pages) == 4
     # every isolation and restore step, numbered on, with its why
     n_iso = len(plan["isolate"])
     assert "Isolation steps" in text and "Restore steps" in text
