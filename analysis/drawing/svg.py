@@ -653,7 +653,7 @@ def _legend(doc: _Doc, title: str | None) -> str:
         "Dashed grey 'open': open contact. Thick blue-green 'SHORT': a shorting path in place,"
         " with its current.",
         "Red 'OPEN SECONDARY' double octagon: a CT that would open.",
-        "Black square: CT polarity terminal (X1 end); bold boxed: the tap in use."
+        "Black square: CT polarity terminal (position 0: X1 or S1); bold boxed: the tap in use."
         " Triangle: ground point.",
     )
     text = "".join(f'{_h(line)}<br align="left"/>' for line in legend)
