@@ -48,15 +48,18 @@ class Command(BaseCommand):
         try:
             if device:
                 plan = actions.isolation_plan(doc, device)
-                svg = circuit_svg(doc, device=device, highlight=[device])
                 pdf = worksheet_for_plan(
-                    plan, site_name=row.name, revision=now, checked_revision=checked, svg=svg
+                    plan,
+                    site_name=row.name,
+                    revision=now,
+                    checked_revision=checked,
+                    svg=circuit_svg(doc, device=device, highlight=[device]),
                 )
             else:
                 verdict = actions.procedure_check(doc, code)
                 proc = next(p for p in doc["procedures"] if p["code"] == code)
                 devices = list(proc.get("devices") or ())
-                svg = circuit_svg(doc, devices=devices, highlight=devices) if devices else None
+                drawing = circuit_svg(doc, devices=devices, highlight=devices) if devices else None
                 pdf = worksheet_for_procedure(
                     verdict,
                     site_name=row.name,
@@ -64,7 +67,7 @@ class Command(BaseCommand):
                     devices=devices,
                     revision=now,
                     checked_revision=checked,
-                    svg=svg,
+                    svg=drawing,
                 )
         except WorksheetRefused as exc:
             raise CommandError(f"no work sheet: {exc.reason}", returncode=EXIT_UNSAFE) from exc
