@@ -450,6 +450,11 @@ def _dot(doc: _Doc, title: str | None) -> str:
     by_owner: dict[str, list[int]] = {}
     for t in doc.terms:
         by_owner.setdefault(nl.owner(t), []).append(t)
+    for inp in nl.inputs:
+        # an input's box sits in its device's frame, even where the record wires the input
+        # between terminals of other owners (a block's, say)
+        if inp.a in inside:
+            by_owner.setdefault(inp.device, [])
     switches_of: dict[str, list[Switch]] = {}
     for sw in nl.switches.values():
         if any(c.a in inside for c in sw.contacts):

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import copy
 import json
+import random
 import re
 import subprocess
 from pathlib import Path
@@ -25,6 +26,7 @@ from analysis.drawing import (
 )
 from analysis.engine import build_netlist
 from tests.analysis.engine.builders import wye_panel
+from tests.analysis.engine.generators import random_delta, random_mesh, random_parallel, random_wye
 
 DEMO = Path(__file__).resolve().parents[3] / "fixtures" / "demo"
 
@@ -254,3 +256,24 @@ def test_dot_lays_it_out_without_a_warning(device: str) -> None:
         dot = circuit_dot(doc, device=device, state=st, layout_states=states)
         run = subprocess.run(["dot", "-Tsvg"], input=dot.encode(), capture_output=True, check=True)
         assert run.stderr.decode() == ""
+
+
+@pytest.mark.parametrize("seed", [1, 2, 3])
+def test_generated_circuits_are_drawn_whole_and_stable(seed: int) -> None:
+    """Seeded random wye, delta, summation and mesh circuits (the oracle tests' generators):
+    every CT and every device input is drawn, inside its owner's frame, and a second drawing
+    of the same record is the same bytes."""
+    rng = random.Random(seed)
+    for n, make in enumerate((random_wye, random_delta, random_parallel, random_mesh)):
+        doc = make(rng, n)
+        nl = build_netlist(doc)
+        svg = circuit_svg(doc)
+        assert svg == circuit_svg(copy.deepcopy(doc))
+        ids = _ids(svg)
+        assert {f"lk-ct-{c}" for c in nl.cts} <= ids
+        assert {f"lk-input-{i.device}-{i.name}" for i in nl.inputs} <= ids
+        for i in nl.inputs:
+            frame = re.search(rf'id="lk-device-{i.device}".*?<g id="lk-input-', svg, re.S)
+            assert frame is not None
+        # no node that dot made up for a name it was not given (it would show the bare id)
+        assert not re.search(r"<text[^>]*>(in|gnd|ct)_\d+</text>", svg)
