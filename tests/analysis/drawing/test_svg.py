@@ -277,3 +277,14 @@ def test_generated_circuits_are_drawn_whole_and_stable(seed: int) -> None:
             assert frame is not None
         # no node that dot made up for a name it was not given (it would show the bare id)
         assert not re.search(r"<text[^>]*>(in|gnd|ct)_\d+</text>", svg)
+
+
+def test_record_text_is_escaped_in_the_svg() -> None:
+    """The pages put the SVG inline: text from the record must stay text."""
+    doc = _panel()
+    doc["devices"][0]["functions"] = ["<script>alert(1)</script>", "50&51"]
+    doc["devices"][0]["ratio_setting"] = '400:5" onload="x'
+    svg = circuit_svg(doc, device="R-1", title="<b>title</b>")
+    assert "<script" not in svg and "<b>title" not in svg
+    assert "&lt;script&gt;" in svg
+    assert 'onload="x' not in svg
