@@ -419,6 +419,18 @@ def _contact_edges(doc: _Doc, inside: set[int]) -> None:
             doc.edges.append(_Edge(c.a, c.b, attrs, ("c", _natural(sw.code), k)))
 
 
+def _lead_text(spec: rec.Wire) -> str:
+    """What a wire is: its size and length as recorded (``10AWG 310 ft``), or ``lead``."""
+    if spec.length_m is not None:
+        length = f"{spec.length_m:g} m"
+    elif spec.length_ft is not None:
+        length = f"{spec.length_ft:g} ft"
+    else:
+        length = ""
+    material = "" if (spec.material or "cu") == "cu" else f" {spec.material}"
+    return " ".join(x for x in (f"{spec.size}{material}".strip(), length) if x) or "lead"
+
+
 def _lifted(doc: _Doc, a: int, b: int) -> bool:
     if doc.state is None:
         return False
@@ -512,17 +524,17 @@ def _dot(doc: _Doc, title: str | None) -> str:
         )
         doc.edges.append(_Edge(g, -1, {"penwidth": "1.5", "_head": gid}, ("g", nl.terminals[g])))
 
+    specs = nl.record.wires if nl.record is not None else ()
     for w in nl.wires:
         if w.a not in inside:
             continue
+        lead = _lead_text(specs[w.index]) if w.index < len(specs) else "lead"
         if _lifted(doc, w.a, w.b):
             attrs = {"style": "dashed", "color": MUTED, "fontcolor": MUTED}
-            attrs["label"] = f'<<table border="0"><tr>{_cell("LIFTED", 66)}</tr></table>>'
+            attrs["label"] = _two_line(lead, "LIFTED", 66)
         else:
             attrs = {"penwidth": "1.3"}
-            attrs["label"] = (
-                f'<<table border="0"><tr>{_cell(_h(f"{w.r_ohm:.3g} ohm"), 66)}</tr></table>>'
-            )
+            attrs["label"] = _two_line(lead, f"{w.r_ohm:.3g} ohm", 66)
         attrs["id"] = _q(f"lk-wire-{w.index}")
         attrs["class"] = '"lk-wire"'
         doc.edges.append(_Edge(w.a, w.b, attrs, ("w", w.index)))

@@ -101,6 +101,8 @@ def test_87b_summation_of_four_sets_is_drawn() -> None:
     for b in "0123":
         assert f"lk-block-TB-13{b}D" in ids
         assert f"TB-13{b}D/SS (shorting screw): open" in text
+    # a lead says what it is, as recorded (CB-131-DA:X1 to TB-131D:1: 10AWG, 260 ft)
+    assert "10AWG 260 ft" in text
     assert "lk-block-TB-87B" in ids
     assert "lk-switch-TS-87B" in ids
     assert {f"lk-input-R-87B-I{p}" for p in "ABC"} <= ids
