@@ -16,6 +16,7 @@ from django.db.models import (
     Count,
     F,
     IntegerField,
+    Min,
     OuterRef,
     Q,
     QuerySet,
@@ -28,6 +29,7 @@ from django.db.models.functions import Coalesce
 from analysis import models
 from analysis.engine.findings import SEVERITY_ORDER
 from inventory import models as inv
+from inventory.choices import ChangeStatus
 from inventory.models import Site
 from inventory.selectors import site_records
 from record import SiteRecord
@@ -154,6 +156,25 @@ def stale_site_ids() -> list[int]:
         .order_by("pk")
         .values_list("pk", flat=True)
     )
+
+
+def stale_site_count() -> int:
+    """How many sites have stored results missing or older than their record (one query)."""
+    computed = models.SiteComputation.objects.filter(site_id=OuterRef("pk")).values("revision")
+    return (
+        Site.objects.annotate(computed_revision=Subquery(computed[:1]))
+        .filter(Q(computed_revision__isnull=True) | Q(computed_revision__lt=F("revision")))
+        .count()
+    )
+
+
+def pending_requests() -> tuple[int, Any]:
+    """The recompute requests (outbox rows) not done yet: how many, and when the oldest was
+    made (None when there is none). One query."""
+    row = inv.SiteChange.objects.filter(status=ChangeStatus.PENDING).aggregate(
+        n=Count("pk"), oldest=Min("created_at")
+    )
+    return row["n"], row["oldest"]
 
 
 def ct_report(*, site: str, ct: str) -> tuple[dict, bool] | None:

@@ -121,3 +121,16 @@ def sweep_requests(self) -> int:
 def recompute_fleet(self) -> int:
     """Nightly: recompute every site (also picks up engine changes). Returns the run id."""
     return services.fleet_recompute(force=True).pk
+
+
+@app.task(
+    name="analysis.prune_results", acks_late=True, soft_time_limit=20 * 60, time_limit=25 * 60
+)
+def prune_results() -> dict[str, int]:
+    """Daily: old runs, chunks and outbox rows, and the results of deleted sites
+    (``analysis.retention``)."""
+    from django.conf import settings
+
+    from analysis.retention import results_prune
+
+    return results_prune(keep_days=settings.LOOPKEEP_PRUNE_KEEP_DAYS)

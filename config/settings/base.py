@@ -7,8 +7,11 @@ from __future__ import annotations
 import os
 from pathlib import Path
 
-import dj_database_url
 from celery.schedules import crontab
+from kombu import Queue
+
+from config.database import databases
+from config.logs import logging_config
 
 BASE_DIR = Path(__file__).resolve().parent.parent.parent
 VAR_DIR = Path(os.environ.get("LOOPKEEP_VAR_DIR", BASE_DIR / "var"))
@@ -48,6 +51,8 @@ INSTALLED_APPS = [
 ]
 
 MIDDLEWARE = [
+    # First: the request id, log context and replica reads cover everything after it.
+    "config.middleware.RequestContextMiddleware",
     "django.middleware.security.SecurityMiddleware",
     "django.contrib.sessions.middleware.SessionMiddleware",
     "django.middleware.common.CommonMiddleware",
@@ -76,20 +81,15 @@ TEMPLATES = [
     },
 ]
 
-DATABASES = {
-    "default": dj_database_url.parse(
-        os.environ.get("DATABASE_URL", f"sqlite:///{VAR_DIR / 'loopkeep.sqlite3'}"),
-        conn_max_age=int(os.environ.get("DATABASE_CONN_MAX_AGE", "60")),
-    )
-}
+# The primary (DATABASE_URL), its pooling (DATABASE_POOL: none, native or pgbouncer) and an
+# optional read replica (DATABASE_REPLICA_URL): see config/database.py and deploy/README.md.
+DATABASES = databases(os.environ, sqlite_default=f"sqlite:///{VAR_DIR / 'loopkeep.sqlite3'}")
 if DATABASES["default"]["ENGINE"] == "django.db.backends.sqlite3":
     VAR_DIR.mkdir(parents=True, exist_ok=True)
-    # SQLite is the embedded default; WAL lets the in-process jobs read while a write commits.
-    DATABASES["default"]["CONN_MAX_AGE"] = 0
-    DATABASES["default"].setdefault("OPTIONS", {})
-    DATABASES["default"]["OPTIONS"].update(
-        {"init_command": "PRAGMA journal_mode=WAL; PRAGMA synchronous=NORMAL;", "timeout": 20}
-    )
+# With a replica configured, the API's reads go there and a request that writes reads from the
+# primary afterwards (config/routers.py); LOOPKEEP_REPLICA_READS=0 keeps every read on the primary.
+LOOPKEEP_REPLICA_READS = "replica" in DATABASES and env_bool("LOOPKEEP_REPLICA_READS", True)
+DATABASE_ROUTERS = ["config.routers.PrimaryReplicaRouter"]
 
 DEFAULT_AUTO_FIELD = "django.db.models.BigAutoField"
 
@@ -184,7 +184,7 @@ CELERY_TASK_IGNORE_RESULT = not CELERY_RESULT_BACKEND
 CELERY_BROKER_CONNECTION_RETRY_ON_STARTUP = True
 CELERY_BROKER_CONNECTION_TIMEOUT = 4
 # The visibility timeout must exceed the longest task (an unacked message comes back after it).
-CELERY_BROKER_TRANSPORT_OPTIONS = {"visibility_timeout": 3600}
+CELERY_BROKER_TRANSPORT_OPTIONS: dict[str, object] = {"visibility_timeout": 3600}
 # A send during a broker outage gives up after about a second: the outbox row stays pending and
 # the sweep sends it again, so the edit that asked for it is not held up.
 CELERY_TASK_PUBLISH_RETRY_POLICY = {
@@ -194,13 +194,42 @@ CELERY_TASK_PUBLISH_RETRY_POLICY = {
     "interval_max": 0.5,
 }
 CELERY_WORKER_MAX_MEMORY_PER_CHILD = int(os.environ.get("CELERY_WORKER_MAX_MEMORY_KB", "1000000"))
+# Queues per kind of work, each with its own workers (deploy/loopkeep-worker@.service), so a
+# large import never holds up the recompute of an edit: "recompute" (the analysis: a run per
+# edit, fleet chunks at a lower priority so an edit's run overtakes a nightly run's queue),
+# "imports" (inventory.tasks: site files and sheets) and "default" (housekeeping). A worker
+# started without -Q consumes all three.
+CELERY_TASK_DEFAULT_QUEUE = "default"
+CELERY_TASK_QUEUES = (Queue("default"), Queue("recompute"), Queue("imports"))
+# Redis priorities: 0 is served first; a chunk of a multi-site run waits behind an edit's run.
+CHUNK_PRIORITY = 6
+CELERY_TASK_ROUTES = {
+    "analysis.recompute_chunk": {"queue": "recompute", "priority": CHUNK_PRIORITY},
+    "analysis.prune_results": {"queue": "default"},
+    "analysis.*": {"queue": "recompute"},
+    "inventory.*": {"queue": "imports"},
+}
+CELERY_BROKER_TRANSPORT_OPTIONS["queue_order_strategy"] = "priority"
+CELERY_BROKER_TRANSPORT_OPTIONS["priority_steps"] = [0, 3, CHUNK_PRIORITY, 9]
 CELERY_BEAT_SCHEDULE = {
     "send-pending-recompute-requests": {"task": "analysis.sweep_requests", "schedule": 60.0},
     "recompute-fleet-nightly": {
         "task": "analysis.recompute_fleet",
         "schedule": crontab(hour=2, minute=15),
     },
+    "prune-results-daily": {
+        "task": "analysis.prune_results",
+        "schedule": crontab(hour=3, minute=40),
+    },
 }
+# prune_results: finished runs (and their chunks) and done outbox rows older than this go.
+LOOPKEEP_PRUNE_KEEP_DAYS = int(os.environ.get("LOOPKEEP_PRUNE_KEEP_DAYS", "30"))
+# /ready/: a worker of each of these queues must have sent a heartbeat within
+# READY_WORKER_HEARTBEAT_S, and no recompute request may be pending longer than
+# READY_MAX_PENDING_AGE_S (the sweep sends lost ones again after a minute).
+READY_QUEUES = env_list("READY_QUEUES", "recompute,imports")
+READY_WORKER_HEARTBEAT_S = float(os.environ.get("READY_WORKER_HEARTBEAT_S", "30"))
+READY_MAX_PENDING_AGE_S = float(os.environ.get("READY_MAX_PENDING_AGE_S", "600"))
 # One BLAS/OpenMP thread per process: the engine solves many small systems, and with a pool of
 # worker processes per core, library threads only fight over the cores (measured: 2 workers on
 # 2 cores computed 1.7x slower with the default threads). Must be set before numpy loads.
@@ -208,12 +237,10 @@ for _threads_var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS
     os.environ.setdefault(_threads_var, "1")
 LOOPKEEP_RECOMPUTE_CHUNK_SITES = int(os.environ.get("LOOPKEEP_RECOMPUTE_CHUNK_SITES", "10"))
 
-LOGGING = {
-    "version": 1,
-    "disable_existing_loggers": False,
-    "handlers": {"console": {"class": "logging.StreamHandler"}},
-    "root": {"handlers": ["console"], "level": os.environ.get("LOG_LEVEL", "INFO")},
-}
+# Logs on standard error: LOG_FORMAT=json writes one JSON object per line with the request id,
+# user, site, task and run id of the line (config/logs.py); text (default) a readable line.
+LOG_FORMAT = os.environ.get("LOG_FORMAT", "text").strip().lower()
+LOGGING = logging_config(fmt=LOG_FORMAT, level=os.environ.get("LOG_LEVEL", "INFO"))
 if CELERY_TASK_ALWAYS_EAGER:
     # In-process jobs run inside the command (or request) that asked for them: Celery's line
     # per task ("Task ... succeeded in ...") and kombu's note that no broker host was given

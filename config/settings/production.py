@@ -4,6 +4,7 @@ import os
 
 from django.core.exceptions import ImproperlyConfigured
 
+from config.logs import logging_config
 from config.settings.base import *  # noqa: F403
 from config.settings.base import env_bool, env_list
 
@@ -16,6 +17,8 @@ CSRF_TRUSTED_ORIGINS = env_list("CSRF_TRUSTED_ORIGINS")
 
 SECURE_PROXY_SSL_HEADER = ("HTTP_X_FORWARDED_PROTO", "https")
 SECURE_SSL_REDIRECT = env_bool("SECURE_SSL_REDIRECT", True)
+# Load balancers and process managers probe these over plain HTTP on the private side.
+SECURE_REDIRECT_EXEMPT = [r"^health/$", r"^ready/$"]
 SESSION_COOKIE_SECURE = True
 CSRF_COOKIE_SECURE = True
 SECURE_HSTS_SECONDS = int(os.environ.get("SECURE_HSTS_SECONDS", str(60 * 60 * 24 * 365)))
@@ -23,3 +26,5 @@ SECURE_HSTS_INCLUDE_SUBDOMAINS = True
 SECURE_HSTS_PRELOAD = True
 SECURE_CONTENT_TYPE_NOSNIFF = True
 X_FRAME_OPTIONS = "DENY"
+LOG_FORMAT = os.environ.get("LOG_FORMAT", "json").strip().lower()
+LOGGING = logging_config(fmt=LOG_FORMAT, level=os.environ.get("LOG_LEVEL", "INFO"))
