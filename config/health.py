@@ -32,6 +32,7 @@ from django.views.decorators.http import require_GET
 
 from config import heartbeat
 from config.database import REPLICA
+from config.routers import replica_enabled
 
 
 @never_cache
@@ -108,7 +109,7 @@ def _results() -> dict[str, Any]:
 @require_GET
 def ready(request: HttpRequest) -> JsonResponse:
     checks: dict[str, dict[str, Any]] = {"database": _timed(_database("default"))}
-    if REPLICA in settings.DATABASES:
+    if replica_enabled():  # the replica answers the API's reads
         checks["replica"] = _timed(_database(REPLICA))
     if settings.CELERY_TASK_ALWAYS_EAGER:
         skipped = {"ok": True, "skipped": "no broker: jobs run in the web process"}

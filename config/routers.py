@@ -50,16 +50,19 @@ def pinned() -> bool:
     return _reads.get() == "pinned"
 
 
+def _in_transaction() -> bool:
+    """Whether the code runs in a transaction of the primary (the test runner's own wrapping
+    transaction, marked ``_from_testcase`` by Django, does not count)."""
+    blocks = connections[DEFAULT_DB_ALIAS].atomic_blocks
+    return any(not getattr(block, "_from_testcase", False) for block in blocks)
+
+
 class PrimaryReplicaRouter:
     """``DATABASE_ROUTERS`` entry. Inactive (everything on the primary) unless the settings
     enable replica reads and define the ``replica`` alias."""
 
     def db_for_read(self, model: Any, **hints: Any) -> str:
-        if (
-            _reads.get() == "replica"
-            and replica_enabled()
-            and not connections[DEFAULT_DB_ALIAS].in_atomic_block
-        ):
+        if _reads.get() == "replica" and replica_enabled() and not _in_transaction():
             return REPLICA
         return DEFAULT_DB_ALIAS
 

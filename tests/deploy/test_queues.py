@@ -1,0 +1,53 @@
+"""Queues per kind of work (config/settings/base.py): where each task goes, and on Redis that a
+chunk of a fleet run waits behind an edit's run in the ``recompute`` queue (kombu's Redis
+transport serves priority 0 first: kombu docs, "Redis message priorities")."""
+
+from __future__ import annotations
+
+import pytest
+
+from analysis.tasks import recompute_chunk, recompute_run
+from config.celery import app
+
+
+@pytest.mark.parametrize(
+    ("task", "queue", "priority"),
+    [
+        ("analysis.recompute_run", "recompute", None),
+        ("analysis.recompute_chunk", "recompute", 6),
+        ("analysis.sweep_requests", "recompute", None),
+        ("analysis.recompute_fleet", "recompute", None),
+        ("analysis.prune_results", "default", None),
+        ("inventory.tasks.import_site_file", "imports", None),
+        ("celery.ping", "default", None),
+    ],
+)
+def test_task_routes(task, queue, priority):
+    route = app.amqp.router.route({}, task)
+    assert route["queue"].name == queue
+    assert route.get("priority") == priority
+
+
+def test_a_worker_without_queues_consumes_all_three():
+    assert set(app.amqp.queues) == {"default", "recompute", "imports"}
+
+
+@pytest.mark.broker
+def test_an_edit_run_overtakes_queued_fleet_chunks():
+    app.conf.task_always_eager = False
+    try:
+        app.control.purge()
+        for index in range(3):
+            recompute_chunk.delay(1, index, [index], True)
+        recompute_run.delay(77)
+        with app.connection_for_read() as conn:
+            queue = conn.SimpleQueue("recompute", no_ack=True)
+            first = queue.get(timeout=5)
+            names = [first.headers["task"]]
+            names += [queue.get(timeout=5).headers["task"] for _ in range(3)]
+            queue.close()
+        assert first.payload[0] == [77], first.payload
+        assert names == ["analysis.recompute_run"] + ["analysis.recompute_chunk"] * 3
+    finally:
+        app.control.purge()
+        app.conf.task_always_eager = True if not app.conf.broker_url else False
