@@ -86,9 +86,10 @@ def test_prune_refuses_to_keep_less_than_a_day():
 
 
 def test_prune_runs_daily_on_the_default_queue(settings):
+    from analysis import tasks
     from config.celery import app
 
     entry = settings.CELERY_BEAT_SCHEDULE["prune-results-daily"]
     assert entry["task"] == "analysis.prune_results"
-    assert "analysis.prune_results" in app.tasks
+    assert app.tasks["analysis.prune_results"] is tasks.prune_results
     assert app.amqp.router.route({}, "analysis.prune_results")["queue"].name == "default"

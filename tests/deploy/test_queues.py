@@ -34,6 +34,7 @@ def test_a_worker_without_queues_consumes_all_three():
 
 @pytest.mark.broker
 def test_an_edit_run_overtakes_queued_fleet_chunks():
+    before = app.conf.task_always_eager
     app.conf.task_always_eager = False
     try:
         app.control.purge()
@@ -50,4 +51,4 @@ def test_an_edit_run_overtakes_queued_fleet_chunks():
         assert names == ["analysis.recompute_run"] + ["analysis.recompute_chunk"] * 3
     finally:
         app.control.purge()
-        app.conf.task_always_eager = True if not app.conf.broker_url else False
+        app.conf.task_always_eager = before
