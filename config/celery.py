@@ -26,11 +26,14 @@ _worker: dict[str, Any] = {"hostname": None, "queues": []}
 
 
 @signals.setup_logging.connect
-def _configure_logging(**kwargs: Any) -> None:
-    # Connected: Celery leaves the logging to Django's LOGGING instead of its own format.
+def _configure_logging(loglevel: Any = None, **kwargs: Any) -> None:
+    # Connected: Celery leaves the logging to Django's LOGGING instead of its own format; the
+    # command line's --loglevel still sets the level.
     from django.conf import settings
 
     logging.config.dictConfig(settings.LOGGING)
+    if loglevel:
+        logging.getLogger().setLevel(loglevel)
 
 
 @signals.task_prerun.connect

@@ -2,9 +2,10 @@
 
 Every Celery worker sends itself a heartbeat every few seconds (Celery's ``heartbeat_sent``
 signal, on unless the worker runs ``--without-heartbeat``); ``config.celery`` writes it here as
-one key per worker, ``loopkeep:worker:<hostname>``, holding the queues it consumes and the
-time, expiring after ``KEY_TTL_S``. A key is also written when the worker is ready and removed
-when it shuts down. Readers compare the time with their own bound (``READY_WORKER_HEARTBEAT_S``).
+one key per worker, ``loopkeep:worker:<hostname>`` (after ``CELERY_BROKER_KEY_PREFIX``),
+holding the queues it consumes and the time, expiring after ``KEY_TTL_S``. A key is also
+written when the worker is ready and removed when it shuts down. Readers compare the time
+with their own bound (``READY_WORKER_HEARTBEAT_S``).
 """
 
 from __future__ import annotations
@@ -17,6 +18,16 @@ from typing import Any
 import redis
 
 PREFIX = "loopkeep:worker:"
+
+
+def key_prefix() -> str:
+    """The keys' prefix: the broker's key prefix (one Redis shared by installations) first."""
+    from django.conf import settings
+
+    options = getattr(settings, "CELERY_BROKER_TRANSPORT_OPTIONS", {}) or {}
+    return str(options.get("global_keyprefix", "")) + PREFIX
+
+
 KEY_TTL_S = 300
 
 _clients: dict[str, redis.Redis] = {}
@@ -36,17 +47,17 @@ def beat(url: str, *, hostname: str, queues: list[str]) -> None:
     value = json.dumps(
         {"hostname": hostname, "queues": queues, "at": time.time(), "pid": os.getpid()}
     )
-    client(url).set(PREFIX + hostname, value, ex=KEY_TTL_S)
+    client(url).set(key_prefix() + hostname, value, ex=KEY_TTL_S)
 
 
 def gone(url: str, *, hostname: str) -> None:
-    client(url).delete(PREFIX + hostname)
+    client(url).delete(key_prefix() + hostname)
 
 
 def workers(url: str) -> list[dict[str, Any]]:
     """Every worker heard of in the last ``KEY_TTL_S`` s, with ``age_s``."""
     r = client(url)
-    keys = sorted(r.scan_iter(match=PREFIX + "*", count=200))
+    keys = sorted(r.scan_iter(match=key_prefix() + "*", count=200))
     now = time.time()
     out = []
     values: list[Any] = list(r.mget(keys)) if keys else []  # type: ignore[arg-type]

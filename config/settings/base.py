@@ -209,6 +209,10 @@ CELERY_TASK_ROUTES = {
     "analysis.*": {"queue": "recompute"},
     "inventory.*": {"queue": "imports"},
 }
+# Several installations (or a test run beside a live one) may share one Redis: a prefix keeps
+# their queues apart.
+if os.environ.get("CELERY_BROKER_KEY_PREFIX"):
+    CELERY_BROKER_TRANSPORT_OPTIONS["global_keyprefix"] = os.environ["CELERY_BROKER_KEY_PREFIX"]
 CELERY_BROKER_TRANSPORT_OPTIONS["queue_order_strategy"] = "priority"
 CELERY_BROKER_TRANSPORT_OPTIONS["priority_steps"] = [0, 3, CHUNK_PRIORITY, 9]
 CELERY_BEAT_SCHEDULE = {

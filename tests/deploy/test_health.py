@@ -71,10 +71,10 @@ def broker_mode(settings):
     settings.READY_QUEUES = ["recompute", "imports"]
     settings.READY_WORKER_HEARTBEAT_S = 30
     r = heartbeat.client(settings.CELERY_BROKER_URL)
-    for key in r.scan_iter(match=heartbeat.PREFIX + "*"):
+    for key in r.scan_iter(match=heartbeat.key_prefix() + "*"):
         r.delete(key)
     yield settings.CELERY_BROKER_URL
-    for key in r.scan_iter(match=heartbeat.PREFIX + "*"):
+    for key in r.scan_iter(match=heartbeat.key_prefix() + "*"):
         r.delete(key)
 
 
@@ -97,7 +97,7 @@ def test_ready_needs_a_recent_worker_heartbeat_on_every_queue(broker_mode):
 
     # A heartbeat older than the bound does not count (the worker hangs or died unclean).
     old = {"hostname": "imports@a", "queues": ["imports"], "at": time.time() - 120, "pid": 1}
-    heartbeat.client(url).set(heartbeat.PREFIX + "imports@a", json.dumps(old))
+    heartbeat.client(url).set(heartbeat.key_prefix() + "imports@a", json.dumps(old))
     response = Client().get("/ready/")
     assert response.status_code == 503
     assert response.json()["checks"]["workers"]["queues"]["imports"] == {

@@ -1,0 +1,134 @@
+"""``bench_edit_latency [--workers 2] [--edits 5] [--site CODE] [--no-fleet]``: how long one edit
+waits for its results (PostgreSQL and a broker required; a measurement, not a test).
+
+Starts ``--workers`` Celery worker processes on the ``recompute`` queue, then changes the tap of
+one CT of one site ``--edits`` times (through ``ct_change_tap``, the service the API calls) and
+times each from the commit to the moment the site's stored results are fresh (its
+``SiteComputation`` at the new revision), first with the workers idle, then while a fleet run of
+every site is under way (the edit's run overtakes the queued fleet chunks: config/settings/base.py).
+The fleet run is stopped after the edits (its remaining messages purged, the run marked failed).
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import statistics
+import subprocess
+import sys
+import time
+
+from django.conf import settings
+from django.core.management.base import BaseCommand, CommandError
+from django.db import connection, transaction
+from django.utils import timezone
+
+from analysis import selectors, services
+from analysis.models import AnalysisRun, RunStatus
+from inventory import models as inv
+from inventory.services import ct_change_tap
+
+TIMEOUT_S = 120.0
+
+
+class Command(BaseCommand):
+    help = "Benchmark the latency of one edit's recompute, idle and during a fleet run."
+
+    def add_arguments(self, parser) -> None:
+        parser.add_argument("--workers", type=int, default=2)
+        parser.add_argument("--edits", type=int, default=5)
+        parser.add_argument("--site", default="")
+        parser.add_argument("--no-fleet", action="store_true", help="only the idle figures")
+
+    def handle(self, *args, workers: int, edits: int, site: str, no_fleet: bool, **kw) -> None:
+        if connection.vendor != "postgresql" or not settings.CELERY_BROKER_URL:
+            raise CommandError("bench_edit_latency needs PostgreSQL and a broker")
+        from config.celery import app
+
+        target = (
+            inv.Site.objects.get(code=site) if site else inv.Site.objects.order_by("pk").first()
+        )
+        if target is None:
+            raise CommandError("no site: import one (generate_fleet) first")
+        ct = inv.CurrentTransformer.objects.filter(site=target).order_by("code").first()
+        if ct is None:
+            raise CommandError(f"site {target.code} has no CT to change")
+        sites = inv.Site.objects.count()
+        app.control.purge()
+        worker = subprocess.Popen(
+            [sys.executable, "-m", "celery", "-A", "config", "worker", "--loglevel=WARNING",
+             "-Q", "recompute,default", f"--concurrency={workers}", "--prefetch-multiplier=1",
+             "-O", "fair", "--without-gossip", "--without-mingle"],
+            env={**os.environ, "DJANGO_SETTINGS_MODULE": os.environ.get(
+                "DJANGO_SETTINGS_MODULE", "config.settings.local")},
+        )  # fmt: skip
+        try:
+            self._wait_ready(app, worker)
+            self._edit(ct, target.code)  # warm-up: imports, connections, first compute
+            idle = [self._edit(ct, target.code) for _ in range(edits)]
+            self._report("idle", idle, workers)
+            if not no_fleet:
+                run = services.fleet_recompute(force=True, on_commit=False)
+                self._wait(lambda: self._done(run.pk) > 0, "the fleet run's first chunk")
+                busy, progress = [], []
+                for _ in range(edits):
+                    busy.append(self._edit(ct, target.code))
+                    progress.append(self._done(run.pk))
+                self._report(f"during a fleet run of {sites} sites", busy, workers)
+                self.stdout.write(f"  fleet sites done at each edit: {progress}")
+                app.control.purge()
+                AnalysisRun.objects.filter(pk=run.pk).exclude(status=RunStatus.SUCCESS).update(
+                    status=RunStatus.FAILURE,
+                    finished_at=timezone.now(),
+                    error="stopped by bench_edit_latency\n",
+                )
+        finally:
+            worker.send_signal(signal.SIGTERM)
+            try:
+                worker.wait(120)
+            except subprocess.TimeoutExpired:
+                worker.kill()
+
+    def _edit(self, ct: inv.CurrentTransformer, code: str) -> float:
+        names = sorted(inv.Terminal.objects.filter(ct=ct).values_list("name", flat=True))
+        roles = dict(
+            inv.Terminal.objects.filter(ct=ct, tap_role__in=("first", "second")).values_list(
+                "tap_role", "name"
+            )
+        )
+        # X1-X5 <-> X2-X5 on the fleet's multi-ratio CTs: another terminal, same second one.
+        first = next(n for n in names if n not in (roles["first"], roles["second"]))
+        with transaction.atomic():
+            ct_change_tap(ct=ct, to=(first, roles["second"]), by="bench", move_leads=True)
+        t0 = time.perf_counter()
+        self._wait(lambda: selectors.site_status(site=code)["stale"] is False, "fresh results")
+        return time.perf_counter() - t0
+
+    @staticmethod
+    def _done(run_id: int) -> int:
+        return AnalysisRun.objects.filter(pk=run_id).values_list("sites_done", flat=True).get()
+
+    @staticmethod
+    def _wait(check, what: str) -> None:
+        deadline = time.monotonic() + TIMEOUT_S
+        while time.monotonic() < deadline:
+            if check():
+                return
+            time.sleep(0.02)
+        raise CommandError(f"timed out after {TIMEOUT_S:.0f} s waiting for {what}")
+
+    def _wait_ready(self, app, worker: subprocess.Popen) -> None:
+        deadline = time.monotonic() + TIMEOUT_S
+        while time.monotonic() < deadline:
+            if worker.poll() is not None:
+                raise CommandError(f"the worker exited with {worker.returncode}")
+            if app.control.ping(timeout=1.0):
+                return
+        raise CommandError("no worker answered")
+
+    def _report(self, label: str, seconds: list[float], workers: int) -> None:
+        self.stdout.write(
+            f"edit -> fresh results, {label}, {workers} worker process(es), {len(seconds)} "
+            f"edits: median {statistics.median(seconds):.2f} s, max {max(seconds):.2f} s "
+            f"({', '.join(f'{s:.2f}' for s in seconds)})"
+        )
