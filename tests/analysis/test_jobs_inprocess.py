@@ -344,7 +344,11 @@ def test_beat_schedule_names_registered_tasks(settings):
     import analysis.tasks  # noqa: F401  (registers the tasks)
 
     names = {entry["task"] for entry in settings.CELERY_BEAT_SCHEDULE.values()}
-    assert names == {"analysis.sweep_requests", "analysis.recompute_fleet"}
+    assert names == {
+        "analysis.sweep_requests",
+        "analysis.recompute_fleet",
+        "analysis.prune_results",
+    }
     assert names <= set(app.tasks)
     sweep = next(e for e in settings.CELERY_BEAT_SCHEDULE.values() if "sweep" in e["task"])
     assert sweep["schedule"] == 60.0  # the outbox is swept every minute (issue 5)
