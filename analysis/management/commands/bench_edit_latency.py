@@ -7,6 +7,11 @@ times each from the commit to the moment the site's stored results are fresh (it
 ``SiteComputation`` at the new revision), first with the workers idle, then while a fleet run of
 every site is under way (the edit's run overtakes the queued fleet chunks: config/settings/base.py).
 The fleet run is stopped after the edits (its remaining messages purged, the run marked failed).
+
+``--cost-sites N`` first recomputes N sites in this process (read, engine, write: what a worker
+does per chunk) and prints the CPU seconds per site next to the wall time: on a loaded machine
+the wall time says more about the neighbours than about the work, the CPU time does not, and it
+is what the sizing in README "Deployment" extrapolates from.
 """
 
 from __future__ import annotations
@@ -39,10 +44,16 @@ class Command(BaseCommand):
         parser.add_argument("--edits", type=int, default=5)
         parser.add_argument("--site", default="")
         parser.add_argument("--no-fleet", action="store_true", help="only the idle figures")
+        parser.add_argument("--cost-sites", type=int, default=0, help="CPU cost sample, sites")
+        parser.add_argument("--cost-only", action="store_true", help="only the CPU cost sample")
 
     def handle(self, *args, workers: int, edits: int, site: str, no_fleet: bool, **kw) -> None:
         if connection.vendor != "postgresql" or not settings.CELERY_BROKER_URL:
             raise CommandError("bench_edit_latency needs PostgreSQL and a broker")
+        if kw["cost_sites"]:
+            self._cost(kw["cost_sites"])
+        if kw["cost_only"]:
+            return
         from config.celery import app
 
         target = (
@@ -88,6 +99,22 @@ class Command(BaseCommand):
                 worker.wait(120)
             except subprocess.TimeoutExpired:
                 worker.kill()
+
+    def _cost(self, n: int) -> None:
+        ids = list(inv.Site.objects.order_by("pk").values_list("pk", flat=True)[:n])
+        size = services.chunk_sites()
+        cts = inv.CurrentTransformer.objects.filter(site_id__in=ids).count()
+        cpu0, wall0 = time.process_time(), time.perf_counter()
+        for start in range(0, len(ids), size):
+            services.chunk_recompute(
+                run_id=None, index=0, site_ids=ids[start : start + size], force=True
+            )
+        cpu, wall = time.process_time() - cpu0, time.perf_counter() - wall0
+        self.stdout.write(
+            f"recompute cost, {len(ids)} sites ({cts} CTs) in chunks of {size}, one process: "
+            f"{cpu / len(ids):.3f} CPU s per site, {wall / len(ids):.3f} wall s per site "
+            f"(CPU {cpu:.1f} s, wall {wall:.1f} s)"
+        )
 
     def _edit(self, ct: inv.CurrentTransformer, code: str) -> float:
         names = sorted(inv.Terminal.objects.filter(ct=ct).values_list("name", flat=True))
