@@ -194,17 +194,19 @@ CELERY_TASK_PUBLISH_RETRY_POLICY = {
     "interval_max": 0.5,
 }
 CELERY_WORKER_MAX_MEMORY_PER_CHILD = int(os.environ.get("CELERY_WORKER_MAX_MEMORY_KB", "1000000"))
-# Queues per kind of work, each with its own workers (deploy/loopkeep-worker@.service), so a
-# large import never holds up the recompute of an edit: "recompute" (the analysis: a run per
-# edit, fleet chunks at a lower priority so an edit's run overtakes a nightly run's queue),
-# "imports" (inventory.tasks: site files and sheets) and "default" (housekeeping). A worker
-# started without -Q consumes all three.
+# Queues per kind of work, each with its own workers (deploy/systemd/loopkeep-worker@.service),
+# so neither a large import nor the nightly fleet run holds up the recompute of an edit:
+# "recompute" (a run per edit, the planning of larger runs, the sweeps), "fleet" (the chunks of
+# fleet and multi-site runs), "imports" (inventory tasks: site files and sheets) and "default"
+# (housekeeping). The recompute worker serves edits only, so an edit waits for no chunk
+# (measured: README "Deployment"); fleet workers also take "recompute", where an edit's run
+# (priority 0 on Redis) is served before queued chunks (priority 6). A worker started without -Q
+# consumes every queue.
 CELERY_TASK_DEFAULT_QUEUE = "default"
-CELERY_TASK_QUEUES = (Queue("default"), Queue("recompute"), Queue("imports"))
-# Redis priorities: 0 is served first; a chunk of a multi-site run waits behind an edit's run.
+CELERY_TASK_QUEUES = (Queue("default"), Queue("recompute"), Queue("fleet"), Queue("imports"))
 CHUNK_PRIORITY = 6
 CELERY_TASK_ROUTES = {
-    "analysis.recompute_chunk": {"queue": "recompute", "priority": CHUNK_PRIORITY},
+    "analysis.recompute_chunk": {"queue": "fleet", "priority": CHUNK_PRIORITY},
     "analysis.prune_results": {"queue": "default"},
     "analysis.*": {"queue": "recompute"},
     "inventory.*": {"queue": "imports"},
@@ -231,7 +233,7 @@ LOOPKEEP_PRUNE_KEEP_DAYS = int(os.environ.get("LOOPKEEP_PRUNE_KEEP_DAYS", "30"))
 # /ready/: a worker of each of these queues must have sent a heartbeat within
 # READY_WORKER_HEARTBEAT_S, and no recompute request may be pending longer than
 # READY_MAX_PENDING_AGE_S (the sweep sends lost ones again after a minute).
-READY_QUEUES = env_list("READY_QUEUES", "recompute,imports")
+READY_QUEUES = env_list("READY_QUEUES", "recompute,fleet,imports")
 READY_WORKER_HEARTBEAT_S = float(os.environ.get("READY_WORKER_HEARTBEAT_S", "30"))
 READY_MAX_PENDING_AGE_S = float(os.environ.get("READY_MAX_PENDING_AGE_S", "600"))
 # One BLAS/OpenMP thread per process: the engine solves many small systems, and with a pool of

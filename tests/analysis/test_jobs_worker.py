@@ -76,15 +76,15 @@ def broker_unreachable() -> Iterator[None]:
 def worker():
     app.conf.task_always_eager = False
     app.control.purge()  # messages other tests may have left on the test broker
-    # The queues of the analysis (config/settings/base.py routes): its runs and chunks, and the
-    # default queue of the housekeeping tasks.
+    # The queues of the analysis (config/settings/base.py routes): its runs, its chunks, and
+    # the default queue of the housekeeping tasks.
     with start_worker(
         app,
         pool="solo",
         perform_ping_check=False,
         shutdown_timeout=20,
         loglevel="WARNING",
-        queues=["recompute", "default"],
+        queues=["recompute", "fleet", "default"],
     ) as w:
         yield w
 

@@ -46,9 +46,10 @@ def test_worker_units_and_compose_consume_every_routed_queue():
     unit = (DEPLOY / "systemd" / "loopkeep-worker@.service").read_text()
     assert "-Q ${LOOPKEEP_QUEUES}" in unit and "Environment=LOOPKEEP_QUEUES=%i" in unit
     assert "LOOPKEEP_QUEUES=imports,default" in unit  # documented instance settings
+    assert "LOOPKEEP_QUEUES=fleet,recompute" in unit
     target = (DEPLOY / "systemd" / "loopkeep.target").read_text()
-    assert "loopkeep-worker@recompute.service" in target
-    assert "loopkeep-worker@imports.service" in target
+    for instance in ("recompute", "fleet", "imports"):
+        assert f"loopkeep-worker@{instance}.service" in target
     compose = yaml.safe_load((DEPLOY / "docker-compose.yml").read_text())
     consumed: set[str] = set()
     for service in compose["services"].values():

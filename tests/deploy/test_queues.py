@@ -1,6 +1,7 @@
 """Queues per kind of work (config/settings/base.py): where each task goes, and on Redis that a
-chunk of a fleet run waits behind an edit's run in the ``recompute`` queue (kombu's Redis
-transport serves priority 0 first: kombu docs, "Redis message priorities")."""
+chunk waits behind an edit's run in one queue (kombu's Redis transport serves priority 0 first:
+kombu docs, "Redis message priorities"), which is what a fleet worker that also serves
+``recompute`` sees."""
 
 from __future__ import annotations
 
@@ -14,7 +15,7 @@ from config.celery import app
     ("task", "queue", "priority"),
     [
         ("analysis.recompute_run", "recompute", None),
-        ("analysis.recompute_chunk", "recompute", 6),
+        ("analysis.recompute_chunk", "fleet", 6),
         ("analysis.sweep_requests", "recompute", None),
         ("analysis.recompute_fleet", "recompute", None),
         ("analysis.prune_results", "default", None),
@@ -28,8 +29,8 @@ def test_task_routes(task, queue, priority):
     assert route.get("priority") == priority
 
 
-def test_a_worker_without_queues_consumes_all_three():
-    assert set(app.amqp.queues) == {"default", "recompute", "imports"}
+def test_a_worker_without_queues_consumes_all_four():
+    assert set(app.amqp.queues) == {"default", "recompute", "fleet", "imports"}
 
 
 @pytest.mark.broker
@@ -38,8 +39,9 @@ def test_an_edit_run_overtakes_queued_fleet_chunks():
     app.conf.task_always_eager = False
     try:
         app.control.purge()
-        for index in range(3):
-            recompute_chunk.delay(1, index, [index], True)
+        recompute_chunk.delay(1, 9, [9], True)  # routed: the fleet queue
+        for index in range(3):  # the same chunks sent to the recompute queue: behind the edit
+            recompute_chunk.apply_async((1, index, [index], True), queue="recompute")
         recompute_run.delay(77)
         with app.connection_for_read() as conn:
             queue = conn.SimpleQueue("recompute", no_ack=True)
@@ -47,8 +49,12 @@ def test_an_edit_run_overtakes_queued_fleet_chunks():
             names = [first.headers["task"]]
             names += [queue.get(timeout=5).headers["task"] for _ in range(3)]
             queue.close()
+            fleet = conn.SimpleQueue("fleet", no_ack=True)
+            routed = fleet.get(timeout=5)
+            fleet.close()
         assert first.payload[0] == [77], first.payload
         assert names == ["analysis.recompute_run"] + ["analysis.recompute_chunk"] * 3
+        assert routed.payload[0] == [1, 9, [9], True]
     finally:
         app.control.purge()
         app.conf.task_always_eager = before

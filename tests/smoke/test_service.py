@@ -99,7 +99,7 @@ class Service:
     def worker(self, name: str) -> subprocess.Popen:
         return self.start(
             name, "celery", "-A", "config", "worker", "-n", f"{name}@%h", "-Q",
-            "recompute,imports,default", "--concurrency=1", "--prefetch-multiplier=1",
+            "recompute,fleet,imports,default", "--concurrency=1", "--prefetch-multiplier=1",
             "-O", "fair", "--without-mingle", "--without-gossip", "--loglevel=INFO",
         )  # fmt: skip
 

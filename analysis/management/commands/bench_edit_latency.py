@@ -1,11 +1,12 @@
 """``bench_edit_latency [--workers 2] [--edits 5] [--site CODE] [--no-fleet]``: how long one edit
 waits for its results (PostgreSQL and a broker required; a measurement, not a test).
 
-Starts ``--workers`` Celery worker processes on the ``recompute`` queue, then changes the tap of
-one CT of one site ``--edits`` times (through ``ct_change_tap``, the service the API calls) and
-times each from the commit to the moment the site's stored results are fresh (its
+Starts the workers of deploy/systemd (one process on ``recompute``, ``--workers`` processes on
+``fleet,recompute``; ``--shared``: only the latter, no process kept for edits), then changes the
+tap of one CT of one site ``--edits`` times (through ``ct_change_tap``, the service the API
+calls) and times each from the commit to the moment the site's stored results are fresh (its
 ``SiteComputation`` at the new revision), first with the workers idle, then while a fleet run of
-every site is under way (the edit's run overtakes the queued fleet chunks: config/settings/base.py).
+every site is under way (config/settings/base.py: the queues and priorities).
 The fleet run is stopped after the edits (its remaining messages purged, the run marked failed).
 
 ``--cost-sites N`` first recomputes N sites in this process (read, engine, write: what a worker
@@ -44,6 +45,7 @@ class Command(BaseCommand):
         parser.add_argument("--edits", type=int, default=5)
         parser.add_argument("--site", default="")
         parser.add_argument("--no-fleet", action="store_true", help="only the idle figures")
+        parser.add_argument("--shared", action="store_true", help="no worker kept for edits")
         parser.add_argument("--cost-sites", type=int, default=0, help="CPU cost sample, sites")
         parser.add_argument("--cost-only", action="store_true", help="only the CPU cost sample")
 
@@ -66,18 +68,22 @@ class Command(BaseCommand):
             raise CommandError(f"site {target.code} has no CT to change")
         sites = inv.Site.objects.count()
         app.control.purge()
-        worker = subprocess.Popen(
-            [sys.executable, "-m", "celery", "-A", "config", "worker", "--loglevel=WARNING",
-             "-Q", "recompute,default", f"--concurrency={workers}", "--prefetch-multiplier=1",
-             "-O", "fair", "--without-gossip", "--without-mingle"],
-            env={**os.environ, "DJANGO_SETTINGS_MODULE": os.environ.get(
-                "DJANGO_SETTINGS_MODULE", "config.settings.local")},
-        )  # fmt: skip
+        settings_module = os.environ.get("DJANGO_SETTINGS_MODULE", "config.settings.local")
+        env = {**os.environ, "DJANGO_SETTINGS_MODULE": settings_module}
+        groups = [("fleet", "fleet,recompute", workers)]
+        if not kw["shared"]:
+            groups.append(("edits", "recompute", 1))
+        procs = [
+            subprocess.Popen(self._worker_argv(name, queues, n), env=env)
+            for name, queues, n in groups
+        ]
+        label = ", ".join(f"{q}: {n} process(es)" for _, q, n in groups)
         try:
-            self._wait_ready(app, worker)
+            for worker in procs:
+                self._wait_ready(app, worker, len(procs))
             self._edit(ct, target.code)  # warm-up: imports, connections, first compute
             idle = [self._edit(ct, target.code) for _ in range(edits)]
-            self._report("idle", idle, workers)
+            self._report("idle", idle, label)
             if not no_fleet:
                 run = services.fleet_recompute(force=True, on_commit=False)
                 self._wait(lambda: self._done(run.pk) > 0, "the fleet run's first chunk")
@@ -85,7 +91,7 @@ class Command(BaseCommand):
                 for _ in range(edits):
                     busy.append(self._edit(ct, target.code))
                     progress.append(self._done(run.pk))
-                self._report(f"during a fleet run of {sites} sites", busy, workers)
+                self._report(f"during a fleet run of {sites} sites", busy, label)
                 self.stdout.write(f"  fleet sites done at each edit: {progress}")
                 app.control.purge()
                 AnalysisRun.objects.filter(pk=run.pk).exclude(status=RunStatus.SUCCESS).update(
@@ -94,11 +100,21 @@ class Command(BaseCommand):
                     error="stopped by bench_edit_latency\n",
                 )
         finally:
-            worker.send_signal(signal.SIGTERM)
-            try:
-                worker.wait(120)
-            except subprocess.TimeoutExpired:
-                worker.kill()
+            for worker in procs:
+                worker.send_signal(signal.SIGTERM)
+            for worker in procs:
+                try:
+                    worker.wait(120)
+                except subprocess.TimeoutExpired:
+                    worker.kill()
+
+    @staticmethod
+    def _worker_argv(name: str, queues: str, processes: int) -> list[str]:
+        return [
+            *(sys.executable, "-m", "celery", "-A", "config", "worker", "--loglevel=WARNING"),
+            *("-n", f"{name}@%h", "-Q", queues, f"--concurrency={processes}"),
+            *("--prefetch-multiplier=1", "-O", "fair", "--without-gossip", "--without-mingle"),
+        ]
 
     def _cost(self, n: int) -> None:
         ids = list(inv.Site.objects.order_by("pk").values_list("pk", flat=True)[:n])
@@ -144,18 +160,18 @@ class Command(BaseCommand):
             time.sleep(0.02)
         raise CommandError(f"timed out after {TIMEOUT_S:.0f} s waiting for {what}")
 
-    def _wait_ready(self, app, worker: subprocess.Popen) -> None:
+    def _wait_ready(self, app, worker: subprocess.Popen, count: int) -> None:
         deadline = time.monotonic() + TIMEOUT_S
         while time.monotonic() < deadline:
             if worker.poll() is not None:
                 raise CommandError(f"the worker exited with {worker.returncode}")
-            if app.control.ping(timeout=1.0):
+            if len(app.control.ping(timeout=1.0)) >= count:
                 return
         raise CommandError("no worker answered")
 
-    def _report(self, label: str, seconds: list[float], workers: int) -> None:
+    def _report(self, label: str, seconds: list[float], workers: str) -> None:
         self.stdout.write(
-            f"edit -> fresh results, {label}, {workers} worker process(es), {len(seconds)} "
+            f"edit -> fresh results, {label}, workers {workers}, {len(seconds)} "
             f"edits: median {statistics.median(seconds):.2f} s, max {max(seconds):.2f} s "
             f"({', '.join(f'{s:.2f}' for s in seconds)})"
         )
