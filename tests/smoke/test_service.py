@@ -169,13 +169,19 @@ def test_service_on_loopback_edits_converge_and_a_stopped_worker_loses_nothing(s
                   "-s", str(service.tmp / "beat-schedule"))  # fmt: skip
     try:
         wait_for(lambda: service.request("GET", "/health/")[0] == 200, "/health/", START_S)
-        ready = wait_for(
-            lambda: (r := service.request("GET", "/ready/"))[0] == 200 and r[1],
+
+        def hosts(body: dict) -> set[str]:
+            return {w["hostname"].split("@")[0] for w in body["checks"]["workers"]["workers"]}
+
+        # Ready once one worker serves every queue; the test also waits for the second one.
+        wait_for(
+            lambda: (
+                (r := service.request("GET", "/ready/"))[0] == 200
+                and hosts(r[1]) == {"worker-a", "worker-b"}
+            ),
             "/ready/ with both workers",
             START_S,
         )
-        hosts = {w["hostname"].split("@")[0] for w in ready["checks"]["workers"]["workers"]}
-        assert hosts == {"worker-a", "worker-b"}
 
         _, token = token_user(role="editor", name="smoke")
         status, body = service.request(
