@@ -1,4 +1,5 @@
-"""URL routes: liveness and readiness, the admin and the versioned REST API."""
+"""URL routes: liveness and readiness, the admin, the versioned REST API and the planner pages
+(at the root)."""
 
 from django.contrib import admin
 from django.urls import include, path
@@ -14,4 +15,5 @@ urlpatterns = [
     path("ready/", health.ready, name="ready"),
     path("admin/", admin.site.urls),
     path("api/v1/", include("api.urls")),
+    path("", include("pages.urls")),
 ]

@@ -48,6 +48,7 @@ INSTALLED_APPS = [
     "inventory",
     "analysis",
     "api",
+    "pages",
 ]
 
 MIDDLEWARE = [
@@ -76,6 +77,7 @@ TEMPLATES = [
                 "django.template.context_processors.request",
                 "django.contrib.auth.context_processors.auth",
                 "django.contrib.messages.context_processors.messages",
+                "pages.access.roles",
             ],
         },
     },
@@ -104,6 +106,11 @@ LANGUAGE_CODE = "en-us"
 TIME_ZONE = "UTC"
 USE_I18N = True
 USE_TZ = True
+
+# The planner pages' login (the admin keeps its own); anonymous visitors see only this page.
+LOGIN_URL = "pages:login"
+LOGIN_REDIRECT_URL = "pages:home"
+LOGOUT_REDIRECT_URL = "pages:login"
 
 STATIC_URL = "static/"
 STATIC_ROOT = VAR_DIR / "static"

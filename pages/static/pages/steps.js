@@ -1,0 +1,56 @@
+// Walk the steps of a procedure or plan: a slider, buttons and the arrow keys (or j/k) move
+// the current step; the row, the step's details and its drawing follow. Without JavaScript
+// every step's details and drawing stay visible, one after another. The builder's verdict is
+// swapped in by htmx, so walkers are set up again after each swap.
+(function () {
+  "use strict";
+  var active = null;
+  function setup(root) {
+    if (root.getAttribute("data-walker-ready")) return;
+    root.setAttribute("data-walker-ready", "1");
+    var slider = root.querySelector("[data-step-slider]");
+    if (!slider) return;
+    var max = parseInt(slider.max, 10);
+    function show(n) {
+      n = Math.max(0, Math.min(max, n));
+      slider.value = String(n);
+      root.querySelectorAll("[data-step-row]").forEach(function (r) {
+        var on = r.getAttribute("data-step-row") === String(n);
+        r.classList.toggle("current", on);
+        if (on) r.setAttribute("aria-current", "step"); else r.removeAttribute("aria-current");
+      });
+      root.querySelectorAll("[data-step-detail]").forEach(function (d) {
+        d.hidden = d.getAttribute("data-step-detail") !== String(n);
+      });
+      var label = root.querySelector("[data-step-label]");
+      if (label) label.textContent = label.getAttribute("data-template").replace("N", n).replace("M", max);
+      root.setAttribute("data-current-step", String(n));
+    }
+    root.walk = function (delta) { show(parseInt(slider.value, 10) + delta); };
+    root.walkTo = show;
+    slider.addEventListener("input", function () { show(parseInt(slider.value, 10)); active = root; });
+    root.querySelectorAll("[data-step-go]").forEach(function (b) {
+      b.addEventListener("click", function () { active = root; root.walk(parseInt(b.getAttribute("data-step-go"), 10)); });
+    });
+    root.querySelectorAll("[data-step-row]").forEach(function (r) {
+      r.addEventListener("click", function () { active = root; show(parseInt(r.getAttribute("data-step-row"), 10)); });
+    });
+    root.querySelectorAll(".walker").forEach(function (w) { w.hidden = false; });
+    show(parseInt(root.getAttribute("data-start-step") || "0", 10));
+    active = root;
+  }
+  function setupAll() { document.querySelectorAll("[data-steps]").forEach(setup); }
+  document.addEventListener("keydown", function (e) {
+    if (!active || !document.body.contains(active)) return;
+    var t = e.target && e.target.tagName;
+    if (t === "SELECT" || t === "TEXTAREA" || t === "BUTTON") return;
+    if (t === "INPUT" && !e.target.hasAttribute("data-step-slider")) return;
+    if (e.target.hasAttribute && e.target.hasAttribute("data-step-slider")) return; // the slider moves itself
+    if (e.key === "ArrowRight" || e.key === "j") { active.walk(1); e.preventDefault(); }
+    else if (e.key === "ArrowLeft" || e.key === "k") { active.walk(-1); e.preventDefault(); }
+    else if (e.key === "Home") { active.walkTo(0); e.preventDefault(); }
+    else if (e.key === "End") { active.walkTo(1e9); e.preventDefault(); }
+  });
+  setupAll();
+  document.addEventListener("htmx:afterSettle", setupAll);
+})();

@@ -1,0 +1,116 @@
+"""The device page: what feeds it, its isolation plan and restore (each step's ``why``,
+stage findings and expected clamp-meter readings), the collateral, and saving the plan as a
+procedure (editor)."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from django.core.exceptions import ValidationError
+from django.http import Http404, HttpRequest, HttpResponse
+from django.shortcuts import redirect, render
+from django.urls import reverse
+
+from analysis import actions, selectors
+from inventory import models as inv
+from inventory import selectors as records
+from inventory.services import procedure_save
+from pages.access import editor_required, viewer_required
+from pages.views import drawing
+from pages.views.common import get_site, site_input
+from pages.views.procedures import first_danger_finding
+from record.operations import operation_from_json
+
+
+def _device(site: inv.Site, code: str) -> Any:
+    device = records.devices_queryset(site_id=site.pk).filter(code=code).first()
+    if device is None:
+        raise Http404(f"no device {code!r} at {site.code}")
+    return device
+
+
+def plan_steps(plan: dict[str, Any]) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
+    """The isolate and restore steps, numbered as the plan's verdict numbers them, each with
+    its operation, ``why``, readings and the findings of its stages."""
+    verdict = plan.get("verdict") or {"steps": []}
+    by_number = {s["step"]: s for s in verdict["steps"]}
+    rows = []
+    for number, op in enumerate([*plan["isolate"], *plan["restore"]], start=1):
+        rows.append(
+            {
+                "step": number,
+                "op": operation_from_json(op).to_json(),
+                "why": op.get("why", ""),
+                "readings": op.get("readings") or [],
+                "findings": by_number.get(number, {}).get("findings", []),
+            }
+        )
+    return rows[: len(plan["isolate"])], rows[len(plan["isolate"]) :]
+
+
+def plan_operations(plan: dict[str, Any]) -> list[dict[str, Any]]:
+    """The plan as stored steps: the operations only (``why`` and readings are the plan's)."""
+    return [operation_from_json(op).to_json() for op in [*plan["isolate"], *plan["restore"]]]
+
+
+def _context(site: inv.Site, code: str, **extra: Any) -> dict[str, Any]:
+    device = _device(site, code)
+    doc, netlist = site_input(site)
+    plan = actions.isolation_plan(doc, code, netlist=netlist)
+    isolate, restore = plan_steps(plan)
+    return {
+        "site": site,
+        "device": device,
+        "plan": plan,
+        "isolate": isolate,
+        "restore": restore,
+        "danger": first_danger_finding(plan["verdict"]) if plan.get("verdict") else None,
+        "feeding": sorted(
+            {m.code for m in selectors.cts_feeding_device(site_id=site.pk, device=code)}
+        ),
+        "findings": selectors.findings_queryset(site=site.code).filter(device=code),
+        "svg": drawing.device_drawing(netlist, code),
+        "save_code": f"P-{code}-PLAN",
+        "save_title": f"Isolate {code} (from its plan)",
+        **extra,
+    }
+
+
+@viewer_required
+def device_page(request: HttpRequest, site: str, code: str) -> HttpResponse:
+    return render(request, "pages/device.html", _context(get_site(site), code))
+
+
+@editor_required
+def device_save_plan(request: HttpRequest, site: str, code: str) -> HttpResponse:
+    """Store the plan, computed again now, as a procedure through the service."""
+    obj = get_site(site)
+    if request.method != "POST":
+        return redirect("pages:device", site, code)
+    context = _context(obj, code)
+    plan = context["plan"]
+    save_code = request.POST.get("code", "").strip()
+    title = request.POST.get("title", "").strip()
+    errors: list[str] = []
+    if not plan["possible"]:
+        errors.append(f"no safe plan to save: {plan['reason']}")
+    else:
+        proc = inv.Procedure(
+            site=obj,
+            code=save_code,
+            title=title,
+            author=request.user.get_username(),
+            devices=[code],
+        )
+        try:
+            procedure_save(procedure=proc, steps=plan_operations(plan))
+        except ValidationError as exc:
+            errors.extend(
+                f"{'' if k == '__all__' else k + ': '}{m}"
+                for k, msgs in exc.message_dict.items()
+                for m in msgs
+            )
+        else:
+            return redirect(reverse("pages:procedure", args=[obj.code, proc.code]))
+    context.update(save_errors=errors, save_code=save_code, save_title=title)
+    return render(request, "pages/device.html", context, status=400)
