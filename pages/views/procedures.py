@@ -25,7 +25,7 @@ def first_danger_finding(verdict: dict[str, Any]) -> dict[str, Any] | None:
         if finding["severity"] == "danger" and all(
             finding.get(k) == danger.get(k) for k in ("code", "stage", "ct", "device")
         ):
-            return finding
+            return {**finding, "step": danger["step"]}
     return {**danger, "message": ""}
 
 

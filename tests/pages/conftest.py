@@ -1,0 +1,78 @@
+"""Planner-page fixtures: the invented demo sites with their results computed in-process, and
+a signed-in browser client per role."""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+from django.contrib.auth import get_user_model
+from django.contrib.auth.models import Group
+from django.test import Client
+
+from config.celery import app
+from inventory.services import site_import
+
+DEMO = Path(__file__).resolve().parents[2] / "fixtures" / "demo"
+
+
+def demo_doc(name: str) -> dict:
+    return json.loads((DEMO / f"{name}.json").read_text())
+
+
+@pytest.fixture(autouse=True)
+def eager():
+    """Jobs in-process, even when the suite runs with a broker configured."""
+    before = app.conf.task_always_eager
+    app.conf.task_always_eager = True
+    yield
+    app.conf.task_always_eager = before
+
+
+def load(capture, *names: str) -> None:
+    for name in names:
+        with capture(execute=True):
+            site_import(doc=demo_doc(name))
+
+
+@pytest.fixture
+def demo(db, django_capture_on_commit_callbacks):
+    """The Quillfen demo site (QFN), stored, with fresh results."""
+    load(django_capture_on_commit_callbacks, "quillfen")
+
+
+@pytest.fixture
+def demo_both(db, django_capture_on_commit_callbacks):
+    """Both demo sites, stored, with fresh results."""
+    load(django_capture_on_commit_callbacks, "quillfen", "orrinvale")
+
+
+def make_user(role: str | None, username: str | None = None, password: str = "pw-for-tests"):
+    user = get_user_model().objects.create_user(
+        username=username or f"page-{role}", password=password
+    )
+    if role:
+        user.groups.add(Group.objects.get(name=role))
+    return user
+
+
+def _client(role: str | None) -> Client:
+    client = Client()
+    client.force_login(make_user(role))
+    return client
+
+
+@pytest.fixture
+def viewer(db) -> Client:
+    return _client("viewer")
+
+
+@pytest.fixture
+def editor(db) -> Client:
+    return _client("editor")
+
+
+@pytest.fixture
+def no_role(db) -> Client:
+    return _client(None)
