@@ -20,7 +20,9 @@ from django.shortcuts import render
 from api.roles import EDITOR, VIEWER, has_role, role_of
 
 
-def role_required(role: str) -> Callable[[Callable[..., HttpResponse]], Callable[..., HttpResponse]]:
+def role_required(
+    role: str,
+) -> Callable[[Callable[..., HttpResponse]], Callable[..., HttpResponse]]:
     """A view decorator: a login, then ``role`` or a higher one."""
 
     def decorate(view: Callable[..., HttpResponse]) -> Callable[..., HttpResponse]:

@@ -69,7 +69,7 @@ def _context(site: inv.Site, code: str, **extra: Any) -> dict[str, Any]:
             {m.code for m in selectors.cts_feeding_device(site_id=site.pk, device=code)}
         ),
         "findings": selectors.findings_queryset(site=site.code).filter(device=code),
-        "svg": drawing.device_drawing(netlist, code),
+        "svg": drawing.devices_drawing(netlist, [code]),
         "save_code": f"P-{code}-PLAN",
         "save_title": f"Isolate {code} (from its plan)",
         **extra,

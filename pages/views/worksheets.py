@@ -48,7 +48,7 @@ def device_worksheet(request: HttpRequest, site: str, code: str) -> HttpResponse
             plan,
             site_name=obj.name,
             revision=obj.revision,
-            svg=drawing.device_drawing(netlist, code),
+            svg=drawing.devices_drawing(netlist, [code]),
             prepared_by=request.user.get_username(),
         )
     except WorksheetRefused as exc:
@@ -84,7 +84,7 @@ def procedure_worksheet(request: HttpRequest, site: str, code: str) -> HttpRespo
             devices=devices,
             revision=obj.revision,
             checked_revision=row.revision,
-            svg=drawing.device_drawing(netlist, devices[0]) if devices else None,
+            svg=drawing.devices_drawing(netlist, devices),
             prepared_by=request.user.get_username(),
         )
     except WorksheetRefused as exc:

@@ -38,9 +38,7 @@ def test_anonymous_visitors_are_sent_to_the_login_page(demo, client):
 
 def test_anonymous_posts_write_nothing(demo, client):
     before = inv.Procedure.objects.count()
-    response = client.post(
-        "/sites/QFN/devices/R-132/save-plan/", {"code": "P-X", "title": "t"}
-    )
+    response = client.post("/sites/QFN/devices/R-132/save-plan/", {"code": "P-X", "title": "t"})
     assert response.status_code == 302 and response["Location"].startswith("/login/")
     response = client.post("/sites/QFN/builder/", {"code": "P-X", "action": "save"})
     assert response.status_code == 302
@@ -101,15 +99,25 @@ def test_a_post_without_the_csrf_token_is_refused(demo):
 def test_a_viewer_checks_drafts_but_cannot_save(demo, viewer):
     response = viewer.post(
         "/sites/QFN/builder/",
-        {"code": "P-NEW", "title": "t", "op": "set", "switch": "TS-132/T1", "position": "open",
-         "action": "add"},
+        {
+            "code": "P-NEW",
+            "title": "t",
+            "op": "set",
+            "switch": "TS-132/T1",
+            "position": "open",
+            "action": "add",
+        },
     )
     assert response.status_code == 200
     assert "set TS-132/T1 to open" in response.content.decode()
     saved = viewer.post(
         "/sites/QFN/builder/",
-        {"code": "P-NEW", "title": "t", "step": '{"set":"TS-132/T1","to":"open"}',
-         "action": "save"},
+        {
+            "code": "P-NEW",
+            "title": "t",
+            "step": '{"set":"TS-132/T1","to":"open"}',
+            "action": "save",
+        },
     )
     assert "needs the editor role" in saved.content.decode()
     assert not inv.Procedure.objects.filter(code="P-NEW").exists()
