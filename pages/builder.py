@@ -112,8 +112,10 @@ class Draft:
         return f"J{n}"
 
 
-PICK_FIELDS = ("op", "switch", "position", "term_a", "term_b", "jumper_id", "jumper", "wire")
-PICK_FIELDS += ("device", "equipment", "note")
+PICK_FIELDS: tuple[str, ...] = (
+    *("op", "switch", "position", "term_a", "term_b", "jumper_id", "jumper", "wire"),
+    *("device", "equipment", "note"),
+)
 
 
 def draft_from_post(data: QueryDict) -> Draft:
