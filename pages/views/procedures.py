@@ -53,15 +53,18 @@ def procedure_context(site: Any, proc: Any) -> dict[str, Any]:
         if verdict is not None
         else []
     )
+    steps = step_rows(verdict) if verdict else []
+    for step, svg in zip(steps, svgs, strict=False):
+        step["svg"] = svg
     row = selectors.procedure_verdict_rows(site_id=site.pk).get(proc.code)
     return {
         "site": site,
         "procedure": proc,
         "verdict": verdict,
         "error": error,
-        "steps": step_rows(verdict) if verdict else [],
+        "steps": steps,
         "danger": first_danger_finding(verdict) if verdict else None,
-        "svgs": svgs,
+        "with_drawings": bool(svgs),
         "stored": row,
     }
 
