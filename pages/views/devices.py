@@ -18,7 +18,7 @@ from inventory.services import procedure_save
 from pages.access import editor_required, viewer_required
 from pages.views import drawing
 from pages.views.common import get_site, site_input
-from pages.views.procedures import first_danger_finding
+from pages.views.procedures import first_danger_finding, with_worst
 from record.operations import operation_from_json
 
 
@@ -29,23 +29,40 @@ def _device(site: inv.Site, code: str) -> Any:
     return device
 
 
-def plan_steps(plan: dict[str, Any]) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
-    """The isolate and restore steps, numbered as the plan's verdict numbers them, each with
-    its operation, ``why``, readings and the findings of its stages."""
+def plan_steps(plan: dict[str, Any]) -> list[dict[str, Any]]:
+    """Every step of the plan as the procedure page shows a step: step 0 (the normal state),
+    then the isolation and the restoration, numbered as the plan's verdict numbers them, each
+    with its operation, ``why``, findings per stage and the readings after it; ``part``
+    marks where the isolation and the restoration begin."""
     verdict = plan.get("verdict") or {"steps": []}
     by_number = {s["step"]: s for s in verdict["steps"]}
-    rows = []
-    for number, op in enumerate([*plan["isolate"], *plan["restore"]], start=1):
+    start = by_number.get(0, {"findings": [], "readings": []})
+    ops = [*plan["isolate"], *plan["restore"]]
+    rows = [
+        {
+            "step": 0,
+            "op": None,
+            "why": "",
+            "findings": start["findings"],
+            "readings": start.get("readings") or [],
+        }
+    ]
+    for number, op in enumerate(ops, start=1):
+        checked = by_number.get(number, {})
         rows.append(
             {
                 "step": number,
                 "op": operation_from_json(op).to_json(),
                 "why": op.get("why", ""),
-                "readings": op.get("readings") or [],
-                "findings": by_number.get(number, {}).get("findings", []),
+                "readings": op.get("readings") or checked.get("readings") or [],
+                "findings": checked.get("findings", []),
             }
         )
-    return rows[: len(plan["isolate"])], rows[len(plan["isolate"]) :]
+    if plan["isolate"]:
+        rows[1]["part"] = "Isolate"
+    if plan["restore"]:
+        rows[len(plan["isolate"]) + 1]["part"] = "Restore"
+    return with_worst(rows)
 
 
 def plan_operations(plan: dict[str, Any]) -> list[dict[str, Any]]:
@@ -57,19 +74,24 @@ def _context(site: inv.Site, code: str, **extra: Any) -> dict[str, Any]:
     device = _device(site, code)
     doc, netlist = site_input(site)
     plan = actions.isolation_plan(doc, code, netlist=netlist)
-    isolate, restore = plan_steps(plan)
+    steps = plan_steps(plan) if plan["possible"] else []
+    svgs = drawing.procedure_drawings(netlist, plan["verdict"], devices=[code]) if steps else []
+    for step, svg in zip(steps, svgs, strict=False):
+        step["svg"] = svg
     return {
         "site": site,
         "device": device,
         "plan": plan,
-        "isolate": isolate,
-        "restore": restore,
+        "steps": steps,
+        "n_isolate": len(plan["isolate"]),
+        "n_restore": len(plan["restore"]),
+        "with_drawings": bool(svgs),
         "danger": first_danger_finding(plan["verdict"]) if plan.get("verdict") else None,
         "feeding": sorted(
             {m.code for m in selectors.cts_feeding_device(site_id=site.pk, device=code)}
         ),
         "findings": selectors.findings_queryset(site=site.code).filter(device=code),
-        "svg": drawing.devices_drawing(netlist, [code]),
+        "svg": None if svgs else drawing.devices_drawing(netlist, [code]),
         "save_code": f"P-{code}-PLAN",
         "save_title": f"Isolate {code} (from its plan)",
         **extra,

@@ -29,16 +29,21 @@ def first_danger_finding(verdict: dict[str, Any]) -> dict[str, Any] | None:
     return {**danger, "message": ""}
 
 
-def step_rows(verdict: dict[str, Any]) -> list[dict[str, Any]]:
-    """The verdict's steps with what a row shows: its worst severity and readings."""
-    rows = []
-    for step in verdict["steps"]:
-        severities = {f["severity"] for f in step["findings"]}
-        worst = next(
+def with_worst(rows: list[dict[str, Any]]) -> list[dict[str, Any]]:
+    """Each step row with ``worst``: the most severe of its findings (None without any)."""
+    for row in rows:
+        severities = {f["severity"] for f in row["findings"]}
+        row["worst"] = next(
             (s for s in ("danger", "warning", "caution", "notice") if s in severities), None
         )
-        rows.append({**step, "worst": worst, "readings": step.get("readings") or []})
     return rows
+
+
+def step_rows(verdict: dict[str, Any]) -> list[dict[str, Any]]:
+    """The verdict's steps with what a row shows: its worst severity and readings."""
+    return with_worst(
+        [{**step, "readings": step.get("readings") or []} for step in verdict["steps"]]
+    )
 
 
 def procedure_context(site: Any, proc: Any) -> dict[str, Any]:

@@ -174,7 +174,7 @@ def test_a_planner_clicks_through_the_pages(chromium, live_server, quillfen, sho
     page.press("#q", "Enter")
     expect(page.locator("h1")).to_have_text("Relay R-132")
     expect(page.locator("main")).to_contain_text("PLAN FOUND")
-    expect(page.locator("#plan-step-1")).to_contain_text("before any CT circuit is touched")
+    expect(page.locator("tr#step-1")).to_contain_text("before any CT circuit is touched")
     expect(page.locator("#collateral + table")).to_contain_text("XD-132")
     shot("07-device-plan")
 

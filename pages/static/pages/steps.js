@@ -11,13 +11,14 @@
     var slider = root.querySelector("[data-step-slider]");
     if (!slider) return;
     var max = parseInt(slider.max, 10);
-    function show(n) {
+    function show(n, scroll) {
       n = Math.max(0, Math.min(max, n));
       slider.value = String(n);
       root.querySelectorAll("[data-step-row]").forEach(function (r) {
         var on = r.getAttribute("data-step-row") === String(n);
         r.classList.toggle("current", on);
         if (on) r.setAttribute("aria-current", "step"); else r.removeAttribute("aria-current");
+        if (on && scroll) r.scrollIntoView({block: "nearest"});
       });
       root.querySelectorAll("[data-step-detail]").forEach(function (d) {
         d.hidden = d.getAttribute("data-step-detail") !== String(n);
@@ -26,8 +27,8 @@
       if (label) label.textContent = label.getAttribute("data-template").replace("N", n).replace("M", max);
       root.setAttribute("data-current-step", String(n));
     }
-    root.walk = function (delta) { show(parseInt(slider.value, 10) + delta); };
-    root.walkTo = show;
+    root.walk = function (delta) { show(parseInt(slider.value, 10) + delta, true); };
+    root.walkTo = function (n) { show(n, true); };
     slider.addEventListener("input", function () { show(parseInt(slider.value, 10)); active = root; });
     root.querySelectorAll("[data-step-go]").forEach(function (b) {
       b.addEventListener("click", function () { active = root; root.walk(parseInt(b.getAttribute("data-step-go"), 10)); });
