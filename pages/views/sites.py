@@ -26,11 +26,15 @@ _HIT_URLS = {
 }
 
 
+# Codes without a page of their own open the site at the list that shows them.
+_HIT_ANCHORS = {"bus": "buses", "equipment": "cts", "switch": "procedures"}
+
+
 def _hit_url(hit: page_selectors.Hit) -> str:
     url = _HIT_URLS.get(hit.kind)
     if url is not None:
         return url(hit)
-    return reverse("pages:site", args=[hit.site]) + f"#{hit.kind}-{hit.code}"
+    return reverse("pages:site", args=[hit.site]) + f"#{_HIT_ANCHORS[hit.kind]}"
 
 
 def _stale(row: Any) -> bool:

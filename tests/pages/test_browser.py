@@ -72,6 +72,8 @@ def test_a_planner_clicks_through_the_pages(chromium, live_server, quillfen, sho
     from playwright.sync_api import expect
     from pypdf import PdfReader
 
+    # generous waits: the machine may be busy (nothing here measures speed)
+    expect.set_options(timeout=30_000)
     make_user("editor", username="planner", password=PASSWORD)
     context = chromium.new_context(viewport={"width": 1280, "height": 900})
     context.set_default_timeout(30_000)
@@ -153,6 +155,18 @@ def test_a_planner_clicks_through_the_pages(chromium, live_server, quillfen, sho
 
     # builder: pick from lists; each change is checked as a draft
     page.goto(live_server.url + "/sites/QFN/builder/?device=R-132")
+    expect(page.locator("#draft-verdict")).to_contain_text("Nothing to check yet")
+    # by keyboard: the list swapped in by htmx keeps the focus, Tab reaches "Add step"
+    page.focus("#pick-switch")
+    page.keyboard.press("ArrowDown")
+    expect(page.locator("#pick-position")).not_to_have_value("")
+    expect(page.locator("#pick-switch")).to_be_focused()
+    page.keyboard.press("Tab")
+    page.keyboard.press("Tab")
+    expect(page.locator("#add-step")).to_be_focused()
+    page.keyboard.press("Enter")
+    expect(page.locator("ol.draft-steps li")).to_have_count(1)
+    page.get_by_role("button", name="remove step 1").click()
     expect(page.locator("#draft-verdict")).to_contain_text("Nothing to check yet")
     for switch in ("TS-132/T1", "TS-132/T2"):
         page.select_option("select[name=switch]", switch)
