@@ -14,10 +14,11 @@ $(BIN)/activate: pyproject.toml
 
 venv: $(BIN)/activate
 
-## Install, migrate the embedded SQLite database, load the invented demo sites, serve on 127.0.0.1:8000.
+## Install, migrate the embedded SQLite database, load the invented demo sites, serve the pages on 127.0.0.1:8000.
 demo: venv
 	$(BIN)/python manage.py migrate --noinput
 	$(BIN)/python manage.py load_demo
+	@echo "Planner pages: open http://$(HOST)/ and log in as demo / demo"
 	$(BIN)/python manage.py runserver $(HOST)
 
 ## Install and run the tests (the database is DATABASE_URL's, SQLite when unset).
