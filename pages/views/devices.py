@@ -109,8 +109,9 @@ def device_save_plan(request: HttpRequest, site: str, code: str) -> HttpResponse
     obj = get_site(site)
     if request.method != "POST":
         return redirect("pages:device", site, code)
-    context = _context(obj, code)
-    plan = context["plan"]
+    _device(obj, code)
+    doc, netlist = site_input(obj)
+    plan = actions.isolation_plan(doc, code, netlist=netlist)
     save_code = request.POST.get("code", "").strip()
     title = request.POST.get("title", "").strip()
     errors: list[str] = []
@@ -134,5 +135,5 @@ def device_save_plan(request: HttpRequest, site: str, code: str) -> HttpResponse
             )
         else:
             return redirect(reverse("pages:procedure", args=[obj.code, proc.code]))
-    context.update(save_errors=errors, save_code=save_code, save_title=title)
+    context = _context(obj, code, save_errors=errors, save_code=save_code, save_title=title)
     return render(request, "pages/device.html", context, status=400)
