@@ -11,6 +11,7 @@ from django.contrib.auth import get_user_model
 from django.contrib.auth.models import Group
 from django.test import Client
 
+from analysis import actions
 from config.celery import app
 from inventory.services import site_import
 
@@ -19,6 +20,16 @@ DEMO = Path(__file__).resolve().parents[2] / "fixtures" / "demo"
 
 def demo_doc(name: str) -> dict:
     return json.loads((DEMO / f"{name}.json").read_text())
+
+
+@pytest.fixture(autouse=True)
+def fresh_netlists():
+    """Forget the netlists kept per thread by ``analysis.actions.site_netlist``: they are keyed
+    by (site id, revision), and on SQLite a rolled-back test leaves both free for the next test
+    to reuse with another record."""
+    actions._local.__dict__.pop("sites", None)
+    yield
+    actions._local.__dict__.pop("sites", None)
 
 
 @pytest.fixture(autouse=True)
@@ -53,7 +64,9 @@ def make_user(role: str | None, username: str | None = None, password: str = "pw
         username=username or f"page-{role}", password=password
     )
     if role:
-        user.groups.add(Group.objects.get(name=role))
+        # the roles' groups come from a migration; a transactional test before this one may
+        # have flushed them, so they are made again when missing (api/roles.py names them)
+        user.groups.add(Group.objects.get_or_create(name=role)[0])
     return user
 
 

@@ -31,14 +31,22 @@ def chromium():
     from playwright.sync_api import sync_playwright
 
     # Playwright's sync API runs an event loop in this thread; the test's own database
-    # calls are plain synchronous calls between its steps.
-    os.environ.setdefault("DJANGO_ALLOW_ASYNC_UNSAFE", "true")
-    with sync_playwright() as playwright:
-        browser = playwright.chromium.launch(
-            executable_path=str(CHROMIUM), args=["--no-sandbox", "--disable-dev-shm-usage"]
-        )
-        yield browser
-        browser.close()
+    # calls are plain synchronous calls between its steps. The variable is set for these
+    # tests only (a later `check --deploy` in the same process must not see it).
+    before = os.environ.get("DJANGO_ALLOW_ASYNC_UNSAFE")
+    os.environ["DJANGO_ALLOW_ASYNC_UNSAFE"] = "true"
+    try:
+        with sync_playwright() as playwright:
+            browser = playwright.chromium.launch(
+                executable_path=str(CHROMIUM), args=["--no-sandbox", "--disable-dev-shm-usage"]
+            )
+            yield browser
+            browser.close()
+    finally:
+        if before is None:
+            os.environ.pop("DJANGO_ALLOW_ASYNC_UNSAFE", None)
+        else:
+            os.environ["DJANGO_ALLOW_ASYNC_UNSAFE"] = before
 
 
 @pytest.fixture
@@ -79,6 +87,13 @@ def test_a_planner_clicks_through_the_pages(chromium, live_server, quillfen, sho
     context.set_default_timeout(30_000)
     page = context.new_page()
     saved: list[Path] = []
+
+    def settled() -> None:
+        """No htmx request in flight and no swap settling (the next event reaches the page
+        as it will stay)."""
+        page.wait_for_function(
+            "!document.querySelector('.htmx-request, .htmx-swapping, .htmx-settling')"
+        )
 
     def shot(name: str) -> None:
         path = shots / f"{name}.png"
@@ -157,6 +172,7 @@ def test_a_planner_clicks_through_the_pages(chromium, live_server, quillfen, sho
     page.goto(live_server.url + "/sites/QFN/builder/?device=R-132")
     expect(page.locator("#draft-verdict")).to_contain_text("Nothing to check yet")
     # by keyboard: the list swapped in by htmx keeps the focus, Tab reaches "Add step"
+    settled()
     page.focus("#pick-switch")
     page.keyboard.press("ArrowDown")
     expect(page.locator("#pick-position")).not_to_have_value("")
@@ -169,14 +185,18 @@ def test_a_planner_clicks_through_the_pages(chromium, live_server, quillfen, sho
     page.get_by_role("button", name="remove step 1").click()
     expect(page.locator("#draft-verdict")).to_contain_text("Nothing to check yet")
     for switch in ("TS-132/T1", "TS-132/T2"):
+        settled()
         page.select_option("select[name=switch]", switch)
         expect(page.locator("select[name=position] option[value=open]")).to_have_count(1)
+        settled()
         page.select_option("select[name=position]", "open")
         page.locator("#add-step").click()
         expect(page.locator("ol.draft-steps")).to_contain_text(f"set {switch} to open")
     expect(page.locator("#draft-verdict .banner")).to_contain_text("SAFE")
+    settled()
     page.select_option("select[name=switch]", "TS-132/N")
     expect(page.locator("select[name=position] option[value=open]")).to_have_count(1)
+    settled()
     page.select_option("select[name=position]", "open")
     page.locator("#add-step").click()
     expect(page.locator("#draft-verdict .banner")).to_contain_text("UNSAFE")
