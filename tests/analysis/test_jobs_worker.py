@@ -25,6 +25,8 @@ from django.utils import timezone
 from analysis import models, selectors, services
 from analysis.compute import compute_sites
 from analysis.models import RunKind, RunStatus
+from analysis.services import results as results_writer
+from analysis.services import runs as run_services
 from config.celery import app
 from inventory import models as inv
 from inventory.choices import ChangeStatus
@@ -164,7 +166,7 @@ def test_task_killed_mid_write_is_redelivered_and_leaves_one_set(worker, monkeyp
     with services.recompute_deferred():
         site_import(doc=small_site())
     site = inv.Site.objects.get(code="TST")
-    real_insert = services._insert
+    real_insert = results_writer._insert
     killed: list[int] = []
 
     def insert_then_lose_the_session(model, rows):
@@ -185,7 +187,7 @@ def test_task_killed_mid_write_is_redelivered_and_leaves_one_set(worker, monkeyp
             ) as admin:
                 admin.execute("SELECT pg_terminate_backend(%s)", [pid])
 
-    monkeypatch.setattr(services, "_insert", insert_then_lose_the_session)
+    monkeypatch.setattr(results_writer, "_insert", insert_then_lose_the_session)
     run = services.run_create(kind=RunKind.SITES, site_ids=[site.pk], force=True)
     services.run_dispatch(run=run)
     wait_for(
@@ -225,7 +227,7 @@ class _Paused:
         self.computed = threading.Event()
         self.barrier = threading.Barrier(parties) if parties else None
         self.names: set[str] = set()
-        real = services._compute
+        real = run_services._compute
 
         def compute(docs):
             result = real(docs)
@@ -237,7 +239,7 @@ class _Paused:
                     assert self.release.wait(timeout=WAIT_S)
             return result
 
-        monkeypatch.setattr(services, "_compute", compute)
+        monkeypatch.setattr(run_services, "_compute", compute)
 
 
 def _in_thread(name: str, site_id: int, errors: list) -> threading.Thread:

@@ -1,0 +1,252 @@
+"""Run rows and their chunks: a run (one site after an edit, chosen sites, or the fleet) is
+planned in chunks; each chunk reads its sites' records, runs the engine and hands the results
+to the results writer, counting its sites once; the stall sweep sends again what was lost.
+"""
+
+from __future__ import annotations
+
+import datetime as dt
+import logging
+import time
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+from django.conf import settings
+from django.db import models as djm
+from django.db import transaction
+from django.db.models import Case, F, Q, Value, When
+from django.db.models.functions import Concat
+from django.utils import timezone
+
+from analysis import models
+from analysis.models import RunKind, RunStatus
+from analysis.selectors import chunk_inputs
+from analysis.services.results import results_replace
+from inventory.models import Site
+from record import SiteRecord
+
+log = logging.getLogger(__name__)
+
+
+def chunk_sites() -> int:
+    """Sites per fleet chunk (one Celery task each)."""
+    return int(getattr(settings, "LOOPKEEP_RECOMPUTE_CHUNK_SITES", 10))
+
+
+def run_create(
+    *, kind: str, site_ids: Iterable[int] | None = None, force: bool = False
+) -> models.AnalysisRun:
+    """A run row for the given sites (None: the whole fleet when the run starts)."""
+    ids = None if site_ids is None else sorted(set(site_ids))
+    return models.AnalysisRun.objects.create(
+        kind=kind, site_ids=ids, force=force, sites_total=0 if ids is None else len(ids)
+    )
+
+
+def run_dispatch(*, run: models.AnalysisRun, on_commit: bool = True) -> None:
+    """Send the run's task when the surrounding transaction commits (at once outside one).
+    ``on_commit=False`` sends at once: for top-level callers (the CLI) whose run row is
+    already committed."""
+    from analysis.tasks import recompute_run
+
+    if on_commit:
+        recompute_run.delay_on_commit(run.pk)
+    else:
+        recompute_run.delay(run.pk)
+
+
+def run_started(*, run_id: int, task_id: str) -> None:
+    """A task of the run started (first start or a retry)."""
+    now = timezone.now()
+    models.AnalysisRun.objects.filter(pk=run_id).exclude(status=RunStatus.SUCCESS).update(
+        status=RunStatus.RUNNING, started_at=djm.functions.Coalesce(F("started_at"), Value(now))
+    )
+    models.AnalysisRun.objects.filter(pk=run_id).update(
+        attempts=F("attempts") + 1, task_id=task_id[:64], progress_at=now
+    )
+
+
+def run_finish(*, run_id: int) -> None:
+    """Close the run once every site is accounted for: success, or failure when a site could
+    not be computed. Safe to call from every chunk (only the last one changes the row)."""
+    models.AnalysisRun.objects.filter(
+        pk=run_id, status=RunStatus.RUNNING, sites_done__gte=F("sites_total")
+    ).update(
+        status=Case(
+            When(sites_failed=0, then=Value(RunStatus.SUCCESS)), default=Value(RunStatus.FAILURE)
+        ),
+        finished_at=timezone.now(),
+    )
+
+
+def run_fail(*, run_id: int, error: str) -> None:
+    """The run's task gave up (a permanent error, or transient ones past the retry bound)."""
+    models.AnalysisRun.objects.filter(pk=run_id).update(
+        status=RunStatus.FAILURE,
+        finished_at=timezone.now(),
+        error=Concat(F("error"), Value(error[:4000] + "\n")),
+    )
+
+
+def run_plan(*, run_id: int) -> list[list[int]] | None:
+    """Freeze the run's sites (the fleet as it stands now, for a fleet run) and split them in
+    chunks. None when the run is gone or already succeeded (a redelivered message)."""
+    with transaction.atomic():
+        run = models.AnalysisRun.objects.select_for_update().filter(pk=run_id).first()
+        if run is None or run.status == RunStatus.SUCCESS:
+            return None
+        if run.site_ids is None:
+            run.site_ids = list(Site.objects.order_by("pk").values_list("pk", flat=True))
+            run.sites_total = len(run.site_ids)
+        if not run.chunk_size:
+            # Fixed once, so a redelivered or re-sent run splits its sites the same way.
+            run.chunk_size = chunk_sites()
+        run.save(update_fields=["site_ids", "sites_total", "chunk_size"])
+    return _chunks(run.site_ids, run.chunk_size)
+
+
+def _chunks(site_ids: list[int], size: int) -> list[list[int]]:
+    return [site_ids[i : i + size] for i in range(0, len(site_ids), size)]
+
+
+@dataclass
+class ChunkOutcome:
+    """What one chunk did, and the time of each phase."""
+
+    written: list[int] = field(default_factory=list)
+    skipped: list[int] = field(default_factory=list)
+    failed: dict[int, str] = field(default_factory=dict)
+    counts: dict[str, int] = field(default_factory=dict)
+    read_s: float = 0.0
+    compute_s: float = 0.0
+    write_s: float = 0.0
+    counted: bool = False
+
+
+def _compute(records: Mapping[int, SiteRecord]) -> tuple[dict[int, Any], dict[int, str]]:
+    """The engine on a chunk, site by site, so one site the engine cannot handle costs only
+    itself: its old results stay (and show as stale), the others are written."""
+    from analysis.compute import compute_sites
+
+    results: dict[int, Any] = {}
+    failed: dict[int, str] = {}
+    for sid, record in records.items():
+        try:
+            results.update(compute_sites({sid: record}))
+        except Exception:
+            log.exception("recompute of site %s failed", sid)
+            failed[sid] = _error_text(record)
+    return results, failed
+
+
+def _error_text(record: SiteRecord) -> str:
+    import sys
+
+    exc = sys.exc_info()[1]
+    return f"site {record.site.code}: {type(exc).__name__}: {exc}"
+
+
+def chunk_recompute(
+    *, run_id: int | None, index: int, site_ids: list[int], force: bool = False
+) -> ChunkOutcome:
+    """Read, compute and write one chunk of sites. Without ``force`` a site whose results are
+    already at its current revision is skipped. Idempotent: running it again leaves the same
+    rows and counts the chunk's sites once."""
+    out = ChunkOutcome()
+    t0 = time.perf_counter()
+    heads, records = chunk_inputs(site_ids, skip_current=not force)
+    out.skipped = sorted(set(heads) - set(records))
+    out.read_s = time.perf_counter() - t0
+    t1 = time.perf_counter()
+    results, out.failed = _compute(records) if records else ({}, {})
+    out.compute_s = time.perf_counter() - t1
+    t2 = time.perf_counter()
+    with transaction.atomic():
+        written, newer = results_replace(heads=heads, results=results, run_id=run_id)
+        out.written = written
+        out.skipped += newer
+        out.counts = _counts(results, written)
+        gone = len(set(site_ids) - set(heads))  # deleted since the run was planned
+        out.write_s = time.perf_counter() - t2
+        if run_id is not None:
+            out.counted = _count_chunk(run_id, index, len(site_ids), out, gone)
+    return out
+
+
+def _counts(results: Mapping[int, Any], written: Iterable[int]) -> dict[str, int]:
+    c = dict.fromkeys(
+        ("cts", "findings", "dangers", "verdicts", "unsafe_procedures", "circuits"), 0
+    )
+    for sid in written:
+        r = results[sid]
+        c["cts"] += len(r.ct_reports)
+        c["findings"] += len(r.findings)
+        c["dangers"] += sum(1 for f in r.findings if f["severity"] == "danger")
+        c["verdicts"] += len(r.verdicts)
+        c["unsafe_procedures"] += sum(1 for v in r.verdicts if not v["safe"])
+        c["circuits"] += len(r.circuits)
+    return c
+
+
+def _count_chunk(run_id: int, index: int, n_sites: int, out: ChunkOutcome, gone: int) -> bool:
+    # The site rows are locked by results_replace, so a concurrent redelivery of this chunk
+    # waits here and then sees the chunk row.
+    if models.RunChunk.objects.filter(run_id=run_id, index=index).exists():
+        return False
+    models.RunChunk.objects.create(run_id=run_id, index=index, sites=n_sites)
+    update: dict[str, Any] = {
+        "sites_done": F("sites_done") + n_sites,
+        "sites_skipped": F("sites_skipped") + len(out.skipped) + gone,
+        "sites_failed": F("sites_failed") + len(out.failed),
+        "read_s": F("read_s") + out.read_s,
+        "compute_s": F("compute_s") + out.compute_s,
+        "write_s": F("write_s") + out.write_s,
+        "progress_at": timezone.now(),
+    }
+    update.update({k: F(k) + v for k, v in out.counts.items()})
+    if out.failed:
+        text = "\n".join(out.failed.values()) + "\n"
+        update["error"] = Concat(F("error"), Value(text[:4000]))
+    models.AnalysisRun.objects.filter(pk=run_id).update(**update)
+    return True
+
+
+def runs_sweep(*, stalled_s: float = 600.0) -> int:
+    """Send again the parts of runs that made no progress for ``stalled_s``: a run never
+    started (its message lost) is sent again whole; a running one gets its chunks that have no
+    ``RunChunk`` row. A chunk that was only slow runs twice, which is harmless (idempotent,
+    counted once). Returns the number of messages sent."""
+    from analysis.tasks import recompute_chunk, recompute_run
+
+    cutoff = timezone.now() - dt.timedelta(seconds=stalled_s)
+    sent = 0
+    stalled = models.AnalysisRun.objects.filter(
+        Q(status=RunStatus.PENDING, created_at__lte=cutoff, progress_at__isnull=True)
+        | Q(status__in=(RunStatus.PENDING, RunStatus.RUNNING), progress_at__lte=cutoff)
+    )
+    for run in stalled:
+        models.AnalysisRun.objects.filter(pk=run.pk).update(progress_at=timezone.now())
+        if not run.chunk_size:
+            recompute_run.delay(run.pk)
+            sent += 1
+            continue
+        done = set(models.RunChunk.objects.filter(run=run).values_list("index", flat=True))
+        missing = [
+            (index, ids)
+            for index, ids in enumerate(_chunks(run.site_ids or [], run.chunk_size))
+            if index not in done
+        ]
+        if not missing:  # every chunk written, only the closing was lost
+            run_finish(run_id=run.pk)
+        for index, ids in missing:
+            recompute_chunk.delay(run.pk, index, ids, run.force)
+            sent += 1
+    return sent
+
+
+def fleet_recompute(*, force: bool = True, on_commit: bool = True) -> models.AnalysisRun:
+    """A whole-fleet run (the nightly sweep, and ``recompute`` without a site)."""
+    run = run_create(kind=RunKind.FLEET, force=force)
+    run_dispatch(run=run, on_commit=on_commit)
+    return run
