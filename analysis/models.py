@@ -31,6 +31,11 @@ class RunStatus(models.TextChoices):
     FAILURE = "failure"
 
 
+class ComputationStatus(models.TextChoices):
+    OK = "ok", "computed"
+    FAILED = "failed", "could not be computed"
+
+
 class AnalysisRun(models.Model):
     """One recompute job: which sites, how far it got, what it produced and how long each
     phase took. ``site_ids`` null means the whole fleet as it stood when the run started.
@@ -129,8 +134,14 @@ class SiteResult(models.Model):
 
 class SiteComputation(SiteResult):
     """One row per site: the revision its stored results are at, with their counts. The write
-    locks and reads it to refuse replacing newer results with older ones."""
+    locks and reads it to refuse replacing newer results with older ones. ``failed``: the
+    results of that revision could not be computed or written (``error`` says why, and a
+    ``results_not_computed`` danger finding shows it); the results stored before stay, stale."""
 
+    status = models.CharField(
+        max_length=10, choices=ComputationStatus.choices, default=ComputationStatus.OK
+    )
+    error = models.TextField(blank=True)
     cts = models.PositiveIntegerField(default=0)
     findings = models.PositiveIntegerField(default=0)
     dangers = models.PositiveIntegerField(default=0)

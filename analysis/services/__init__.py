@@ -18,7 +18,14 @@ Callers import from here (``from analysis import services``); the names below ar
 """
 
 from analysis.services.outbox import recompute_deferred, requests_sweep, site_change_consume
-from analysis.services.results import RESULT_MODELS, _insert, _result_rows, results_replace
+from analysis.services.results import (
+    RESULT_MODELS,
+    RESULTS_NOT_COMPUTED,
+    WriteOutcome,
+    _insert,
+    _result_rows,
+    results_replace,
+)
 from analysis.services.runs import (
     ChunkOutcome,
     _compute,
@@ -35,8 +42,10 @@ from analysis.services.runs import (
 )
 
 __all__ = [
+    "RESULTS_NOT_COMPUTED",
     "RESULT_MODELS",
     "ChunkOutcome",
+    "WriteOutcome",
     "_compute",
     "_insert",
     "_result_rows",

@@ -22,7 +22,7 @@ from django.utils import timezone
 from analysis import models
 from analysis.models import RunKind, RunStatus
 from analysis.selectors import chunk_inputs
-from analysis.services.results import results_replace
+from analysis.services.results import TRANSIENT_DB_ERRORS, results_replace
 from inventory.models import Site
 from record import SiteRecord
 
@@ -56,10 +56,17 @@ def run_dispatch(*, run: models.AnalysisRun, on_commit: bool = True) -> None:
         recompute_run.delay(run.pk)
 
 
+# The run's state machine, each move one conditional UPDATE (so two workers racing cannot
+# undo each other): pending -> running -> success | failure, and pending | running -> failure.
+# A finished run (success or failure) never runs again; a task of it that still starts (a
+# redelivered message, another chunk of a failed fleet run) only counts its attempt.
+ACTIVE = (RunStatus.PENDING, RunStatus.RUNNING)
+
+
 def run_started(*, run_id: int, task_id: str) -> None:
     """A task of the run started (first start or a retry)."""
     now = timezone.now()
-    models.AnalysisRun.objects.filter(pk=run_id).exclude(status=RunStatus.SUCCESS).update(
+    models.AnalysisRun.objects.filter(pk=run_id, status__in=ACTIVE).update(
         status=RunStatus.RUNNING, started_at=djm.functions.Coalesce(F("started_at"), Value(now))
     )
     models.AnalysisRun.objects.filter(pk=run_id).update(
@@ -81,8 +88,12 @@ def run_finish(*, run_id: int) -> None:
 
 
 def run_fail(*, run_id: int, error: str) -> None:
-    """The run's task gave up (a permanent error, or transient ones past the retry bound)."""
-    models.AnalysisRun.objects.filter(pk=run_id).update(
+    """The run's task gave up (a permanent error, or transient ones past the retry bound). A
+    run that succeeded stays so; a failed one keeps its first finish time and adds the error."""
+    models.AnalysisRun.objects.filter(pk=run_id, status=RunStatus.FAILURE).update(
+        error=Concat(F("error"), Value(error[:4000] + "\n"))
+    )
+    models.AnalysisRun.objects.filter(pk=run_id, status__in=ACTIVE).update(
         status=RunStatus.FAILURE,
         finished_at=timezone.now(),
         error=Concat(F("error"), Value(error[:4000] + "\n")),
@@ -124,6 +135,38 @@ class ChunkOutcome:
     counted: bool = False
 
 
+def _read(
+    site_ids: list[int], *, skip_current: bool
+) -> tuple[dict[int, tuple[str, int]], dict[int, SiteRecord], dict[int, str]]:
+    """The chunk's inputs (``chunk_inputs``), read together; when that fails for a reason other
+    than the connection (a row the driver cannot read back), site by site, so a site whose
+    record cannot be read costs only itself. Returns (heads, records, unreadable with why)."""
+    try:
+        heads, records = chunk_inputs(site_ids, skip_current=skip_current)
+        return heads, records, {}
+    except TRANSIENT_DB_ERRORS:
+        raise
+    except Exception:
+        log.exception("reading the records of sites %s failed; reading them one by one", site_ids)
+    heads, records, unread = {}, {}, {}
+    for sid in site_ids:
+        try:
+            with transaction.atomic():
+                one_head, one = chunk_inputs([sid], skip_current=skip_current)
+        except TRANSIENT_DB_ERRORS:
+            raise
+        except Exception as exc:
+            log.exception("reading the record of site %s failed", sid)
+            row = Site.objects.filter(pk=sid).values_list("code", "revision").first()
+            if row is not None:
+                heads[sid] = row
+                unread[sid] = f"site {row[0]}: reading: {type(exc).__name__}: {exc}"
+        else:
+            heads.update(one_head)
+            records.update(one)
+    return heads, records, unread
+
+
 def _compute(records: Mapping[int, SiteRecord]) -> tuple[dict[int, Any], dict[int, str]]:
     """The engine on a chunk, site by site, so one site the engine cannot handle costs only
     itself: its old results stay (and show as stale), the others are written."""
@@ -144,7 +187,7 @@ def _error_text(record: SiteRecord) -> str:
     import sys
 
     exc = sys.exc_info()[1]
-    return f"site {record.site.code}: {type(exc).__name__}: {exc}"
+    return f"site {record.site.code}: computing: {type(exc).__name__}: {exc}"
 
 
 def chunk_recompute(
@@ -155,18 +198,21 @@ def chunk_recompute(
     rows and counts the chunk's sites once."""
     out = ChunkOutcome()
     t0 = time.perf_counter()
-    heads, records = chunk_inputs(site_ids, skip_current=not force)
-    out.skipped = sorted(set(heads) - set(records))
+    heads, records, unread = _read(site_ids, skip_current=not force)
+    out.skipped = sorted(set(heads) - set(records) - set(unread))
     out.read_s = time.perf_counter() - t0
     t1 = time.perf_counter()
-    results, out.failed = _compute(records) if records else ({}, {})
+    results, failed = _compute(records) if records else ({}, {})
     out.compute_s = time.perf_counter() - t1
     t2 = time.perf_counter()
     with transaction.atomic():
-        written, newer = results_replace(heads=heads, results=results, run_id=run_id)
-        out.written = written
-        out.skipped += newer
-        out.counts = _counts(results, written)
+        wrote = results_replace(
+            heads=heads, results=results, run_id=run_id, failed={**unread, **failed}
+        )
+        out.written = wrote.written
+        out.failed = wrote.failed
+        out.skipped += wrote.newer
+        out.counts = _counts(results, wrote.written)
         gone = len(set(site_ids) - set(heads))  # deleted since the run was planned
         out.write_s = time.perf_counter() - t2
         if run_id is not None:

@@ -235,11 +235,15 @@ def test_failing_site_does_not_break_the_edit(django_capture_on_commit_callbacks
     monkeypatch.setattr("analysis.compute.compute_sites", broken)
     site = _import(small_site(), django_capture_on_commit_callbacks)  # must not raise
     change = inv.SiteChange.objects.get(site_id=site.pk)
-    assert change.status == ChangeStatus.PENDING  # the sweep will try again
+    # Acted on: the failure is the recorded state of that revision (not stale with nothing
+    # pending); the next edit or a forced run tries again.
+    assert change.status == ChangeStatus.DONE
     run = models.AnalysisRun.objects.get(change=change)
     assert run.status == RunStatus.FAILURE
     assert "injected engine failure" in run.error
-    assert selectors.site_status(site="TST")["stale"] is True
+    status = selectors.site_status(site="TST")
+    assert (status["stale"], status["status"]) == (False, "failed")
+    assert [f["code"] for f in selectors.findings_list(site="TST")] == ["results_not_computed"]
 
 
 def test_fleet_run_in_chunks(django_capture_on_commit_callbacks, settings):
