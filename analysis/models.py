@@ -102,12 +102,24 @@ class AnalysisRun(models.Model):
 
 
 class RunChunk(models.Model):
-    """A chunk of a run whose results are written: recorded in the write's transaction so a
-    redelivered chunk never counts its sites twice."""
+    """A chunk of a run that started: its worker's heartbeat while it runs, and when its results
+    were written and counted (``done_at``, set in the write's transaction so a redelivered
+    chunk never counts its sites twice). The stall sweep sends again a chunk not done whose
+    heartbeat stopped (its worker was killed or lost)."""
 
     run = models.ForeignKey(AnalysisRun, on_delete=models.CASCADE, related_name="chunks")
     index = models.PositiveIntegerField()
     sites = models.PositiveIntegerField()
+    attempts = models.PositiveIntegerField(default=0, help_text="starts, re-sends included")
+    heartbeat_at = models.DateTimeField(
+        null=True, blank=True, help_text="last sign of life of the worker running it"
+    )
+    sent_at = models.DateTimeField(
+        null=True, blank=True, help_text="last sent again by the stall sweep"
+    )
+    done_at = models.DateTimeField(
+        null=True, blank=True, help_text="results written and counted", db_index=True
+    )
 
     class Meta:
         constraints = [

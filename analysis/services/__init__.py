@@ -2,7 +2,8 @@
 
 - ``outbox``: the consumer of the record's outbox (``inventory.changes``, ``SiteChange`` rows)
   and its sweep;
-- ``runs``: run rows, their chunks (read, compute, write, count once) and the stall sweep;
+- ``runs``: run rows and their chunks (read, compute, write, count once; the heartbeat);
+- ``liveness``: the stall sweep (chunks whose heartbeat stopped, runs and messages lost);
 - ``results``: the results writer (the bulk replacement of a site's stored results).
 
 The flow: an edit records a change in the inventory's outbox inside its own transaction; the
@@ -17,7 +18,13 @@ again.
 Callers import from here (``from analysis import services``); the names below are the API.
 """
 
-from analysis.services.outbox import recompute_deferred, requests_sweep, site_change_consume
+from analysis.services.liveness import runs_sweep
+from analysis.services.outbox import (
+    recompute_deferred,
+    requests_sweep,
+    send_run,
+    site_change_consume,
+)
 from analysis.services.results import (
     RESULT_MODELS,
     RESULTS_NOT_COMPUTED,
@@ -29,6 +36,8 @@ from analysis.services.results import (
 from analysis.services.runs import (
     ChunkOutcome,
     _compute,
+    chunk_begin,
+    chunk_heartbeat,
     chunk_recompute,
     chunk_sites,
     fleet_recompute,
@@ -38,7 +47,6 @@ from analysis.services.runs import (
     run_finish,
     run_plan,
     run_started,
-    runs_sweep,
 )
 
 __all__ = [
@@ -49,6 +57,8 @@ __all__ = [
     "_compute",
     "_insert",
     "_result_rows",
+    "chunk_begin",
+    "chunk_heartbeat",
     "chunk_recompute",
     "chunk_sites",
     "fleet_recompute",
@@ -62,5 +72,6 @@ __all__ = [
     "run_plan",
     "run_started",
     "runs_sweep",
+    "send_run",
     "site_change_consume",
 ]

@@ -9,8 +9,10 @@ import contextlib
 import datetime as dt
 import logging
 import threading
-from collections.abc import Iterator
+from collections.abc import Iterable, Iterator
 
+import kombu.exceptions
+from django.conf import settings
 from django.db import transaction
 from django.utils import timezone
 
@@ -22,6 +24,13 @@ from inventory.models import SiteChange
 log = logging.getLogger(__name__)
 
 _local = threading.local()
+
+# What a send raises when the broker cannot be reached (kombu wraps the transport's errors).
+BROKER_ERRORS: tuple[type[BaseException], ...] = (
+    kombu.exceptions.OperationalError,
+    ConnectionError,
+    TimeoutError,
+)
 
 
 @contextlib.contextmanager
@@ -44,28 +53,67 @@ def site_change_consume(change: SiteChange) -> models.AnalysisRun:
     run = models.AnalysisRun.objects.create(
         kind=RunKind.SITE, site_ids=[change.site_id], sites_total=1, change=change
     )
-    if not getattr(_local, "deferred", False):
-        from analysis.tasks import recompute_run
+    if getattr(_local, "deferred", False):
+        # Handed to the bulk load's own run: not due for the sweep's quick first send.
+        changes_sent(ids=[change.pk])
+    else:
+        run_id, change_id = run.pk, change.pk
 
-        recompute_run.delay_on_commit(run.pk)
+        def send_recompute() -> None:  # named: Django logs a robust callback's __qualname__
+            send_run(run_id, change_ids=[change_id])
+
+        # ``robust``: the edit has committed by then; nothing here may turn it into an error.
+        transaction.on_commit(send_recompute, robust=True)
     return run
 
 
-def requests_sweep(*, min_age_s: float = 60.0, max_sends: int = 5) -> int:
-    """Send again the runs of outbox rows (``inventory.SiteChange``) not done after
-    ``min_age_s`` (their send was lost, or the task failed). One run per site, however many
-    changes it has: the pending run sent for its newest change, or a fresh one when that run
-    started already. A send counts only when the broker took it, so an outage only delays; a
-    change still not done after ``max_sends`` delivered sends is marked failed (its run rows say
-    why). Returns the number of sites sent."""
+def send_run(run_id: int, *, change_ids: Iterable[int] = ()) -> bool:
+    """Send a run's task now and mark its outbox rows sent. When the broker cannot be reached
+    this logs one warning line (no traceback: the edit that asked for it has succeeded) and
+    returns False; the rows stay pending, never sent, and the outbox sweep sends them within
+    seconds of the broker's return."""
     from analysis.tasks import recompute_run
 
-    cutoff = timezone.now() - dt.timedelta(seconds=min_age_s)
+    try:
+        recompute_run.delay(run_id)
+    except BROKER_ERRORS as exc:
+        log.warning(
+            "recompute run %s not sent, the broker is unreachable (%s); it will be sent when "
+            "the broker is back",
+            run_id,
+            str(exc).splitlines()[0] if str(exc) else type(exc).__name__,
+        )
+        return False
+    if change_ids:
+        changes_sent(ids=change_ids)
+    return True
+
+
+def requests_sweep(
+    *, min_age_s: float | None = None, resend_after_s: float | None = None, max_sends: int = 5
+) -> int:
+    """Send the runs of outbox rows (``inventory.SiteChange``) never sent after ``min_age_s``
+    (``LOOPKEEP_OUTBOX_SEND_AFTER_S``, seconds: the send on commit failed, the broker was
+    away), and send again those sent but still not done after ``resend_after_s``
+    (``LOOPKEEP_RUN_LOST_S``: the message was lost or the task gave up; a run that is only
+    waiting in a busy queue must not be sent twice). One run per site, however many changes it
+    has: the pending run of its newest change, or a fresh one when that run started already. A
+    send counts only when the broker took it, so an outage only delays; a change still not
+    done after ``max_sends`` delivered sends is marked failed (its run rows say why). Returns
+    the number of sites sent."""
+    now = timezone.now()
+    if min_age_s is None:
+        min_age_s = float(getattr(settings, "LOOPKEEP_OUTBOX_SEND_AFTER_S", 5.0))
+    if resend_after_s is None:
+        resend_after_s = max(min_age_s, float(getattr(settings, "LOOPKEEP_RUN_LOST_S", 600.0)))
+    cutoff = now - dt.timedelta(seconds=min_age_s)
+    resend_cutoff = now - dt.timedelta(seconds=resend_after_s)
     changes_give_up(max_sends=max_sends)
     plan: dict[int, tuple[int, list[int]]] = {}
     with transaction.atomic():
         by_site: dict[int, list[SiteChange]] = {}
-        for change in changes_due(cutoff=cutoff).select_for_update(skip_locked=True):
+        due = changes_due(cutoff=cutoff, resend_cutoff=resend_cutoff)
+        for change in due.select_for_update(skip_locked=True):
             by_site.setdefault(change.site_id, []).append(change)
         newest = {site_id: changes[0].pk for site_id, changes in by_site.items()}
         pending_runs = dict(
@@ -84,12 +132,8 @@ def requests_sweep(*, min_age_s: float = 60.0, max_sends: int = 5) -> int:
                 ).pk
             plan[site_id] = (run_id, [c.pk for c in changes])
     sent = 0
-    for site_id, (run_id, change_ids) in plan.items():
-        try:
-            recompute_run.delay(run_id)
-        except Exception as exc:  # the broker is still away: leave the rows due
-            log.warning("sweep could not send run %s (site %s): %s", run_id, site_id, exc)
-            break
-        changes_sent(ids=change_ids)
+    for run_id, change_ids in plan.values():
+        if not send_run(run_id, change_ids=change_ids):
+            break  # the broker is still away: the rows stay due for the next sweep
         sent += 1
     return sent

@@ -5,17 +5,18 @@ to the results writer, counting its sites once; the stall sweep sends again what
 
 from __future__ import annotations
 
-import datetime as dt
+import contextlib
 import logging
+import threading
 import time
-from collections.abc import Iterable, Mapping
+from collections.abc import Iterable, Iterator, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
 from django.conf import settings
+from django.db import connections, transaction
 from django.db import models as djm
-from django.db import transaction
-from django.db.models import Case, F, Q, Value, When
+from django.db.models import Case, F, Value, When
 from django.db.models.functions import Concat
 from django.utils import timezone
 
@@ -45,15 +46,22 @@ def run_create(
 
 
 def run_dispatch(*, run: models.AnalysisRun, on_commit: bool = True) -> None:
-    """Send the run's task when the surrounding transaction commits (at once outside one).
-    ``on_commit=False`` sends at once: for top-level callers (the CLI) whose run row is
-    already committed."""
+    """Send the run's task when the surrounding transaction commits (at once outside one; a
+    broker that cannot be reached then is one warning line, and the stall sweep sends the run
+    later). ``on_commit=False`` sends at once and raises when the broker cannot be reached: for
+    top-level callers (the CLI) whose run row is already committed."""
+    from analysis.services.outbox import send_run
     from analysis.tasks import recompute_run
 
+    run_id = run.pk
+
+    def send_recompute() -> None:  # named: Django logs a robust callback's __qualname__
+        send_run(run_id)
+
     if on_commit:
-        recompute_run.delay_on_commit(run.pk)
+        transaction.on_commit(send_recompute, robust=True)
     else:
-        recompute_run.delay(run.pk)
+        recompute_run.delay(run_id)  # the caller reports a broker that cannot be reached
 
 
 # The run's state machine, each move one conditional UPDATE (so two workers racing cannot
@@ -114,10 +122,10 @@ def run_plan(*, run_id: int) -> list[list[int]] | None:
             # Fixed once, so a redelivered or re-sent run splits its sites the same way.
             run.chunk_size = chunk_sites()
         run.save(update_fields=["site_ids", "sites_total", "chunk_size"])
-    return _chunks(run.site_ids, run.chunk_size)
+    return chunks_of(run.site_ids, run.chunk_size)
 
 
-def _chunks(site_ids: list[int], size: int) -> list[list[int]]:
+def chunks_of(site_ids: list[int], size: int) -> list[list[int]]:
     return [site_ids[i : i + size] for i in range(0, len(site_ids), size)]
 
 
@@ -133,6 +141,7 @@ class ChunkOutcome:
     compute_s: float = 0.0
     write_s: float = 0.0
     counted: bool = False
+    done_before: bool = False  # the chunk's results were written by an earlier delivery
 
 
 def _read(
@@ -191,11 +200,78 @@ def _error_text(record: SiteRecord) -> str:
 
 
 def chunk_recompute(
-    *, run_id: int | None, index: int, site_ids: list[int], force: bool = False
+    *,
+    run_id: int | None,
+    index: int,
+    site_ids: list[int],
+    force: bool = False,
+    heartbeat: bool = False,
 ) -> ChunkOutcome:
     """Read, compute and write one chunk of sites. Without ``force`` a site whose results are
     already at its current revision is skipped. Idempotent: running it again leaves the same
-    rows and counts the chunk's sites once."""
+    rows and counts the chunk's sites once; a chunk of a run whose results were written already
+    (a redelivered or re-sent message) does nothing. With ``heartbeat`` (a real worker) the
+    chunk's row gets a heartbeat every few seconds while it runs (``chunk_heartbeat``)."""
+    if run_id is not None and not chunk_begin(run_id=run_id, index=index, sites=len(site_ids)):
+        return ChunkOutcome(done_before=True)
+    if heartbeat and run_id is not None:
+        with chunk_heartbeat(run_id=run_id, index=index):
+            return _chunk_work(run_id, index, site_ids, force)
+    return _chunk_work(run_id, index, site_ids, force)
+
+
+def chunk_begin(*, run_id: int, index: int, sites: int) -> bool:
+    """The chunk starts (first start, retry or re-send): its row, with a fresh heartbeat and
+    one more attempt. False when its results were written already (nothing left to do)."""
+    now = timezone.now()
+    row, created = models.RunChunk.objects.get_or_create(
+        run_id=run_id, index=index, defaults={"sites": sites, "heartbeat_at": now, "attempts": 1}
+    )
+    if created:
+        return True
+    return bool(
+        models.RunChunk.objects.filter(pk=row.pk, done_at__isnull=True).update(
+            heartbeat_at=now, attempts=F("attempts") + 1
+        )
+    )
+
+
+def heartbeat_every_s() -> float:
+    """Seconds between two heartbeats of a running chunk."""
+    return float(getattr(settings, "LOOPKEEP_CHUNK_HEARTBEAT_S", 5.0))
+
+
+@contextlib.contextmanager
+def chunk_heartbeat(*, run_id: int, index: int) -> Iterator[None]:
+    """While the block runs, a thread of this process stamps the chunk's ``heartbeat_at`` every
+    ``LOOPKEEP_CHUNK_HEARTBEAT_S`` (on its own database connection, so it beats through long
+    computations and open write transactions alike). It stops with the process: a worker
+    killed with ``kill -9`` stops beating, and the stall sweep sends the chunk again."""
+    every = heartbeat_every_s()
+    stop = threading.Event()
+
+    def beat() -> None:
+        try:
+            while not stop.wait(every):
+                try:
+                    models.RunChunk.objects.filter(
+                        run_id=run_id, index=index, done_at__isnull=True
+                    ).update(heartbeat_at=timezone.now())
+                except Exception as exc:  # the database away for a moment: beat again later
+                    log.warning("heartbeat of run %s chunk %s: %s", run_id, index, exc)
+        finally:
+            connections.close_all()  # this thread's connections only
+
+    thread = threading.Thread(target=beat, name=f"heartbeat-{run_id}-{index}", daemon=True)
+    thread.start()
+    try:
+        yield
+    finally:
+        stop.set()
+        thread.join(every + 10)
+
+
+def _chunk_work(run_id: int | None, index: int, site_ids: list[int], force: bool) -> ChunkOutcome:
     out = ChunkOutcome()
     t0 = time.perf_counter()
     heads, records, unread = _read(site_ids, skip_current=not force)
@@ -236,11 +312,13 @@ def _counts(results: Mapping[int, Any], written: Iterable[int]) -> dict[str, int
 
 
 def _count_chunk(run_id: int, index: int, n_sites: int, out: ChunkOutcome, gone: int) -> bool:
-    # The site rows are locked by results_replace, so a concurrent redelivery of this chunk
-    # waits here and then sees the chunk row.
-    if models.RunChunk.objects.filter(run_id=run_id, index=index).exists():
+    # One conditional UPDATE marks the chunk done: a concurrent delivery of the same chunk
+    # waits on the row lock until this transaction ends, then finds it done and counts nothing.
+    now = timezone.now()
+    if not models.RunChunk.objects.filter(run_id=run_id, index=index, done_at__isnull=True).update(
+        done_at=now, heartbeat_at=now, sites=n_sites
+    ):
         return False
-    models.RunChunk.objects.create(run_id=run_id, index=index, sites=n_sites)
     update: dict[str, Any] = {
         "sites_done": F("sites_done") + n_sites,
         "sites_skipped": F("sites_skipped") + len(out.skipped) + gone,
@@ -256,39 +334,6 @@ def _count_chunk(run_id: int, index: int, n_sites: int, out: ChunkOutcome, gone:
         update["error"] = Concat(F("error"), Value(text[:4000]))
     models.AnalysisRun.objects.filter(pk=run_id).update(**update)
     return True
-
-
-def runs_sweep(*, stalled_s: float = 600.0) -> int:
-    """Send again the parts of runs that made no progress for ``stalled_s``: a run never
-    started (its message lost) is sent again whole; a running one gets its chunks that have no
-    ``RunChunk`` row. A chunk that was only slow runs twice, which is harmless (idempotent,
-    counted once). Returns the number of messages sent."""
-    from analysis.tasks import recompute_chunk, recompute_run
-
-    cutoff = timezone.now() - dt.timedelta(seconds=stalled_s)
-    sent = 0
-    stalled = models.AnalysisRun.objects.filter(
-        Q(status=RunStatus.PENDING, created_at__lte=cutoff, progress_at__isnull=True)
-        | Q(status__in=(RunStatus.PENDING, RunStatus.RUNNING), progress_at__lte=cutoff)
-    )
-    for run in stalled:
-        models.AnalysisRun.objects.filter(pk=run.pk).update(progress_at=timezone.now())
-        if not run.chunk_size:
-            recompute_run.delay(run.pk)
-            sent += 1
-            continue
-        done = set(models.RunChunk.objects.filter(run=run).values_list("index", flat=True))
-        missing = [
-            (index, ids)
-            for index, ids in enumerate(_chunks(run.site_ids or [], run.chunk_size))
-            if index not in done
-        ]
-        if not missing:  # every chunk written, only the closing was lost
-            run_finish(run_id=run.pk)
-        for index, ids in missing:
-            recompute_chunk.delay(run.pk, index, ids, run.force)
-            sent += 1
-    return sent
 
 
 def fleet_recompute(*, force: bool = True, on_commit: bool = True) -> models.AnalysisRun:

@@ -14,23 +14,14 @@ from rest_framework.test import APIClient
 from analysis import models, selectors, services
 from analysis.models import ComputationStatus, RunKind, RunStatus
 from analysis.services import results as results_writer
-from config.celery import app
 from inventory import models as inv
 from inventory.choices import ChangeStatus
 from inventory.services import site_import
 from tests.inventory.docs import small_site
 
-pytestmark = pytest.mark.django_db
+pytestmark = [pytest.mark.django_db, pytest.mark.usefixtures("eager")]
 
 CODES = ("AAA", "BAD", "CCC")
-
-
-@pytest.fixture(autouse=True)
-def eager():
-    before = app.conf.task_always_eager
-    app.conf.task_always_eager = True
-    yield
-    app.conf.task_always_eager = before
 
 
 @pytest.fixture
