@@ -25,6 +25,7 @@ from config.celery import app
 from inventory import models as inv
 from inventory.choices import ChangeStatus
 from inventory.services import site_import
+from tests.analysis.helpers import LogRecords
 from tests.inventory.docs import small_site
 
 pytestmark = [pytest.mark.django_db, pytest.mark.usefixtures("eager")]
@@ -143,17 +144,8 @@ def _closed_port() -> int:
         return s.getsockname()[1]
 
 
-class _Records(logging.Handler):
-    def __init__(self) -> None:
-        super().__init__(logging.DEBUG)
-        self.records: list[logging.LogRecord] = []
-
-    def emit(self, record: logging.LogRecord) -> None:
-        self.records.append(record)
-
-
 def test_send_while_the_broker_is_unreachable_is_one_warning_line():
-    caught = _Records()
+    caught = LogRecords()
     logger = logging.getLogger("analysis")
     logger.addHandler(caught)
     app.conf.task_always_eager = False
