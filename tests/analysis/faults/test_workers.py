@@ -57,7 +57,7 @@ BROKER_RECOVERY_BOUND_S = 30.0  # issue 11: fresh "within seconds of the broker'
 
 
 @pytest.fixture(autouse=True)
-def through_the_broker():
+def through_the_broker(_require_services):  # after the check that the servers are there
     before = app.conf.task_always_eager
     app.conf.task_always_eager = False
     app.control.purge()
