@@ -182,6 +182,11 @@ CELERY_TASK_SOFT_TIME_LIMIT = 25 * 60
 CELERY_RESULT_BACKEND = os.environ.get("CELERY_RESULT_BACKEND") or None
 CELERY_TASK_IGNORE_RESULT = not CELERY_RESULT_BACKEND
 CELERY_BROKER_CONNECTION_RETRY_ON_STARTUP = True
+# A worker cut off from the broker keeps trying to reconnect (never gives up during a long
+# outage) and lets its running task finish: with Redis the acknowledgement is a key deletion
+# that works on the new connection, so the task is not run twice.
+CELERY_BROKER_CONNECTION_MAX_RETRIES = None
+CELERY_WORKER_CANCEL_LONG_RUNNING_TASKS_ON_CONNECTION_LOSS = False
 CELERY_BROKER_CONNECTION_TIMEOUT = 4
 # A message a worker took and never acknowledged (the worker was killed) comes back from Redis
 # after the visibility timeout. It must exceed the longest task, or a task still running is
