@@ -136,8 +136,9 @@ def _clear_unacked() -> None:
     timeout; clear it so it does not reach a later test run (this test database only)."""
     import redis
 
+    prefix = os.environ.get("CELERY_BROKER_KEY_PREFIX", "")
     client = redis.Redis.from_url(os.environ["CELERY_BROKER_URL"])
-    client.delete("unacked", "unacked_index", "unacked_mutex")
+    client.delete(*(prefix + key for key in ("unacked", "unacked_index", "unacked_mutex")))
 
 
 class Proxy:
