@@ -123,7 +123,8 @@ class SiteChangeAdmin(ReadOnlyAdmin):
 
 @admin.register(models.SiteComputation)
 class SiteComputationAdmin(ResultAdmin):
-    list_display = ("site_code", "revision", "computed", "cts", "findings", "dangers")
+    list_display = ("site_code", "revision", "status", "computed", "cts", "findings", "dangers")
+    list_filter = ("status",)
     search_fields = ("site_code",)
 
 

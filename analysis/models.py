@@ -31,6 +31,11 @@ class RunStatus(models.TextChoices):
     FAILURE = "failure"
 
 
+class ComputationStatus(models.TextChoices):
+    OK = "ok", "computed"
+    FAILED = "failed", "could not be computed"
+
+
 class AnalysisRun(models.Model):
     """One recompute job: which sites, how far it got, what it produced and how long each
     phase took. ``site_ids`` null means the whole fleet as it stood when the run started.
@@ -97,12 +102,24 @@ class AnalysisRun(models.Model):
 
 
 class RunChunk(models.Model):
-    """A chunk of a run whose results are written: recorded in the write's transaction so a
-    redelivered chunk never counts its sites twice."""
+    """A chunk of a run that started: its worker's heartbeat while it runs, and when its results
+    were written and counted (``done_at``, set in the write's transaction so a redelivered
+    chunk never counts its sites twice). The stall sweep sends again a chunk not done whose
+    heartbeat stopped (its worker was killed or lost)."""
 
     run = models.ForeignKey(AnalysisRun, on_delete=models.CASCADE, related_name="chunks")
     index = models.PositiveIntegerField()
     sites = models.PositiveIntegerField()
+    attempts = models.PositiveIntegerField(default=0, help_text="starts, re-sends included")
+    heartbeat_at = models.DateTimeField(
+        null=True, blank=True, help_text="last sign of life of the worker running it"
+    )
+    sent_at = models.DateTimeField(
+        null=True, blank=True, help_text="last sent again by the stall sweep"
+    )
+    done_at = models.DateTimeField(
+        null=True, blank=True, help_text="results written and counted", db_index=True
+    )
 
     class Meta:
         constraints = [
@@ -129,8 +146,14 @@ class SiteResult(models.Model):
 
 class SiteComputation(SiteResult):
     """One row per site: the revision its stored results are at, with their counts. The write
-    locks and reads it to refuse replacing newer results with older ones."""
+    locks and reads it to refuse replacing newer results with older ones. ``failed``: the
+    results of that revision could not be computed or written (``error`` says why, and a
+    ``results_not_computed`` danger finding shows it); the results stored before stay, stale."""
 
+    status = models.CharField(
+        max_length=10, choices=ComputationStatus.choices, default=ComputationStatus.OK
+    )
+    error = models.TextField(blank=True)
     cts = models.PositiveIntegerField(default=0)
     findings = models.PositiveIntegerField(default=0)
     dangers = models.PositiveIntegerField(default=0)

@@ -8,7 +8,7 @@ here returns that flag beside the result, so no caller can show a stale verdict 
 from __future__ import annotations
 
 from collections.abc import Iterable
-from typing import Any
+from typing import Any, Literal
 
 from django.db.models import (
     BooleanField,
@@ -133,18 +133,51 @@ def site_status(*, site: str) -> dict[str, Any]:
                     :1
                 ]
             ),
+            computed_status=Subquery(
+                models.SiteComputation.objects.filter(site_id=OuterRef("pk")).values("status")[:1]
+            ),
+            computed_error=Subquery(
+                models.SiteComputation.objects.filter(site_id=OuterRef("pk")).values("error")[:1]
+            ),
         )
-        .values("pk", "code", "revision", "computed_revision", "computed_at")
+        .values(
+            "pk",
+            "code",
+            "revision",
+            "computed_revision",
+            "computed_at",
+            "computed_status",
+            "computed_error",
+        )
         .get()
     )
     computed = row["computed_revision"]
+    stale = computed is None or computed < row["revision"]
     return {
         "site": row["code"],
         "revision": row["revision"],
         "computed_revision": computed,
         "computed_at": row["computed_at"],
-        "stale": computed is None or computed < row["revision"],
+        "stale": stale,
+        "status": results_status(computed, row["revision"], row["computed_status"]),
+        "error": row["computed_error"] or None,
     }
+
+
+ResultsStatus = Literal["none", "stale", "failed", "ok"]
+
+
+def results_status(
+    computed_revision: int | None, revision: int, status: str | None
+) -> ResultsStatus:
+    """Where a site's results stand, in one word: ``none`` (never computed), ``stale`` (older
+    than the record: a recompute is due), ``failed`` (the record's revision could not be
+    computed or written: see its ``results_not_computed`` finding) or ``ok``."""
+    if computed_revision is None:
+        return "none"
+    if computed_revision < revision:
+        return "stale"
+    return "failed" if status == models.ComputationStatus.FAILED else "ok"
 
 
 def stale_site_ids() -> list[int]:
@@ -294,6 +327,8 @@ def sites_overview() -> QuerySet:
         n_findings=Subquery(computed.values("findings")[:1]),
         n_dangers=Subquery(computed.values("dangers")[:1]),
         n_unsafe_procedures=Subquery(computed.values("unsafe_procedures")[:1]),
+        computed_status=Subquery(computed.values("status")[:1]),
+        computed_error=Subquery(computed.values("error")[:1]),
     ).order_by("code")
 
 

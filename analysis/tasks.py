@@ -14,7 +14,7 @@ import logging
 import kombu.exceptions
 from celery import group
 from celery.contrib.django.task import DjangoTask
-from django.db import OperationalError, close_old_connections, transaction
+from django.db import OperationalError, close_old_connections
 
 from analysis import services
 from config.celery import app
@@ -40,16 +40,6 @@ class RunTask(DjangoTask):
     retry_jitter = False
     soft_time_limit = 20 * 60
     time_limit = 25 * 60
-
-    def delay_on_commit(self, *args, **kwargs) -> None:  # type: ignore[override]
-        # ``robust``: the edit has committed by then; a broker outage must not turn it into an
-        # error for the caller. The outbox row stays pending and the sweep sends it later.
-        # (Returns nothing, unlike Celery's: the task is not sent yet.)
-        # A named function, not a partial: Django logs a robust callback's __qualname__.
-        def send_recompute() -> None:
-            self.delay(*args, **kwargs)
-
-        transaction.on_commit(send_recompute, robust=True)
 
     def before_start(self, task_id, args, kwargs) -> None:
         if not self.request.is_eager:
@@ -77,7 +67,13 @@ def recompute_run(self, run_id: int) -> int:
         return 0
     force = AnalysisRun.objects.filter(pk=run_id).values_list("force", flat=True).get()
     if len(chunks) == 1:
-        services.chunk_recompute(run_id=run_id, index=0, site_ids=chunks[0], force=force)
+        services.chunk_recompute(
+            run_id=run_id,
+            index=0,
+            site_ids=chunks[0],
+            force=force,
+            heartbeat=not self.request.is_eager,
+        )
     elif chunks:
         group(
             recompute_chunk.si(run_id, i, ids, force) for i, ids in enumerate(chunks)
@@ -88,7 +84,13 @@ def recompute_run(self, run_id: int) -> int:
 @app.task(base=RunTask, bind=True, name="analysis.recompute_chunk")
 def recompute_chunk(self, run_id: int, index: int, site_ids: list[int], force: bool) -> dict:
     """One chunk of a run: read, compute, write its sites."""
-    out = services.chunk_recompute(run_id=run_id, index=index, site_ids=site_ids, force=force)
+    out = services.chunk_recompute(
+        run_id=run_id,
+        index=index,
+        site_ids=site_ids,
+        force=force,
+        heartbeat=not self.request.is_eager,
+    )
     return {"written": len(out.written), "skipped": len(out.skipped), "failed": len(out.failed)}
 
 
@@ -103,8 +105,8 @@ def recompute_chunk(self, run_id: int, index: int, site_ids: list[int], force: b
     time_limit=60,
 )
 def sweep_requests(self) -> int:
-    """Periodic: send again the outbox rows not done after a minute, and the parts of runs
-    stalled for ten minutes (a message lost between broker and worker)."""
+    """Periodic (every ``LOOPKEEP_SWEEP_EVERY_S``): send the outbox rows whose send was lost,
+    and again the chunks whose heartbeat stopped and the runs lost (``analysis.services``)."""
     return services.requests_sweep() + services.runs_sweep()
 
 

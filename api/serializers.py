@@ -8,6 +8,7 @@ from typing import Any
 
 from rest_framework import serializers
 
+from analysis.selectors import ResultsStatus, results_status
 from inventory.selectors import num
 from trade.ratio import format_ratio
 
@@ -33,9 +34,23 @@ class SiteSerializer(serializers.Serializer):
     findings = serializers.IntegerField(source="n_findings", allow_null=True)
     dangers = serializers.IntegerField(source="n_dangers", allow_null=True)
     unsafe_procedures = serializers.IntegerField(source="n_unsafe_procedures", allow_null=True)
+    results_status = serializers.SerializerMethodField(
+        help_text="none (never computed), stale (a recompute is due), failed (the current "
+        "revision could not be computed: see the results_not_computed finding) or ok"
+    )
+    results_error = serializers.SerializerMethodField(
+        help_text="why the results could not be computed (null unless results_status is failed)"
+    )
 
     def get_stale(self, site: Any) -> bool:
         return site.computed_revision is None or site.computed_revision < site.revision
+
+    def get_results_status(self, site: Any) -> ResultsStatus:
+        return results_status(site.computed_revision, site.revision, site.computed_status)
+
+    def get_results_error(self, site: Any) -> str | None:
+        failed = self.get_results_status(site) == "failed"
+        return (site.computed_error or None) if failed else None
 
 
 class CTSerializer(serializers.Serializer):

@@ -66,12 +66,15 @@ def changes_give_up(*, max_sends: int) -> int:
     )
 
 
-def changes_due(*, cutoff: dt.datetime) -> QuerySet[SiteChange]:
-    """Pending changes never sent since before ``cutoff``, or last sent before it; per site,
-    newest first."""
+def changes_due(
+    *, cutoff: dt.datetime, resend_cutoff: dt.datetime | None = None
+) -> QuerySet[SiteChange]:
+    """Pending changes never sent since before ``cutoff``, or last sent before
+    ``resend_cutoff`` (``cutoff`` when not given); per site, newest first."""
+    resend = cutoff if resend_cutoff is None else resend_cutoff
     return (
         SiteChange.objects.filter(status=ChangeStatus.PENDING)
-        .filter(Q(sent_at__isnull=True, created_at__lte=cutoff) | Q(sent_at__lte=cutoff))
+        .filter(Q(sent_at__isnull=True, created_at__lte=cutoff) | Q(sent_at__lte=resend))
         .order_by("site_id", "-revision", "-id")
     )
 

@@ -189,9 +189,19 @@ CELERY_TASK_SOFT_TIME_LIMIT = 25 * 60
 CELERY_RESULT_BACKEND = os.environ.get("CELERY_RESULT_BACKEND") or None
 CELERY_TASK_IGNORE_RESULT = not CELERY_RESULT_BACKEND
 CELERY_BROKER_CONNECTION_RETRY_ON_STARTUP = True
+# A worker cut off from the broker keeps trying to reconnect (never gives up during a long
+# outage) and lets its running task finish: with Redis the acknowledgement is a key deletion
+# that works on the new connection, so the task is not run twice.
+CELERY_BROKER_CONNECTION_MAX_RETRIES = None
+CELERY_WORKER_CANCEL_LONG_RUNNING_TASKS_ON_CONNECTION_LOSS = False
 CELERY_BROKER_CONNECTION_TIMEOUT = 4
-# The visibility timeout must exceed the longest task (an unacked message comes back after it).
-CELERY_BROKER_TRANSPORT_OPTIONS: dict[str, object] = {"visibility_timeout": 3600}
+# A message a worker took and never acknowledged (the worker was killed) comes back from Redis
+# after the visibility timeout. It must exceed the longest task, or a task still running is
+# delivered a second time: 35 minutes, above the 30-minute hard time limit. Lost recompute
+# chunks do not wait for it: their heartbeat stops and the stall sweep sends them again within
+# about a minute (LOOPKEEP_CHUNK_STALL_S); the original message, when it comes back, finds the
+# chunk done and does nothing.
+CELERY_BROKER_TRANSPORT_OPTIONS: dict[str, object] = {"visibility_timeout": 35 * 60}
 # A send during a broker outage gives up after about a second: the outbox row stays pending and
 # the sweep sends it again, so the edit that asked for it is not held up.
 CELERY_TASK_PUBLISH_RETRY_POLICY = {
@@ -224,8 +234,24 @@ if os.environ.get("CELERY_BROKER_KEY_PREFIX"):
     CELERY_BROKER_TRANSPORT_OPTIONS["global_keyprefix"] = os.environ["CELERY_BROKER_KEY_PREFIX"]
 CELERY_BROKER_TRANSPORT_OPTIONS["queue_order_strategy"] = "priority"
 CELERY_BROKER_TRANSPORT_OPTIONS["priority_steps"] = [0, 3, CHUNK_PRIORITY, 9]
+# Recompute reliability (analysis.services.liveness and .outbox): a running chunk stamps a
+# heartbeat every LOOPKEEP_CHUNK_HEARTBEAT_S; the sweep, every LOOPKEEP_SWEEP_EVERY_S, sends
+# again a chunk silent for LOOPKEEP_CHUNK_STALL_S (its worker died), an outbox row never sent
+# after LOOPKEEP_OUTBOX_SEND_AFTER_S (the broker was away at commit), and runs or rows sent
+# but never started after LOOPKEEP_RUN_LOST_S (a message lost; a busy queue looks the same, so
+# this one waits long). The sweep's message expires after one interval: while workers are away
+# the sweeps do not pile up in the queue.
+LOOPKEEP_CHUNK_HEARTBEAT_S = float(os.environ.get("LOOPKEEP_CHUNK_HEARTBEAT_S", "5"))
+LOOPKEEP_CHUNK_STALL_S = float(os.environ.get("LOOPKEEP_CHUNK_STALL_S", "45"))
+LOOPKEEP_OUTBOX_SEND_AFTER_S = float(os.environ.get("LOOPKEEP_OUTBOX_SEND_AFTER_S", "5"))
+LOOPKEEP_RUN_LOST_S = float(os.environ.get("LOOPKEEP_RUN_LOST_S", "600"))
+LOOPKEEP_SWEEP_EVERY_S = float(os.environ.get("LOOPKEEP_SWEEP_EVERY_S", "10"))
 CELERY_BEAT_SCHEDULE = {
-    "send-pending-recompute-requests": {"task": "analysis.sweep_requests", "schedule": 60.0},
+    "send-pending-recompute-requests": {
+        "task": "analysis.sweep_requests",
+        "schedule": LOOPKEEP_SWEEP_EVERY_S,
+        "options": {"expires": LOOPKEEP_SWEEP_EVERY_S},
+    },
     "recompute-fleet-nightly": {
         "task": "analysis.recompute_fleet",
         "schedule": crontab(hour=2, minute=15),

@@ -193,6 +193,7 @@ def test_recompute_twice_gives_the_same_rows_and_counts_once(django_capture_on_c
     rows = _result_sets(site.pk)
     again = services.chunk_recompute(run_id=run.pk, index=0, site_ids=[site.pk], force=True)
     assert first.counted and not again.counted
+    assert again.done_before  # the chunk was written: the second delivery did nothing
     assert _result_sets(site.pk) == rows
     run.refresh_from_db()
     assert run.sites_done == 1
@@ -235,11 +236,15 @@ def test_failing_site_does_not_break_the_edit(django_capture_on_commit_callbacks
     monkeypatch.setattr("analysis.compute.compute_sites", broken)
     site = _import(small_site(), django_capture_on_commit_callbacks)  # must not raise
     change = inv.SiteChange.objects.get(site_id=site.pk)
-    assert change.status == ChangeStatus.PENDING  # the sweep will try again
+    # Acted on: the failure is the recorded state of that revision (not stale with nothing
+    # pending); the next edit or a forced run tries again.
+    assert change.status == ChangeStatus.DONE
     run = models.AnalysisRun.objects.get(change=change)
     assert run.status == RunStatus.FAILURE
     assert "injected engine failure" in run.error
-    assert selectors.site_status(site="TST")["stale"] is True
+    status = selectors.site_status(site="TST")
+    assert (status["stale"], status["status"]) == (False, "failed")
+    assert [f["code"] for f in selectors.findings_list(site="TST")] == ["results_not_computed"]
 
 
 def test_fleet_run_in_chunks(django_capture_on_commit_callbacks, settings):
@@ -351,7 +356,14 @@ def test_beat_schedule_names_registered_tasks(settings):
     }
     assert names <= set(app.tasks)
     sweep = next(e for e in settings.CELERY_BEAT_SCHEDULE.values() if "sweep" in e["task"])
-    assert sweep["schedule"] == 60.0  # the outbox is swept every minute (issue 5)
+    # Swept every few seconds, so an edit made while the broker was away is computed seconds
+    # after its return, and a chunk whose worker died is sent again within about a minute.
+    assert sweep["schedule"] == settings.LOOPKEEP_SWEEP_EVERY_S <= 15
+    assert sweep["options"]["expires"] == sweep["schedule"]
+    assert settings.LOOPKEEP_CHUNK_HEARTBEAT_S * 3 <= settings.LOOPKEEP_CHUNK_STALL_S <= 60
+    # The broker gives an unacknowledged message back only after the longest task.
+    visibility = settings.CELERY_BROKER_TRANSPORT_OPTIONS["visibility_timeout"]
+    assert visibility > settings.CELERY_TASK_TIME_LIMIT
 
 
 def test_nightly_task_recomputes_every_site(django_capture_on_commit_callbacks):
@@ -380,11 +392,12 @@ def test_stalled_run_gets_its_lost_chunk_sent_again(django_capture_on_commit_cal
         services.chunk_recompute(run_id=run.pk, index=index, site_ids=chunks[index], force=True)
     run.refresh_from_db()
     assert (run.status, run.sites_done) == (RunStatus.RUNNING, 2)
-    assert services.runs_sweep(stalled_s=600) == 0  # not stalled yet
-    models.AnalysisRun.objects.filter(pk=run.pk).update(
-        progress_at=timezone.now() - dt.timedelta(minutes=11)
-    )
-    assert services.runs_sweep(stalled_s=600) == 1
+    assert services.runs_sweep(lost_s=600) == 0  # not stalled yet
+    # No sign of life in the run for 11 minutes (its written chunks are that old too).
+    eleven_ago = timezone.now() - dt.timedelta(minutes=11)
+    models.AnalysisRun.objects.filter(pk=run.pk).update(progress_at=eleven_ago)
+    run.chunks.update(heartbeat_at=eleven_ago, done_at=eleven_ago)
+    assert services.runs_sweep(lost_s=600) == 1
     run.refresh_from_db()
     assert (run.status, run.sites_done, run.chunks.count()) == (RunStatus.SUCCESS, 3, 3)
     assert selectors.stale_site_ids() == []
@@ -398,7 +411,7 @@ def test_run_whose_message_was_lost_is_sent_again(django_capture_on_commit_callb
     models.AnalysisRun.objects.filter(pk=run.pk).update(
         created_at=timezone.now() - dt.timedelta(minutes=11)
     )
-    assert services.runs_sweep(stalled_s=600) == 1
+    assert services.runs_sweep(lost_s=600) == 1
     run.refresh_from_db()
     assert run.status == RunStatus.SUCCESS
     assert selectors.site_status(site="TST")["stale"] is False

@@ -23,13 +23,14 @@ from django.db import connection, connections
 from django.utils import timezone
 
 from analysis import models, selectors, services
-from analysis.compute import compute_sites
 from analysis.models import RunKind, RunStatus
+from analysis.services import results as results_writer
+from analysis.services import runs as run_services
 from config.celery import app
 from inventory import models as inv
 from inventory.choices import ChangeStatus
-from inventory.selectors import site_document
 from inventory.services import ct_change_tap, site_import
+from tests.analysis.helpers import one_set_of_rows, result_rows
 from tests.inventory.docs import small_site
 
 WAIT_S = 30.0
@@ -89,24 +90,6 @@ def worker():
         yield w
 
 
-def _rows(site_id: int) -> dict[str, int]:
-    return {m.__name__: m.objects.filter(site_id=site_id).count() for m in services.RESULT_MODELS}
-
-
-def _expected_rows(site_id: int) -> dict[str, int]:
-    r = compute_sites({site_id: site_document(inv.Site.objects.get(pk=site_id))})[site_id]
-    members = sum(len(set(c["cts"])) + len(set(c["devices"])) for c in r.circuits)
-    return {
-        "CTRating": len(r.ct_cases),
-        "CTReport": len(r.ct_reports),
-        "Finding": len(r.findings),
-        "ProcedureVerdict": len(r.verdicts),
-        "CircuitMember": members,
-        "Circuit": len(r.circuits),
-        "SiteComputation": 1,
-    }
-
-
 @pytest.mark.broker
 @pytest.mark.postgres
 @pytest.mark.django_db(transaction=True)
@@ -121,7 +104,7 @@ def test_edit_commits_then_worker_writes_fresh_results(worker):
     # X1-X5 of the 0/100/150/400/600 winding is 600:5 (S4).
     assert selectors.ct_report(site="TST", ct="CB-1-A")[0]["ratio"] == "600:5"
     assert not inv.SiteChange.objects.exclude(status=ChangeStatus.DONE).exists()
-    assert _rows(site.pk) == _expected_rows(site.pk)
+    assert result_rows(site.pk) == one_set_of_rows(site.pk)
     runs = models.AnalysisRun.objects.filter(kind=RunKind.SITE)
     assert runs.count() == 2 and all(r.status == RunStatus.SUCCESS for r in runs)
     assert all(r.task_id for r in runs)
@@ -154,7 +137,7 @@ def test_broker_outage_delays_results_but_loses_nothing(worker):
     assert request.status == ChangeStatus.DONE
     # X2-X5 of the 0/100/150/400/600 winding is 500:5 (S4).
     assert selectors.ct_report(site="TST", ct="CB-1-C")[0]["ratio"] == "500:5"
-    assert _rows(site.pk) == _expected_rows(site.pk)
+    assert result_rows(site.pk) == one_set_of_rows(site.pk)
 
 
 @pytest.mark.broker
@@ -164,7 +147,7 @@ def test_task_killed_mid_write_is_redelivered_and_leaves_one_set(worker, monkeyp
     with services.recompute_deferred():
         site_import(doc=small_site())
     site = inv.Site.objects.get(code="TST")
-    real_insert = services._insert
+    real_insert = results_writer._insert
     killed: list[int] = []
 
     def insert_then_lose_the_session(model, rows):
@@ -185,7 +168,7 @@ def test_task_killed_mid_write_is_redelivered_and_leaves_one_set(worker, monkeyp
             ) as admin:
                 admin.execute("SELECT pg_terminate_backend(%s)", [pid])
 
-    monkeypatch.setattr(services, "_insert", insert_then_lose_the_session)
+    monkeypatch.setattr(results_writer, "_insert", insert_then_lose_the_session)
     run = services.run_create(kind=RunKind.SITES, site_ids=[site.pk], force=True)
     services.run_dispatch(run=run)
     wait_for(
@@ -195,7 +178,7 @@ def test_task_killed_mid_write_is_redelivered_and_leaves_one_set(worker, monkeyp
     run.refresh_from_db()
     assert killed and run.attempts == 2
     assert run.sites_done == 1 and run.chunks.count() == 1
-    assert _rows(site.pk) == _expected_rows(site.pk)
+    assert result_rows(site.pk) == one_set_of_rows(site.pk)
     assert not inv.SiteChange.objects.exclude(status=ChangeStatus.DONE).exists()
 
 
@@ -225,7 +208,7 @@ class _Paused:
         self.computed = threading.Event()
         self.barrier = threading.Barrier(parties) if parties else None
         self.names: set[str] = set()
-        real = services._compute
+        real = run_services._compute
 
         def compute(docs):
             result = real(docs)
@@ -237,7 +220,7 @@ class _Paused:
                     assert self.release.wait(timeout=WAIT_S)
             return result
 
-        monkeypatch.setattr(services, "_compute", compute)
+        monkeypatch.setattr(run_services, "_compute", compute)
 
 
 def _in_thread(name: str, site_id: int, errors: list) -> threading.Thread:
@@ -280,7 +263,7 @@ def test_older_recompute_finishing_last_does_not_overwrite_newer(monkeypatch):
         models.CTRating.objects.filter(site_id=site.pk).values_list("revision", flat=True)
     ) == {site.revision}
     assert selectors.ct_report(site="TST", ct="CB-1-A")[0]["ratio"] == "600:5"  # S4
-    assert _rows(site.pk) == _expected_rows(site.pk)
+    assert result_rows(site.pk) == one_set_of_rows(site.pk)
 
 
 @pytest.mark.postgres
@@ -299,5 +282,5 @@ def test_two_recomputes_of_one_site_racing_leave_one_set(monkeypatch):
     for t in threads:
         t.join(WAIT_S)
     assert errors == []
-    assert _rows(site.pk) == _expected_rows(site.pk)
+    assert result_rows(site.pk) == one_set_of_rows(site.pk)
     assert models.SiteComputation.objects.get(site_id=site.pk).revision == site.revision
