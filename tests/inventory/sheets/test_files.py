@@ -119,7 +119,8 @@ def test_a_wrong_unit_for_a_column_is_reported():
         (
             1,
             "winding_ohm (ft)",
-            "unit (ft) is not one winding_ohm can be given in (Ω, ohm, ohms, mΩ, mohm, milliohm, milliohms)",
+            "unit (ft) is not one winding_ohm can be given in "
+            "(Ω, ohm, ohms, mΩ, mohm, milliohm, milliohms)",
         ),
     ]
 
