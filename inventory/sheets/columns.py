@@ -141,9 +141,9 @@ def map_headers(
     missing."""
     columns = KINDS[kind]
     by_name: dict[str, Column] = {}
-    for column in columns:
-        for name in (column.name, *column.aliases):
-            by_name[normal(name)] = column
+    for each in columns:
+        for name in (each.name, *each.aliases):
+            by_name[normal(name)] = each
     own = {normal(k): v for k, v in (mapping or {}).items()}
     problems: list[tuple[str, str]] = []
     mapped: list[Mapped] = []
@@ -189,9 +189,9 @@ def map_headers(
             continue
         taken[column.name] = text
         mapped.append(Mapped(index, text, column, factor))
-    for column in columns:
-        if column.required and column.name not in taken:
-            problems.append(("", f"the required column {column.name} is missing"))
+    for each in columns:
+        if each.required and each.name not in taken:
+            problems.append(("", f"the required column {each.name} is missing"))
     if problems:
         raise HeaderError(problems)
     return mapped

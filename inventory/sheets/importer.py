@@ -157,6 +157,7 @@ def _number(value: Any, factor: float) -> float:
 
 def _moment(value: Any) -> str:
     """A date-time cell as the site file writes it (UTC; a time without an offset is UTC)."""
+    at: dt.datetime | None
     if isinstance(value, dt.datetime):
         at = value
     elif isinstance(value, dt.date):

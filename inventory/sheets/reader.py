@@ -131,14 +131,14 @@ def _sheet_part(archive: zipfile.ZipFile, sheet: str | None, name: str) -> tuple
     ]
     if not sheets:
         raise SheetFileError(f"{name}: the workbook has no sheets")
-    if sheet is None:
-        chosen = sheets[0]
-    else:
+    chosen: tuple[Any, Any] | None = sheets[0]
+    if sheet is not None:
         chosen = next((s for s in sheets if s[0] == sheet), None)
         if chosen is None:
             raise SheetFileError(
                 f"{name}: no sheet {sheet!r} (sheets: {', '.join(repr(s[0]) for s in sheets)})"
             )
+    assert chosen is not None
     targets = {r.get("Id"): r.get("Target", "") for r in rels.iter(f"{_NS_PKG_REL}Relationship")}
     target = targets.get(chosen[1], "")
     part = target.lstrip("/") if target.startswith("/") else f"xl/{target}"
