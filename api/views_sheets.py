@@ -11,7 +11,7 @@ import io
 import json
 from typing import Any
 
-from django.http import HttpResponse
+from django.http import Http404, HttpResponse
 from drf_spectacular.types import OpenApiTypes
 from drf_spectacular.utils import OpenApiParameter, OpenApiResponse, extend_schema
 from rest_framework import exceptions, renderers, status
@@ -21,7 +21,7 @@ from rest_framework.response import Response
 from rest_framework.views import APIView
 
 from analysis.sheets import FINDING_HEADERS, finding_rows
-from api.errors import CodeNotFound, FieldErrors
+from api.errors import CodeNotFound, FieldErrors, nearest
 from api.roles import EDITOR
 from inventory import models as inv
 from inventory import selectors as records
@@ -239,11 +239,22 @@ class _Export(APIView):
     def rows(self, site: str | None) -> Any:
         raise NotImplementedError
 
+    def perform_content_negotiation(self, request: Request, force: bool = False) -> Any:
+        try:
+            return super().perform_content_negotiation(request, force)
+        except Http404:  # DRF's answer to an unknown ?format=
+            raise FieldErrors(
+                "unknown format",
+                [("format", f"must be xlsx or csv, got {request.query_params.get('format')!r}")],
+            ) from None
+
     def get(self, request: Request) -> Response:
         fmt = request.accepted_renderer.format
         site = request.query_params.get("site") or None
         if site is not None and not inv.Site.objects.filter(code=site).exists():
-            raise CodeNotFound("site", site, records.codes(inv.Site))
+            near = nearest(site, records.codes(inv.Site))
+            hint = f" (did you mean {', '.join(near)}?)" if near else ""
+            raise FieldErrors("unknown site", [("site", f"no site {site!r}{hint}")])
         data = write_table(self.columns, self.rows(site), fmt=fmt, sheet=self.title)
         name = f"{self.title.lower().replace(' ', '-')}{'-' + site if site else ''}.{fmt}"
         response = Response(data, content_type=CONTENT_TYPES[fmt])

@@ -142,7 +142,15 @@ def test_exports_as_csv_and_xlsx(demo, viewer, path, first):
     assert len(table.rows) == len(rows) - 1
 
 
-def test_export_of_an_unknown_site_is_a_404_in_json(demo, viewer):
+def test_export_of_an_unknown_site_or_format_is_a_400_in_json(demo, viewer):
     response = viewer.get("/api/v1/exports/cts/?format=csv&site=QFM")
-    assert response.status_code == 404
-    assert response.json()["did_you_mean"] == ["QFN"]
+    assert response.status_code == 400
+    assert response.json()["errors"] == [
+        {"field": "site", "message": "no site 'QFM' (did you mean QFN?)"}
+    ]
+    response = viewer.get("/api/v1/exports/cts/?format=pdf")
+    assert response.status_code == 400
+    assert response["Content-Type"] == "application/json"
+    assert response.json()["errors"] == [
+        {"field": "format", "message": "must be xlsx or csv, got 'pdf'"}
+    ]
