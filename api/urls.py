@@ -74,9 +74,9 @@ urlpatterns = [
     path("tap-changes/", views.TapChangeList.as_view(), name="tap-change-list"),
     # spreadsheets (api/views_sheets.py)
     path("imports/", views_sheets.ImportCreate.as_view(), name="import-create"),
-    path("imports/<int:pk>/", views_sheets.ImportDetail.as_view(), name="import-detail"),
-    path("imports/<int:pk>/errors.csv", views_sheets.ImportErrors.as_view(), name="import-errors"),
-    path("imports/<int:pk>/cancel/", views_sheets.ImportCancel.as_view(), name="import-cancel"),
+    path("imports/<str:pk>/", views_sheets.ImportDetail.as_view(), name="import-detail"),
+    path("imports/<str:pk>/errors.csv", views_sheets.ImportErrors.as_view(), name="import-errors"),
+    path("imports/<str:pk>/cancel/", views_sheets.ImportCancel.as_view(), name="import-cancel"),
     path("exports/cts/", views_sheets.CTRegisterExport.as_view(), name="export-cts"),
     path("exports/findings/", views_sheets.FindingsExport.as_view(), name="export-findings"),
     path("exports/tap-changes/", views_sheets.TapChangesExport.as_view(), name="export-taps"),

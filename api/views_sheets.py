@@ -158,8 +158,10 @@ class ImportCreate(APIView):
         return Response(result)
 
 
-def _job(pk: int) -> inv.ImportJob:
-    job = inv.ImportJob.objects.filter(pk=pk).first()
+def _job(pk: str) -> inv.ImportJob:
+    job = (
+        inv.ImportJob.objects.filter(pk=int(pk)).first() if pk.isdigit() and len(pk) < 18 else None
+    )
     if job is None:
         raise CodeNotFound("import", str(pk), [])
     return job
@@ -169,7 +171,7 @@ class ImportDetail(APIView):
     """An import job: status, percent done, the summary when done, the error count."""
 
     @extend_schema(responses=OpenApiTypes.OBJECT)
-    def get(self, request: Request, pk: int) -> Response:
+    def get(self, request: Request, pk: str) -> Response:
         return Response(job_json(_job(pk)))
 
 
@@ -177,7 +179,7 @@ class ImportErrors(APIView):
     """Every error of an import job as CSV: row, column, value, message."""
 
     @extend_schema(responses={(200, "text/csv"): OpenApiTypes.BINARY})
-    def get(self, request: Request, pk: int) -> HttpResponse:
+    def get(self, request: Request, pk: str) -> HttpResponse:
         job = _job(pk)
         out = io.StringIO()
         writer = csv.writer(out, lineterminator="\r\n")
@@ -200,7 +202,7 @@ class ImportCancel(APIView):
     required_role = EDITOR
 
     @extend_schema(request=None, responses=OpenApiTypes.OBJECT)
-    def post(self, request: Request, pk: int) -> Response:
+    def post(self, request: Request, pk: str) -> Response:
         return Response(job_json(import_job_cancel(job=_job(pk))))
 
 
