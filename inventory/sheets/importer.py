@@ -12,6 +12,7 @@ as the file writes it, the value and what is wrong.
 from __future__ import annotations
 
 import datetime as dt
+import gc
 import re
 from collections import Counter, defaultdict
 from collections.abc import Callable, Iterator
@@ -194,21 +195,37 @@ def _parse(column: str, value: Any, factor: float) -> Any:
     return _text(value)
 
 
+# Columns whose cells repeat down a register (the same winding, tap or class on many CTs): each
+# distinct cell is parsed once.
+_REPEATING = {"terminals", "in_use", "from", "to", "accuracy", "phase", "set", "equipment"}
+
+
 def _rows(table: Table, mapped: list[Mapped]) -> tuple[list[_Row], list[RowError]]:
     rows, errors = [], []
+    seen: dict[tuple[str, Any], Any] = {}
     for number, cells in zip(table.numbers, table.rows, strict=True):
         row = _Row(number, {}, {})
         for m in mapped:
+            name = m.column.name
             value = cells[m.index] if m.index < len(cells) else None
-            row.cells[m.column.name] = (m, value)
+            row.cells[name] = (m, value)
             if value is None:
-                row.values[m.column.name] = None
+                row.values[name] = None
                 continue
-            try:
-                row.values[m.column.name] = _parse(m.column.name, value, m.factor)
-            except ValueError as exc:
-                errors.append(RowError(number, m.header, value, str(exc)))
-                row.values[m.column.name] = _BAD
+            key = (name, value) if name in _REPEATING and isinstance(value, str) else None
+            if key is not None and key in seen:
+                parsed = seen[key]
+            else:
+                try:
+                    parsed = _parse(name, value, m.factor)
+                except ValueError as exc:
+                    parsed = exc
+                if key is not None:
+                    seen[key] = parsed
+            if isinstance(parsed, ValueError):
+                errors.append(RowError(number, m.header, value, str(parsed)))
+                parsed = _BAD
+            row.values[name] = parsed
         for m in mapped:
             if m.column.required and row.values.get(m.column.name) is None:
                 errors.append(RowError(number, m.header, None, "required; the cell is blank"))
@@ -276,8 +293,8 @@ def _apply_ct_rows(doc: dict, rows: list[_Row], result: SheetImportResult) -> _A
                 continue
             if value is None:
                 entry.pop(key, None)
-            else:
-                entry[key] = value
+            else:  # parsed cells are shared between rows: each CT gets its own list
+                entry[key] = list(value) if isinstance(value, list) else value
         if before is None:
             index[code] = len(doc["cts"])
             doc["cts"].append(entry)
@@ -317,7 +334,7 @@ def _apply_tap_rows(doc: dict, rows: list[_Row], result: SheetImportResult) -> _
         for row in ct_rows:
             v = row.values
             reason = " ".join(x for x in (v.get("work_order"), v.get("reason")) if x)
-            event = {"from": v["from"], "to": v["to"], "at": v["changed_at"]}
+            event = {"from": list(v["from"]), "to": list(v["to"]), "at": v["changed_at"]}
             if v.get("changed_by"):
                 event["by"] = v["changed_by"]
             if reason:
@@ -464,6 +481,26 @@ def import_table(
     ``kind="tap_changes"``) atomically; raises ``SheetImportError`` with every error and writes
     nothing when anything is wrong, ``ImportCancelled`` when ``cancelled()`` turns true.
     ``progress(done, total)`` is called per chunk of sites."""
+    # The import builds millions of small dicts and lists that live to the end: the cyclic
+    # collector would walk them again and again for nothing (it is back on when this returns).
+    paused = gc.isenabled()
+    gc.disable()
+    try:
+        return _import_table(table, kind, mapping, dry_run, user, progress, cancelled)
+    finally:
+        if paused:
+            gc.enable()
+
+
+def _import_table(
+    table: Table,
+    kind: str,
+    mapping: dict[str, str | None] | None,
+    dry_run: bool,
+    user: Any,
+    progress: Callable[[int, int], None] | None,
+    cancelled: Callable[[], bool] | None,
+) -> SheetImportResult:
     from inventory.selectors import site_documents
     from inventory.services import site_record_change
     from inventory.sitefile.validate import validate_site_document
