@@ -145,7 +145,7 @@ def test_mapping_file_names_a_utilitys_own_headers(tmp_path, capsys):
     sheet.write_bytes(
         csv_bytes([["Stn", "Xfmr ID", "Rct (mΩ)", "Comments"], ["QFN", "CB-132-B", 640, "checked"]])
     )
-    call_command("import_sheet", str(sheet), "--mapping", str(mapping), "--no-progress")
+    call_command("import_sheet", str(sheet), "--mapping", str(mapping))  # with its progress bar
     assert capsys.readouterr().out.splitlines()[0] == (
         "1 CT row(s) over 1 site(s): 0 created, 1 updated, 0 unchanged (were written)"
     )
