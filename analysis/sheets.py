@@ -7,24 +7,10 @@ import json
 from collections.abc import Iterable
 from typing import Any
 
-from analysis.selectors import finding_json, findings_queryset
+from analysis.selectors import FINDING_FIELDS, finding_json, findings_queryset
 
-FINDING_HEADERS = [
-    "site",
-    "code",
-    "severity",
-    "ct",
-    "device",
-    "input",
-    "circuit",
-    "procedure",
-    "step",
-    "stage",
-    "message",
-    "numbers",
-    "computed_at",
-    "stale",
-]
+# design.md's findings JSON, with the numbers behind the message before the time stamp.
+FINDING_HEADERS = [*FINDING_FIELDS[:11], "numbers", *FINDING_FIELDS[11:]]
 
 
 def finding_rows(*, site: str | None = None) -> Iterable[list[Any]]:
