@@ -143,7 +143,7 @@ class Command(BaseCommand):
         return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
 
     @staticmethod
-    def _max_ids(model) -> dict[str, int]:
+    def _max_ids(model) -> dict[str, tuple[str, int]]:
         out = {}
         with connection.cursor() as cursor:
             for m in (model, model.history.model):
