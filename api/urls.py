@@ -7,7 +7,7 @@ from typing import Any
 from django.urls import URLPattern, path
 from drf_spectacular.views import SpectacularAPIView, SpectacularSwaggerView
 
-from api import views
+from api import views, views_sheets
 from api import views_record as record
 
 site = "sites/<str:site>/"
@@ -72,6 +72,14 @@ urlpatterns = [
     ),
     path("findings/", views.FindingList.as_view(), name="finding-list"),
     path("tap-changes/", views.TapChangeList.as_view(), name="tap-change-list"),
+    # spreadsheets (api/views_sheets.py)
+    path("imports/", views_sheets.ImportCreate.as_view(), name="import-create"),
+    path("imports/<str:pk>/", views_sheets.ImportDetail.as_view(), name="import-detail"),
+    path("imports/<str:pk>/errors.csv", views_sheets.ImportErrors.as_view(), name="import-errors"),
+    path("imports/<str:pk>/cancel/", views_sheets.ImportCancel.as_view(), name="import-cancel"),
+    path("exports/cts/", views_sheets.CTRegisterExport.as_view(), name="export-cts"),
+    path("exports/findings/", views_sheets.FindingsExport.as_view(), name="export-findings"),
+    path("exports/tap-changes/", views_sheets.TapChangesExport.as_view(), name="export-taps"),
 ]
 
 if os.environ.get("LOOPKEEP_BENCH_FLOOR") == "1":  # the benchmark's floor (api/bench.py)

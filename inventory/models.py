@@ -782,3 +782,46 @@ class SiteChange(models.Model):
 
     def __str__(self) -> str:
         return f"site {self.site_id} changed to revision {self.revision} ({self.status})"
+
+
+class ImportJob(models.Model):
+    """A spreadsheet (or site file) import run in the background: the file sent, how far the
+    import got, what it did and every error. A job is not part of the physical record, so it
+    keeps no history; cancelling it before it commits writes nothing."""
+
+    class Status(models.TextChoices):
+        QUEUED = "queued"
+        RUNNING = "running"
+        DONE = "done"
+        FAILED = "failed"
+        CANCELLED = "cancelled"
+
+    kind = models.CharField(max_length=20, help_text="cts, tap_changes or site")
+    filename = models.CharField(max_length=200)
+    sheet = models.CharField(max_length=100, blank=True)
+    data = models.BinaryField(help_text="the file sent (emptied when the job ends)")
+    mapping = models.JSONField(null=True, blank=True, help_text="header -> column name")
+    dry_run = models.BooleanField("dry run", default=False)
+    status = models.CharField(max_length=10, choices=Status.choices, default=Status.QUEUED)
+    percent = models.PositiveSmallIntegerField("percent done", default=0)
+    result = models.JSONField(default=dict, blank=True)
+    errors = models.JSONField(default=list, blank=True)
+    message = models.TextField(blank=True)
+    cancel_requested = models.BooleanField("cancel requested", default=False)
+    created_by = models.ForeignKey(
+        "auth.User", null=True, blank=True, on_delete=models.SET_NULL, related_name="+"
+    )
+    created_at = models.DateTimeField("created at", auto_now_add=True)
+    started_at = models.DateTimeField("started at", null=True, blank=True)
+    finished_at = models.DateTimeField("finished at", null=True, blank=True)
+
+    class Meta:
+        ordering = ["-created_at", "-id"]
+        constraints = [
+            models.CheckConstraint(
+                condition=Q(percent__lte=100), name="inventory_importjob_percent_at_most_100"
+            )
+        ]
+
+    def __str__(self) -> str:
+        return f"import {self.pk} of {self.filename} ({self.status})"

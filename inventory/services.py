@@ -26,7 +26,14 @@ from inventory import models
 from inventory.changes import change_record
 from inventory.sitefile.importer import ImportResult, SiteImportError, upsert_site
 
-__all__ = ["ImportResult", "SiteImportError", "ct_change_tap", "site_import", "site_record_change"]
+__all__ = [
+    "ImportResult",
+    "SiteImportError",
+    "ct_change_tap",
+    "sheet_import",
+    "site_import",
+    "site_record_change",
+]
 
 
 class _DryRunRollback(Exception):
@@ -58,6 +65,32 @@ def site_import(*, doc: dict, dry_run: bool = False, user: Any = None) -> Import
     except _DryRunRollback:
         pass
     return result
+
+
+def sheet_import(
+    *,
+    table: Any,
+    kind: str,
+    mapping: dict[str, str | None] | None = None,
+    dry_run: bool = False,
+    user: Any = None,
+    progress: Callable[[int, int], None] | None = None,
+    cancelled: Callable[[], bool] | None = None,
+) -> Any:
+    """Import a CT register or tap-change log (``inventory.sheets.Table``) through the site
+    file's validation and upsert, every site of the file in one transaction; raises
+    ``inventory.sheets.SheetImportError`` with every row error and writes nothing on any."""
+    from inventory.sheets.importer import import_table
+
+    return import_table(
+        table,
+        kind=kind,
+        mapping=mapping,
+        dry_run=dry_run,
+        user=user,
+        progress=progress,
+        cancelled=cancelled,
+    )
 
 
 def site_record_change(*, site_id: int) -> None:

@@ -88,16 +88,18 @@ _CODED_SECTIONS: tuple[tuple[type[djm.Model], str], ...] = (
 )
 
 
-def upsert_site(doc: dict, result: ImportResult, user: Any) -> int:
-    """Upsert the site a valid document describes (in the caller's transaction); its id."""
-    return _SiteUpsert(doc, result, user).run()
+def upsert_site(doc: dict, result: ImportResult, user: Any, *, source: str = "site import") -> int:
+    """Upsert the site a valid document describes (in the caller's transaction); its id.
+    ``source`` names the door in the tap changes an import records (``site import``)."""
+    return _SiteUpsert(doc, result, user, source).run()
 
 
 class _SiteUpsert:
     """One import of one site: the sections in dependency order, each a method."""
 
-    def __init__(self, doc: dict, result: ImportResult, user: Any) -> None:
+    def __init__(self, doc: dict, result: ImportResult, user: Any, source: str) -> None:
         self.doc = doc
+        self.source = source
         self.result = result
         self.user = user
         self.sync = RowSync(
@@ -400,9 +402,11 @@ class _SiteUpsert:
         for c in self.doc.get("cts", []):
             ct_id = self.cts[c["code"]]
             events = c.get("tap_changes", [])
+            last_is_new = False
             for event in events:
                 at = _parse_at(event["at"])
                 k = (ct_id, at, tuple(event["from"]), tuple(event["to"]))
+                last_is_new = k not in seen
                 if k not in seen:
                     seen.add(k)
                     new.append(
@@ -417,15 +421,17 @@ class _SiteUpsert:
                     )
             in_use = tuple(c["in_use"])
             previous = old_tap.get(ct_id) or (tuple(events[-1]["to"]) if events else None)
-            if previous and tuple(previous) != in_use:
+            # A new last event that ends at the tap in use is that change (a tap-change log).
+            explained = last_is_new and tuple(events[-1]["to"]) == in_use
+            if previous and tuple(previous) != in_use and not explained:
                 new.append(
                     {
                         "ct_id": ct_id,
                         "from_tap": list(previous),
                         "to_tap": list(in_use),
                         "changed_at": now,
-                        "changed_by": getattr(self.user, "username", "") or "site import",
-                        "reason": "tap in use changed by site import",
+                        "changed_by": getattr(self.user, "username", "") or self.source,
+                        "reason": f"tap in use changed by {self.source}",
                     }
                 )
                 self.result.tap_changes.append(
