@@ -77,6 +77,7 @@ AXES_FAILURE_LIMIT = int(os.environ.get("LOGIN_FAILURE_LIMIT", "5"))
 AXES_COOLOFF_TIME = float(os.environ.get("LOGIN_LOCKOUT_HOURS", "0.25"))
 AXES_LOCKOUT_PARAMETERS = [["username", "ip_address"]]
 AXES_RESET_ON_SUCCESS = True
+AXES_VERBOSE = False  # no banner on every start (it would mix into the commands' output)
 
 ROOT_URLCONF = "config.urls"
 WSGI_APPLICATION = "config.wsgi.application"

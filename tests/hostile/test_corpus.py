@@ -85,7 +85,7 @@ def test_a_missing_file_is_an_input_error(tmp_path):
 
 
 def test_error_output_is_capped_with_a_count(corpus):
-    error, lines, _ = _import(str(corpus["bad-wires-3mb.json"]))
+    error, lines, _ = _import(str(corpus["bad-wires-1mb.json"]))
     assert len(lines) == MAX_LINES
     assert lines[-1].startswith("... and ") and lines[-1].endswith("more error(s) not shown")
     assert "error(s); nothing was written" in str(error)
