@@ -103,11 +103,13 @@ def test_login_attempts_are_throttled(client):
     """django-axes: after LOGIN_FAILURE_LIMIT (5) wrong passwords, even the right one is
     refused for that username from that address (HTTP 429) until the cool-off."""
     get_user_model().objects.create_superuser("clerk", "c@example.invalid", "right-password")
-    for _ in range(5):
-        response = client.post(
+    statuses = [
+        client.post(
             "/admin/login/?next=/admin/", {"username": "clerk", "password": "wrong"}
-        )
-        assert response.status_code == 200  # the form again, with its error
+        ).status_code
+        for _ in range(5)
+    ]
+    assert statuses == [200, 200, 200, 200, 429]  # the form again with its error, then locked
     response = client.post(
         "/admin/login/?next=/admin/", {"username": "clerk", "password": "right-password"}
     )
