@@ -95,11 +95,17 @@ BOMBS = [case for case in CASES if case.bomb]
 
 
 @pytest.mark.parametrize("case", BOMBS, ids=[c.name for c in BOMBS])
-def test_bomb_in_a_fresh_process_is_refused_in_bounded_time_and_memory(case, corpus):
+def test_bomb_in_a_fresh_process_is_refused_in_bounded_time_and_memory(case, corpus, tmp_path):
     """Measured in its own process (``ru_maxrss`` of that process alone); the command as a
-    user runs it, so a traceback would show here."""
+    user runs it, so a traceback would show here. A clean environment: the embedded settings,
+    nothing inherited from other tests."""
     script = Path(__file__).with_name("measure.py")
-    env = {k: v for k, v in os.environ.items() if k not in ("DATABASE_URL",)}
+    env = {
+        "PATH": os.environ.get("PATH", "/usr/bin:/bin"),
+        "HOME": os.environ.get("HOME", str(tmp_path)),
+        "DJANGO_SETTINGS_MODULE": "config.settings.test",
+        "LOOPKEEP_VAR_DIR": str(tmp_path),
+    }
     done = subprocess.run(
         [sys.executable, str(script), str(corpus[case.name])],
         capture_output=True,
@@ -110,8 +116,8 @@ def test_bomb_in_a_fresh_process_is_refused_in_bounded_time_and_memory(case, cor
     )
     assert done.returncode == 0, done.stderr[-2000:]
     figures = json.loads(done.stdout.strip().splitlines()[-1])
-    assert figures["traceback"] == ""
-    assert figures["status"] == 2
+    assert figures["traceback"] == "", figures["traceback"]
+    assert figures["status"] == 2, figures
     assert figures["seconds"] < SECONDS
     assert figures["peak_rss_mb"] < PEAK_RSS_MB
     assert figures["stderr_bytes"] < 64 * 1024
