@@ -100,16 +100,14 @@ def load_source(*, site: str | None = None, file: str | None = None) -> Source:
 
 
 def _load_file(file: str) -> Source:
-    from inventory.sitefile.validate import (
-        SiteFileParseError,
-        load_site_file,
-        validate_site_document,
-    )
+    from inventory.sitefile.files import capped, read_site_file
+    from inventory.sitefile.validate import SiteFileParseError, validate_site_document
 
     try:
-        doc = load_site_file(file)
-    except (OSError, SiteFileParseError) as exc:
-        raise InputError(f"{file}: {exc}") from exc
+        doc = read_site_file(file)
+    except SiteFileParseError as exc:
+        lines = str(exc).splitlines()
+        raise InputError("\n".join([lines[0], *capped(lines[1:])])) from exc
     errors = validate_site_document(doc)
     procedures = doc.get("procedures") if isinstance(doc, dict) else None
     procedures = procedures if isinstance(procedures, list) else []
@@ -127,7 +125,8 @@ def _load_file(file: str) -> Source:
             continue
         others.append(str(error))
     if others:
-        raise InputError(f"{file}: {len(errors)} error(s)\n" + "\n".join(map(str, errors)))
+        shown = capped([str(e) for e in errors])
+        raise InputError(f"{file}: {len(errors)} error(s)\n" + "\n".join(shown))
     unchecked: dict[str, list[str]] = {}
     for index, lines in by_procedure.items():
         item = procedures[index]

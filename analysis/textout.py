@@ -4,9 +4,24 @@ body, exactly). Text keeps the cautions: a crew may read this, not the JSON."""
 from __future__ import annotations
 
 import json
+import re
 from typing import Any
 
 from record.operations import OperationError, operation_from_json
+
+# What a terminal would act on or hide rather than show: C0 controls but tab and newline
+# (ESC starts a colour or cursor sequence), DEL, the C1 controls (U+009B is a one-byte CSI), and
+# the bidirectional and zero-width formatting characters (they reorder or hide what follows).
+_UNSAFE_FOR_TERMINAL = re.compile(
+    "[\x00-\x08\x0b-\x1f\x7f-\x9f\u00ad\u061c\u180e\u200b-\u200f\u2028-\u202e\u2060-\u2069\ufeff]"
+)
+
+
+def terminal_safe(text: str) -> str:
+    """``text`` with every character a terminal would act on written as ``\\uXXXX``: what
+    the record holds is shown, never obeyed. In JSON output these characters only occur inside
+    strings, where ``\\uXXXX`` is the same character, so the JSON stays exact."""
+    return _UNSAFE_FOR_TERMINAL.sub(lambda m: f"\\u{ord(m.group()):04x}", text)
 
 
 def op_text(op: dict[str, Any] | None) -> str:

@@ -23,6 +23,7 @@ from analysis.engine import ProcedureError
 from api import filters, serializers
 from api.errors import CodeNotFound, FieldErrors
 from api.pagination import ResultPagination
+from api.parsers import SiteFileJSONParser, SiteFileYAMLParser
 from inventory import models as inv
 from inventory import selectors as records
 from inventory.services import SiteImportError, ct_change_tap, site_import
@@ -104,7 +105,10 @@ class SiteExport(SiteScoped, APIView):
 
 class SiteImport(APIView):
     """Validate a site file and upsert its site atomically (``?dry_run=1``: say what would
-    change, write nothing). Every error names its JSON pointer; nothing is written on any."""
+    change, write nothing). Every error names its JSON pointer; nothing is written on any.
+    The body is read by the site-file loader (JSON, or YAML as ``application/yaml``)."""
+
+    parser_classes = [SiteFileJSONParser, SiteFileYAMLParser]
 
     @extend_schema(
         request=OpenApiTypes.OBJECT,

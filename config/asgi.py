@@ -7,3 +7,7 @@ from django.core.asgi import get_asgi_application
 os.environ.setdefault("DJANGO_SETTINGS_MODULE", "config.settings.production")
 
 application = get_asgi_application()
+
+from config.accounts import refuse_unsafe_start  # noqa: E402 (needs the apps loaded)
+
+refuse_unsafe_start()

@@ -10,6 +10,7 @@ A change of a CT's terminals in use is recorded as a ``TapChange`` event.
 from __future__ import annotations
 
 import datetime as dt
+import hashlib
 import math
 import re
 from collections.abc import Callable, Hashable, Iterable
@@ -17,8 +18,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from django.core.exceptions import ValidationError
+from django.db import connection, transaction
 from django.db import models as djm
-from django.db import transaction
 from django.db.models import F, Q
 from django.utils import timezone
 
@@ -57,6 +58,7 @@ def site_import(*, doc: dict, dry_run: bool = False, user: Any = None) -> Import
     result = ImportResult(site=doc["site"]["code"], dry_run=dry_run)
     try:
         with transaction.atomic():
+            _lock_site_code(result.site)
             site_id = upsert_site(doc, result, user)
             if result.changed:
                 site_record_change(site_id=site_id)
@@ -91,6 +93,22 @@ def sheet_import(
         progress=progress,
         cancelled=cancelled,
     )
+
+
+def _lock_site_code(code: str) -> None:
+    """Imports of one site code take turns, even before the site exists: two first imports
+    of a new site would otherwise both insert it and one would fail on the unique code. A
+    transaction-scoped advisory lock on PostgreSQL (released at commit or rollback); SQLite
+    serialises writers anyway."""
+    if connection.vendor != "postgresql":
+        return
+    key = int.from_bytes(
+        hashlib.blake2b(f"loopkeep.site:{code}".encode(), digest_size=8).digest(),
+        "big",
+        signed=True,
+    )
+    with connection.cursor() as cursor:
+        cursor.execute("SELECT pg_advisory_xact_lock(%s)", [key])
 
 
 def site_record_change(*, site_id: int) -> None:

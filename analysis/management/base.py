@@ -24,6 +24,7 @@ from analysis.sources import (
     require,
     split_targets,
 )
+from analysis.textout import terminal_safe
 
 EXIT_STATUS_HELP = (
     "Exit status: 0 {ok}; 3 {bad}; 2 for a usage or input error (an unknown site or {thing}, a "
@@ -108,11 +109,10 @@ class SiteBodyCommand(BaseCommand):
 
     def _print(self, bodies: list[dict[str, Any]], as_json: bool, *, single: bool) -> None:
         if as_json:
-            self.stdout.write(
-                json.dumps(bodies[0] if single else bodies, indent=2, ensure_ascii=False)
-            )
+            text = json.dumps(bodies[0] if single else bodies, indent=2, ensure_ascii=False)
         else:
-            self.stdout.write("\n\n".join(self.text(body) for body in bodies))
+            text = "\n\n".join(self.text(body) for body in bodies)
+        self.stdout.write(terminal_safe(text))
 
     def _exit(self, bodies: list[dict[str, Any]], errors: list[str]) -> None:
         reasons = [r for r in map(self.unsafe, bodies) if r]

@@ -45,6 +45,7 @@ INSTALLED_APPS = [
     "drf_spectacular",
     "drf_spectacular_sidecar",
     "simple_history",
+    "axes",
     "inventory",
     "analysis",
     "api",
@@ -62,7 +63,22 @@ MIDDLEWARE = [
     "django.contrib.messages.middleware.MessageMiddleware",
     "django.middleware.clickjacking.XFrameOptionsMiddleware",
     "simple_history.middleware.HistoryRequestMiddleware",
+    # Last, as django-axes asks: it answers a locked-out login.
+    "axes.middleware.AxesMiddleware",
 ]
+
+# Logins: django-axes first (it counts failures and locks a username from an address out after
+# AXES_FAILURE_LIMIT of them, for AXES_COOLOFF_TIME hours), then Django's password check, which
+# refuses the demo account unless DEBUG is on (config.accounts).
+AUTHENTICATION_BACKENDS = [
+    "axes.backends.AxesStandaloneBackend",
+    "config.accounts.DemoAwareBackend",
+]
+AXES_FAILURE_LIMIT = int(os.environ.get("LOGIN_FAILURE_LIMIT", "5"))
+AXES_COOLOFF_TIME = float(os.environ.get("LOGIN_LOCKOUT_HOURS", "0.25"))
+AXES_LOCKOUT_PARAMETERS = [["username", "ip_address"]]
+AXES_RESET_ON_SUCCESS = True
+AXES_VERBOSE = False  # no banner on every start (it would mix into the commands' output)
 
 ROOT_URLCONF = "config.urls"
 WSGI_APPLICATION = "config.wsgi.application"
@@ -174,6 +190,12 @@ CACHES = {
 
 # Largest request body the API reads (a site file of a large substation is a few MB).
 DATA_UPLOAD_MAX_MEMORY_SIZE = int(os.environ.get("API_MAX_BODY_BYTES", str(20 * 1024 * 1024)))
+
+# Largest site file read by import_site, the commands' --file and the API's sites/import: a few
+# MB above the largest real site (a generated 329-CT site is 0.6 MB as indented JSON).
+SITE_FILE_MAX_BYTES = int(os.environ.get("LOOPKEEP_SITE_FILE_MAX_BYTES", str(4 * 1024 * 1024)))
+# Errors a command prints for one site file at most (then the count of the rest).
+SITE_FILE_MAX_ERRORS_SHOWN = int(os.environ.get("LOOPKEEP_SITE_FILE_MAX_ERRORS_SHOWN", "100"))
 
 # Background jobs. No broker configured means the embedded default: run tasks in-process.
 CELERY_BROKER_URL = os.environ.get("CELERY_BROKER_URL", "")

@@ -1,17 +1,20 @@
-"""Production: no default secret, HTTPS-only cookies and HSTS. ``check --deploy`` passes."""
+"""Production: no default secret (a placeholder or short one refuses to start), HTTPS-only
+cookies and HSTS; the entry points refuse to serve while the demo account exists
+(``config.accounts``). ``check --deploy`` passes."""
 
 import os
 
 from django.core.exceptions import ImproperlyConfigured
 
 from config.logs import logging_config
+from config.secret_key import secret_key_problem
 from config.settings.base import *  # noqa: F403
 from config.settings.base import env_bool, env_list
 
 DEBUG = False
 SECRET_KEY = os.environ.get("SECRET_KEY", "")
-if not SECRET_KEY:
-    raise ImproperlyConfigured("SECRET_KEY must be set in production")
+if _problem := secret_key_problem(SECRET_KEY):
+    raise ImproperlyConfigured(_problem)
 ALLOWED_HOSTS = env_list("ALLOWED_HOSTS")
 CSRF_TRUSTED_ORIGINS = env_list("CSRF_TRUSTED_ORIGINS")
 

@@ -70,6 +70,34 @@ def _parse_at(text: str) -> dt.datetime:
     return value
 
 
+def _event_key(row: Row) -> tuple:
+    """What a recorded tap change says (its CT and time are the key it is found by)."""
+    return (tuple(row["from_tap"]), tuple(row["to_tap"]), row["changed_by"], row["reason"])
+
+
+def _note_latest(
+    latest: dict[int, tuple[dt.datetime, tuple]], ct_id: int, at: dt.datetime, to: Any
+) -> None:
+    if ct_id not in latest or at >= latest[ct_id][0]:
+        latest[ct_id] = (at, tuple(to))
+
+
+def _rewrite_error(where: str, stored: tuple, given: Row) -> str:
+    """A re-import that would change a recorded tap change: recorded history is kept as it
+    was written (record a new change instead)."""
+    labels = ("from", "to", "by", "reason")
+    fields = [
+        name for name, old, new in zip(labels, stored, _event_key(given), strict=True) if old != new
+    ]
+    first = fields[0]
+    old = stored[labels.index(first)]
+    shown = "[" + ", ".join(old) + "]" if isinstance(old, tuple) else repr(old)
+    return (
+        f"{where}/{first}: the tap change recorded at this time has {first} {shown}; recorded "
+        "history cannot be changed by an import (record a new change instead)"
+    )
+
+
 def _num(value: Any) -> float | None:
     return None if value is None else float(value)
 
@@ -394,36 +422,40 @@ class _SiteUpsert:
                     (t["name"], second) if t["tap_role"] == "first" else (first, t["name"])
                 )
         now = timezone.now()
-        seen = {
-            (c["ct_id"], c["changed_at"], tuple(c["from_tap"]), tuple(c["to_tap"]))
-            for c in self.stored(models.TapChange, ct__site_id=self.sid)
-        }
+        recorded: dict[tuple[int, dt.datetime], list[tuple]] = {}
+        # The tap each CT's latest event (stored or in the file) left in use.
+        latest: dict[int, tuple[dt.datetime, tuple]] = {}
+        for c in self.stored(models.TapChange, ct__site_id=self.sid):
+            recorded.setdefault((c["ct_id"], c["changed_at"]), []).append(_event_key(c))
+            _note_latest(latest, c["ct_id"], c["changed_at"], c["to_tap"])
         new: list[Row] = []
-        for c in self.doc.get("cts", []):
+        rewrites: list[str] = []
+        added: set[tuple] = set()
+        for ct_index, c in enumerate(self.doc.get("cts", [])):
             ct_id = self.cts[c["code"]]
             events = c.get("tap_changes", [])
-            last_is_new = False
-            for event in events:
+            for number, event in enumerate(events):
                 at = _parse_at(event["at"])
-                k = (ct_id, at, tuple(event["from"]), tuple(event["to"]))
-                last_is_new = k not in seen
-                if k not in seen:
-                    seen.add(k)
-                    new.append(
-                        {
-                            "ct_id": ct_id,
-                            "from_tap": list(event["from"]),
-                            "to_tap": list(event["to"]),
-                            "changed_at": at,
-                            "changed_by": event.get("by", ""),
-                            "reason": event.get("reason", ""),
-                        }
-                    )
+                row = {
+                    "from_tap": list(event["from"]),
+                    "to_tap": list(event["to"]),
+                    "changed_by": event.get("by", ""),
+                    "reason": event.get("reason", ""),
+                }
+                stored = recorded.get((ct_id, at), [])
+                if _event_key(row) in stored or (ct_id, at, _event_key(row)) in added:
+                    continue
+                if stored:
+                    where = f"/cts/{ct_index}/tap_changes/{number}"
+                    rewrites.append(_rewrite_error(where, stored[0], row))
+                    continue
+                added.add((ct_id, at, _event_key(row)))
+                _note_latest(latest, ct_id, at, row["to_tap"])
+                new.append({"ct_id": ct_id, "changed_at": at, **row})
             in_use = tuple(c["in_use"])
-            previous = old_tap.get(ct_id) or (tuple(events[-1]["to"]) if events else None)
-            # A new last event that ends at the tap in use is that change (a tap-change log).
-            explained = last_is_new and tuple(events[-1]["to"]) == in_use
-            if previous and tuple(previous) != in_use and not explained:
+            # the tap before now: where the latest recorded change left it, else the stored one
+            previous = latest[ct_id][1] if ct_id in latest else old_tap.get(ct_id)
+            if previous and tuple(previous) != in_use:
                 new.append(
                     {
                         "ct_id": ct_id,
@@ -437,6 +469,8 @@ class _SiteUpsert:
                 self.result.tap_changes.append(
                     f"{c['code']}: {'-'.join(previous)} -> {'-'.join(in_use)}"
                 )
+        if rewrites:
+            raise SiteImportError(rewrites)
         if new:
             self.sync.new.insert(models.TapChange, new)
             self.result.created["tap changes"] += len(new)

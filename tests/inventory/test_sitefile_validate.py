@@ -278,7 +278,10 @@ BAD = [
     (
         "terminal-without-owner",
         _set("grounds/0", "TB-101"),
-        ["/grounds/0: must be a terminal 'OWNER:NAME' such as 'TB-101:4', got 'TB-101'"],
+        [
+            "/grounds/0: must be a terminal 'OWNER:NAME' such as 'TB-101:4' (printable, no "
+            "spaces; the owner up to 60 characters, the name up to 30), got 'TB-101'"
+        ],
     ),
     (
         "in-use-one-terminal",
@@ -593,7 +596,8 @@ BAD = [
         _both(
             _set("cts/0/tap_changes/0/at", "5 March 2024"),
             _append(
-                "cts/0/tap_changes", {"from": ["X1", "X4"], "to": ["X1", "X5"], "at": "2020-01-01"}
+                "cts/0/tap_changes",
+                {"from": ["X1", "X4"], "to": ["X1", "X5"], "at": "2020-01-01T00:00Z"},
             ),
             _append(
                 "cts/0/tap_changes",
@@ -601,8 +605,8 @@ BAD = [
             ),
         ),
         [
-            "/cts/0/tap_changes/0/at: must be a date and time like '2024-03-05T10:00:00Z', got "
-            "'5 March 2024'",
+            "/cts/0/tap_changes/0/at: must be a date and time with its zone like "
+            "'2024-03-05T10:00:00Z', got '5 March 2024'",
             "/cts/0/tap_changes/2/at: earlier than change 1; list tap changes oldest first",
         ],
     ),

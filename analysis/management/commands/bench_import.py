@@ -35,12 +35,12 @@ from inventory.models import Site
 def _import_files(paths: list[str]) -> tuple[int, int, int]:
     """Import the site files at ``paths`` in this process; (sites, CTs, peak RSS in KiB)."""
     from inventory.services import site_import
-    from inventory.sitefile.validate import load_site_file
+    from inventory.sitefile.files import read_site_file
 
     cts = 0
     with services.recompute_deferred():
         for path in paths:
-            doc = load_site_file(path)
+            doc = read_site_file(path)
             site_import(doc=doc)
             cts += len(doc.get("cts", []))
     connections.close_all()

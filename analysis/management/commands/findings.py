@@ -11,6 +11,7 @@ from django.core.management.base import BaseCommand
 from analysis.engine.findings import SEVERITY_ORDER
 from analysis.selectors import findings_list
 from analysis.sources import unknown
+from analysis.textout import terminal_safe
 from inventory.models import Site
 
 
@@ -34,7 +35,7 @@ class Command(BaseCommand):
             raise unknown("site", site, Site.objects.values_list("code", flat=True))
         rows = findings_list(site=site, severity=severity, or_worse=True)
         if json:
-            self.stdout.write(_dumps(rows))
+            self.stdout.write(terminal_safe(_dumps(rows)))
             return
         for row in rows:
             where = " ".join(
@@ -44,8 +45,10 @@ class Command(BaseCommand):
             )
             stale = " [STALE: the record changed since]" if row["stale"] else ""
             self.stdout.write(
-                f"{row['site']} {row['severity']:<8} {row['code']:<22} {where}{stale}\n"
-                f"    {row['message']}"
+                terminal_safe(
+                    f"{row['site']} {row['severity']:<8} {row['code']:<22} {where}{stale}\n"
+                    f"    {row['message']}"
+                )
             )
         self.stdout.write(f"{len(rows)} finding(s)")
 

@@ -1,0 +1,101 @@
+"""Sense checks of the procedures: every step against the one rule of what a step may name
+(``siterules.procedure_refs``), over the names the record declares."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from inventory.sitefile.validate.sense.base import SenseBase, is_pair, items_of
+from siterules.procedure_refs import RecordNames, procedure_problems
+
+
+class ProcedureChecks(SenseBase):
+    def check_procedures(self) -> None:
+        """Every procedure against the one rule of what a step may name
+        (``siterules.procedure_refs``, which the engine applies too)."""
+        known = record_names(self.doc)
+        for index, procedure in items_of(self.doc, "procedures"):
+            here = ("procedures", index)
+            devices = procedure.get("devices")
+            steps = procedure.get("steps")
+            for problem in procedure_problems(
+                known,
+                steps if isinstance(steps, list) else [],
+                devices if isinstance(devices, list) else [],
+                prefix=here,
+                check_shape=False,
+            ):
+                self.add(problem.message, *here, *problem.at)
+
+
+def record_names(doc: dict) -> RecordNames:
+    """The names a procedure of ``doc`` may refer to: every terminal an element of the record
+    touches (as the engine's netlist indexes them), switches with their positions, devices,
+    equipment, and the ends of every wire and link."""
+    terminals: set[str] = set()
+
+    def term(value: Any) -> None:
+        if isinstance(value, str):
+            terminals.add(value)
+
+    def ends(pair: Any) -> frozenset[str] | None:
+        if is_pair(pair) and all(isinstance(t, str) for t in pair) and pair[0] != pair[1]:
+            return frozenset(pair)
+        return None
+
+    for _, ct in items_of(doc, "cts"):
+        code, positions = ct.get("code"), ct.get("terminals")
+        if isinstance(code, str) and isinstance(positions, dict):
+            terminals.update(f"{code}:{name}" for name in positions)
+    for _, device in items_of(doc, "devices"):
+        for key, fields in (("inputs", ("from", "to")), ("outputs", ("terminal", "target"))):
+            items = device.get(key)
+            for item in items if isinstance(items, list) else ():
+                if isinstance(item, dict):
+                    for field in fields:
+                        term(item.get(field))
+    wires: set[frozenset[str]] = set()
+    for _, wire in items_of(doc, "wires"):
+        term(wire.get("from"))
+        term(wire.get("to"))
+        pair = ends([wire.get("from"), wire.get("to")])
+        if pair:
+            wires.add(pair)
+    links: set[frozenset[str]] = set()
+    raw_links = doc.get("links")
+    for link in raw_links if isinstance(raw_links, list) else ():
+        if isinstance(link, list):
+            for value in link:
+                term(value)
+            pair = ends(link)
+            if pair:
+                links.add(pair)
+    grounds = doc.get("grounds")
+    for ground in grounds if isinstance(grounds, list) else ():
+        term(ground)
+    switches: dict[str, tuple[str, ...]] = {}
+    for _, switch in items_of(doc, "switches"):
+        code, positions = switch.get("code"), switch.get("positions")
+        if isinstance(code, str) and code not in switches:
+            switches[code] = tuple(
+                p for p in (positions if isinstance(positions, list) else ()) if isinstance(p, str)
+            )
+        contacts = switch.get("contacts")
+        for contact in contacts if isinstance(contacts, list) else ():
+            between = contact.get("between") if isinstance(contact, dict) else None
+            for value in between if isinstance(between, list) else ():
+                term(value)
+    codes = {
+        section: frozenset(
+            item["code"] for _, item in items_of(doc, section) if isinstance(item.get("code"), str)
+        )
+        for section in ("devices", "equipment")
+    }
+    return RecordNames(
+        terminals=frozenset(terminals),
+        switches=switches,
+        devices=codes["devices"],
+        equipment=codes["equipment"],
+        wires=frozenset(wires),
+        links=frozenset(links),
+    )
