@@ -640,15 +640,15 @@ def region(nl: Netlist, mask: np.ndarray) -> Netlist:
         return i
 
     cts: dict[str, CT] = {}
-    for c in nl.ct_list:
-        if keep[c.first]:
-            tidx = {n: term(t) for n, t in c.terminals.items()}
-            cts[c.code] = replace(
-                c,
+    for ct in nl.ct_list:
+        if keep[ct.first]:
+            tidx = {n: term(t) for n, t in ct.terminals.items()}
+            cts[ct.code] = replace(
+                ct,
                 index=len(cts),
                 terminals=tidx,
-                first=tidx[c.in_use[0]],
-                second=tidx[c.in_use[1]],
+                first=tidx[ct.in_use[0]],
+                second=tidx[ct.in_use[1]],
             )
 
     devices: dict[str, Device] = {}
@@ -671,11 +671,11 @@ def region(nl: Netlist, mask: np.ndarray) -> Netlist:
         if dins or douts:
             devices[d.code] = replace(d, inputs=tuple(dins), outputs=tuple(douts))
 
-    wires = []
+    wires: list[Wire] = []
     for w in nl.wires:
         if keep[w.a]:
             wires.append(Wire(len(wires), term(w.a), term(w.b), w.r_ohm, w.ends))
-    links = []
+    links: list[Link] = []
     for k in nl.links:
         if keep[k.a]:
             links.append(Link(len(links), term(k.a), term(k.b), k.ends))
@@ -684,10 +684,10 @@ def region(nl: Netlist, mask: np.ndarray) -> Netlist:
     switches: dict[str, Switch] = {}
     n_contacts = 0
     for s in nl.switches.values():
-        contacts = []
-        for c in s.contacts:
-            if keep[c.a]:
-                contacts.append(Contact(n_contacts, term(c.a), term(c.b), c.closed_in))
+        contacts: list[Contact] = []
+        for k in s.contacts:
+            if keep[k.a]:
+                contacts.append(Contact(n_contacts, term(k.a), term(k.b), k.closed_in))
                 n_contacts += 1
         if contacts:
             switches[s.code] = Switch(
