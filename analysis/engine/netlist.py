@@ -685,9 +685,9 @@ def region(nl: Netlist, mask: np.ndarray) -> Netlist:
     n_contacts = 0
     for s in nl.switches.values():
         contacts: list[Contact] = []
-        for k in s.contacts:
-            if keep[k.a]:
-                contacts.append(Contact(n_contacts, term(k.a), term(k.b), k.closed_in))
+        for con in s.contacts:
+            if keep[con.a]:
+                contacts.append(Contact(n_contacts, term(con.a), term(con.b), con.closed_in))
                 n_contacts += 1
         if contacts:
             switches[s.code] = Switch(
