@@ -40,7 +40,7 @@ migrations-check: venv
 	$(BIN)/python manage.py makemigrations --check --dry-run
 
 bench: venv
-	$(BIN)/python -m analysis.engine.bench
+	$(BIN)/python -m analysis.bench.engine
 
 clean:
 	rm -rf $(VENV) var .pytest_cache .ruff_cache .mypy_cache .import_linter_cache .hypothesis

@@ -7,10 +7,12 @@ and the fleet recompute read through it, and the export (``site_documents``) ser
 
 from __future__ import annotations
 
+import json
 from collections import defaultdict
 from collections.abc import Iterable
 from typing import Any
 
+from django.db import connection
 from django.db.models import Model, OuterRef, Prefetch, QuerySet, Subquery
 from django.db.models.functions import Abs
 
@@ -35,6 +37,46 @@ _SECTIONS = (
 )
 
 
+def _rows(qs: QuerySet) -> list[tuple[Any, ...]]:
+    """The rows of a ``values_list`` query as the database driver gives them: no per-value
+    converters (JSON columns come back as their text, booleans as the driver's; the caller
+    decodes what it reads). The record read's rows are plain numbers, strings and ids, and
+    the converters cost more than the query."""
+    sql, params = qs.query.sql_with_params()
+    with connection.cursor() as cursor:
+        cursor.execute(sql, params)
+        return cursor.fetchall()
+
+
+class _Decoded:
+    """JSON column text -> the value ``convert`` makes of it, decoded once per distinct text
+    (a switch contact's ``["closed"]``, a relay's functions, a step repeat across the fleet).
+    The values are immutable (tuples, typed operations), so sharing them is safe."""
+
+    __slots__ = ("_convert", "_memo")
+
+    def __init__(self, convert: Any) -> None:
+        self._memo: dict[Any, Any] = {}
+        self._convert = convert
+
+    def __call__(self, raw: Any) -> Any:
+        if raw is None:
+            return None
+        hit = self._memo.get(raw)
+        if hit is None:
+            value = json.loads(raw) if isinstance(raw, (str, bytes)) else raw
+            hit = self._memo[raw] = self._convert(value)
+        return hit
+
+
+def _tuple(value: Any) -> tuple[Any, ...]:
+    return tuple(value or ())
+
+
+def _points(value: Any) -> tuple[tuple[float, float], ...]:
+    return tuple((float(a), float(v)) for a, v in value)
+
+
 def site_by_code(code: str) -> models.Site:
     return models.Site.objects.get(code=code)
 
@@ -54,9 +96,11 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
 
     labels: dict[int, str] = {}
     ct_terminals: dict[int, list[tuple[float, str, str]]] = defaultdict(list)
-    for tid, owner, name, ct_id, position_a, tap_role in models.Terminal.objects.filter(
-        site_id__in=ids
-    ).values_list("id", "owner", "name", "ct_id", "position_a", "tap_role"):
+    for tid, owner, name, ct_id, position_a, tap_role in _rows(
+        models.Terminal.objects.filter(site_id__in=ids).values_list(
+            "id", "owner", "name", "ct_id", "position_a", "tap_role"
+        )
+    ):
         labels[tid] = f"{owner}:{name}"
         if ct_id is not None:
             ct_terminals[ct_id].append((position_a, name, tap_role))
@@ -101,7 +145,8 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
             rec.TapChange(tuple(from_tap), tuple(to_tap), changed_at, by, reason)
         )
 
-    for row in (
+    points = _Decoded(_points)
+    for row in _rows(
         models.CurrentTransformer.objects.filter(site_id__in=ids)
         .order_by("code")
         .values_list(
@@ -139,18 +184,14 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
                 knee_v=knee_v,
                 winding_ohm=winding_ohm,
                 rating_factor=rating_factor,
-                excitation=(
-                    None
-                    if excitation is None
-                    else tuple((float(a), float(v)) for a, v in excitation)
-                ),
+                excitation=points(excitation),
                 nameplate=nameplate,
                 tap_changes=tuple(tap_changes.get(ct_id, ())),
             )
         )
 
     inputs: dict[int, list[rec.DeviceInput]] = defaultdict(list)
-    for device_id, name, a, b, rated_a, burden_va, pf, r_ohm, x_ohm in (
+    for device_id, name, a, b, rated_a, burden_va, pf, r_ohm, x_ohm in _rows(
         models.DeviceInput.objects.filter(device__site_id__in=ids)
         .order_by("id")
         .values_list(
@@ -177,13 +218,14 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
             )
         )
     outputs: dict[int, list[rec.DeviceOutput]] = defaultdict(list)
-    for device_id, name, terminal, target in (
+    for device_id, name, terminal, target in _rows(
         models.DeviceOutput.objects.filter(device__site_id__in=ids)
         .order_by("id")
         .values_list("device_id", "name", "terminal_id", "target_id")
     ):
         outputs[device_id].append(rec.DeviceOutput(name, labels[terminal], labels[target]))
-    for did, site_id, code, kind, functions, ratio_setting in (
+    tuple_of = _Decoded(_tuple)
+    for did, site_id, code, kind, functions, ratio_setting in _rows(
         models.Device.objects.filter(site_id__in=ids)
         .order_by("code")
         .values_list("id", "site_id", "code", "kind", "functions", "ratio_setting")
@@ -192,7 +234,7 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
             rec.Device(
                 code=code,
                 kind=kind,
-                functions=tuple(functions or ()),
+                functions=tuple_of(functions) or (),
                 ratio_setting=ratio_setting or None,
                 inputs=tuple(inputs.get(did, ())),
                 outputs=tuple(outputs.get(did, ())),
@@ -200,7 +242,7 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
         )
 
     wire = rec.Wire
-    for site_id, a, b, size, material, length_m, length_ft, r_ohm in (
+    for site_id, a, b, size, material, length_m, length_ft, r_ohm in _rows(
         models.Wire.objects.filter(site_id__in=ids)
         .order_by("id")
         .values_list(
@@ -218,13 +260,13 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
             wire(labels[a], labels[b], size, material, length_m, length_ft, r_ohm)
         )
 
-    for site_id, a, b in (
+    for site_id, a, b in _rows(
         models.Link.objects.filter(site_id__in=ids)
         .order_by("id")
         .values_list("site_id", "a_id", "b_id")
     ):
         sections[site_id]["links"].append(rec.Link(labels[a], labels[b]))
-    for site_id, terminal in (
+    for site_id, terminal in _rows(
         models.Ground.objects.filter(site_id__in=ids)
         .order_by("id")
         .values_list("site_id", "terminal_id")
@@ -232,20 +274,20 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
         sections[site_id]["grounds"].append(labels[terminal])
 
     positions: dict[int, list[tuple[str, bool]]] = defaultdict(list)
-    for switch_id, name, is_normal in (
+    for switch_id, name, is_normal in _rows(
         models.SwitchPosition.objects.filter(switch__site_id__in=ids)
         .order_by("switch_id", "order")
         .values_list("switch_id", "name", "is_normal")
     ):
-        positions[switch_id].append((name, is_normal))
+        positions[switch_id].append((name, bool(is_normal)))
     contacts: dict[int, list[rec.Contact]] = defaultdict(list)
-    for switch_id, a, b, closed_in in (
+    for switch_id, a, b, closed_in in _rows(
         models.SwitchContact.objects.filter(switch__site_id__in=ids)
         .order_by("id")
         .values_list("switch_id", "a_id", "b_id", "closed_in")
     ):
-        contacts[switch_id].append(rec.Contact((labels[a], labels[b]), tuple(closed_in)))
-    for sw_id, site_id, code, kind, transition in (
+        contacts[switch_id].append(rec.Contact((labels[a], labels[b]), tuple_of(closed_in)))
+    for sw_id, site_id, code, kind, transition in _rows(
         models.Switch.objects.filter(site_id__in=ids)
         .order_by("code")
         .values_list("id", "site_id", "code", "kind", "transition")
@@ -263,16 +305,17 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
         )
 
     steps: dict[int, list[rec.Operation]] = defaultdict(list)
-    for procedure_id, order, op in (
+    operation = _Decoded(rec.operation_from_json)
+    for procedure_id, order, op in _rows(
         models.ProcedureStep.objects.filter(procedure__site_id__in=ids)
         .order_by("procedure_id", "order")
         .values_list("procedure_id", "order", "op")
     ):
         try:
-            steps[procedure_id].append(rec.operation_from_json(op))
+            steps[procedure_id].append(operation(op))
         except rec.OperationError as err:
             raise rec.RecordError(f"procedure step {order} (id {procedure_id}): {err}") from err
-    for pid, site_id, code, title, author, devices in (
+    for pid, site_id, code, title, author, devices in _rows(
         models.Procedure.objects.filter(site_id__in=ids)
         .order_by("code")
         .values_list("id", "site_id", "code", "title", "author", "devices")
@@ -283,7 +326,7 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
                 title=title,
                 steps=tuple(steps.get(pid, ())),
                 author=author,
-                devices=tuple(devices or ()),
+                devices=tuple_of(devices) or (),
             )
         )
 

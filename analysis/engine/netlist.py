@@ -18,7 +18,7 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 from typing import Any
 
@@ -612,4 +612,109 @@ def build_netlist(source: rec.SiteRecord | Mapping[str, Any]) -> Netlist:
         terminal_blocks=blocks,
         doc=doc,
         record=record,
+    )
+
+
+def region(nl: Netlist, mask: np.ndarray) -> Netlist:
+    """The netlist of the terminals in ``mask``: a view over ``nl``'s elements, not a second
+    build from the record. An element is kept as ``build_netlist`` of the record cut to the
+    region would keep it (a CT by its first terminal in use; a device input, wire, link and
+    contact by its first terminal; an output by its own terminal; a device or switch with any
+    element kept), and terminals and elements are numbered in the order that build would give
+    them, so every solve over the region is the same computation, to the last bit. Values
+    (wire resistances, input impedances, CT loads) are the site's own; the region keeps the
+    site's record, equipment and procedures."""
+    keep = mask.tolist()
+    terminals: list[str] = []
+    index: dict[str, int] = {}
+    new: dict[int, int] = {}
+    names = nl.terminals
+
+    def term(t: int) -> int:
+        i = new.get(t)
+        if i is None:
+            i = new[t] = len(terminals)
+            name = names[t]
+            index[name] = i
+            terminals.append(name)
+        return i
+
+    cts: dict[str, CT] = {}
+    for ct in nl.ct_list:
+        if keep[ct.first]:
+            tidx = {n: term(t) for n, t in ct.terminals.items()}
+            cts[ct.code] = replace(
+                ct,
+                index=len(cts),
+                terminals=tidx,
+                first=tidx[ct.in_use[0]],
+                second=tidx[ct.in_use[1]],
+            )
+
+    devices: dict[str, Device] = {}
+    inputs: list[DeviceInput] = []
+    outputs: list[DeviceOutput] = []
+    for d in nl.devices.values():
+        dins = []
+        for i in d.inputs:
+            if keep[i.a]:
+                a, b = term(i.a), term(i.b)
+                di = DeviceInput(len(inputs), i.device, i.name, a, b, i.z_ohm, i.rated_a)
+                inputs.append(di)
+                dins.append(di)
+        douts = []
+        for o in d.outputs:
+            if keep[o.terminal]:
+                do = DeviceOutput(len(outputs), o.device, o.name, term(o.terminal), term(o.target))
+                outputs.append(do)
+                douts.append(do)
+        if dins or douts:
+            devices[d.code] = replace(d, inputs=tuple(dins), outputs=tuple(douts))
+
+    wires: list[Wire] = []
+    for w in nl.wires:
+        if keep[w.a]:
+            wires.append(Wire(len(wires), term(w.a), term(w.b), w.r_ohm, w.ends))
+    links: list[Link] = []
+    for k in nl.links:
+        if keep[k.a]:
+            links.append(Link(len(links), term(k.a), term(k.b), k.ends))
+    grounds = tuple(term(g) for g in nl.grounds if keep[g])
+
+    switches: dict[str, Switch] = {}
+    n_contacts = 0
+    for s in nl.switches.values():
+        contacts: list[Contact] = []
+        for con in s.contacts:
+            if keep[con.a]:
+                contacts.append(Contact(n_contacts, term(con.a), term(con.b), con.closed_in))
+                n_contacts += 1
+        if contacts:
+            switches[s.code] = Switch(
+                code=s.code,
+                kind=s.kind,
+                positions=s.positions,
+                normal=s.normal,
+                transition=s.transition,
+                contacts=tuple(contacts),
+            )
+
+    return Netlist(
+        site_code=nl.site_code,
+        design_temp_c=nl.design_temp_c,
+        terminals=terminals,
+        index=index,
+        links=tuple(links),
+        wires=tuple(wires),
+        switches=switches,
+        devices=devices,
+        inputs=tuple(inputs),
+        outputs=tuple(outputs),
+        cts=cts,
+        equipment=nl.equipment,
+        grounds=grounds,
+        procedures=nl.procedures,
+        terminal_blocks=nl.terminal_blocks,
+        doc=None,
+        record=nl.record,
     )

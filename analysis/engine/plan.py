@@ -55,14 +55,13 @@ from analysis.engine.state import (
     ProcedureError,
     State,
     StateEval,
-    _contact_row,
-    _link_row,
     apply_op,
     check_bypassed,
     check_trip,
     evaluate_states,
     normal_state,
 )
+from analysis.engine.state.solve import _contact_row, _link_row
 from analysis.engine.topology import components
 
 MAX_STATES = 20_000

@@ -14,7 +14,7 @@ devices found there.
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -22,7 +22,7 @@ import numpy as np
 from analysis.engine import findings as fc
 from analysis.engine.cautions import cautions
 from analysis.engine.findings import Finding
-from analysis.engine.netlist import Netlist, build_netlist
+from analysis.engine.netlist import Netlist, region
 from analysis.engine.readings import readings_of
 from analysis.engine.state import (
     ProcedureError,
@@ -185,42 +185,15 @@ def region_mask(nl: Netlist, seeds: set[int], jumps: list[tuple[int, int]]) -> n
 
 
 def subnet(nl: Netlist, mask: np.ndarray) -> Netlist:
-    """The netlist of the terminals in ``mask`` (elements outside it left out)."""
-    if mask.all() or nl.record is None:
+    """The netlist of the terminals in ``mask`` (elements outside it left out): a view over the
+    site's netlist (``netlist.region``), cached per mask."""
+    if mask.all():
         return nl
     key = ("subnet", mask.tobytes())
     hit = nl.cache.get(key)
-    if hit is not None:
-        return hit
-    record = nl.record
-
-    def inside(name: Any) -> bool:
-        i = nl.index.get(name) if isinstance(name, str) else None
-        return i is not None and bool(mask[i])
-
-    devices = []
-    for d in record.devices:
-        ins = tuple(i for i in d.inputs if inside(i.from_terminal))
-        outs = tuple(o for o in d.outputs if inside(o.terminal))
-        if ins or outs:
-            devices.append(replace(d, inputs=ins, outputs=outs))
-    switches = []
-    for s in record.switches:
-        contacts = tuple(c for c in s.contacts if inside(c.between[0]))
-        if contacts:
-            switches.append(replace(s, contacts=contacts))
-    sub = replace(
-        record,
-        cts=tuple(c for c in record.cts if mask[nl.cts[c.code].first]),
-        devices=tuple(devices),
-        wires=tuple(w for w in record.wires if inside(w.from_terminal)),
-        links=tuple(k for k in record.links if inside(k.a)),
-        grounds=tuple(g for g in record.grounds if inside(g)),
-        switches=tuple(switches),
-    )
-    out = build_netlist(sub)
-    nl.cache[key] = out
-    return out
+    if hit is None:
+        hit = nl.cache[key] = region(nl, mask)
+    return hit
 
 
 # ---------------------------------------------------------------------------------------------

@@ -8,6 +8,7 @@ converted): :func:`evaluate_ct` (one CT, both fault cases) and :func:`site_stati
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field, replace
@@ -259,6 +260,18 @@ def _float(value: Any) -> float | None:
     return number if math.isfinite(number) else None
 
 
+@functools.lru_cache(maxsize=4096)
+def _accuracy(
+    text: str, rated_burden_va: float | None, knee_v: float | None
+) -> AccuracyClass | str:
+    """The class parsed once per distinct (class, rated burden, knee) — the CTs of a set share
+    them; the error message where it is not a class."""
+    try:
+        return parse_accuracy(text, rated_burden_va=rated_burden_va, knee_v=knee_v)
+    except ValueError as err:
+        return str(err)
+
+
 def _missing(ct: str, what: str, **numbers: Any) -> Finding:
     return Finding(code=fc.MISSING_DATA, ct=ct, message=f"{ct}: {what}", numbers=numbers)
 
@@ -284,14 +297,11 @@ def evaluate_ct(
     if not text:
         out.append(_missing(ct_code, "no accuracy class: accuracy and saturation checks not run"))
     else:
-        try:
-            accuracy = parse_accuracy(
-                text,
-                rated_burden_va=_float(ct.rated_burden_va),
-                knee_v=_float(ct.knee_v),
-            )
-        except ValueError as err:
-            out.append(_missing(ct_code, f"accuracy class not understood: {err}"))
+        parsed = _accuracy(text, _float(ct.rated_burden_va), _float(ct.knee_v))
+        if isinstance(parsed, AccuracyClass):
+            accuracy = parsed
+        else:
+            out.append(_missing(ct_code, f"accuracy class not understood: {parsed}"))
     if accuracy is not None and accuracy.standard == IEC_PX and accuracy.knee_v is None:
         out.append(_missing(ct_code, f"class {accuracy.text} without knee_v"))
     if (

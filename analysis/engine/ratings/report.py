@@ -5,6 +5,7 @@ The site is a ``record.SiteRecord``; a ``loopkeep.site/1`` dict is converted
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
@@ -40,8 +41,17 @@ def _curve_at_tap(ct: rec.CT, rating: CTRating) -> ExcitationCurve | None:
     points = ct.excitation
     if not points or rating.tap is None:
         return None
+    return _scaled_curve(points, rating.tap.turns_fraction)
+
+
+@functools.lru_cache(maxsize=4096)
+def _scaled_curve(
+    points: tuple[tuple[float, float], ...], turns_fraction: float
+) -> ExcitationCurve | None:
+    """The curve at the tap, once per distinct curve and tap (the CTs of a set share them);
+    None where the points are no curve."""
     try:
-        return scale_to_tap(excitation_curve(points), rating.tap.turns_fraction)
+        return scale_to_tap(excitation_curve(points), turns_fraction)
     except ValueError:
         return None
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import functools
 from collections.abc import Mapping
 from typing import Any
 
@@ -17,7 +18,15 @@ def record_tap(ct: rec.CT) -> Tap:
         raise ValueError(f"CT {ct.code!r} has no terminal positions")
     if not ct.in_use:
         raise ValueError(f"CT {ct.code!r} has no terminals in use")
-    return tap_of(dict(ct.terminals), ct.in_use, ct.secondary_a)
+    return _tap(ct.terminals, ct.in_use, ct.secondary_a)
+
+
+@functools.lru_cache(maxsize=8192)
+def _tap(
+    terminals: tuple[tuple[str, float], ...], in_use: tuple[str, ...], secondary_a: float
+) -> Tap:
+    """``tap_of`` once per distinct winding and pair (the CTs of a set share them)."""
+    return tap_of(dict(terminals), in_use, secondary_a)
 
 
 class SiteIndex:

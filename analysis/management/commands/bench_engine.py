@@ -10,9 +10,9 @@ class Command(BaseCommand):
     help = "Benchmark the circuit engine in memory and print the figures."
 
     def add_arguments(self, parser) -> None:
-        parser.add_argument("args", nargs="*", help="passed to analysis.engine.bench")
+        parser.add_argument("args", nargs="*", help="passed to analysis.bench.engine")
 
     def handle(self, *args: str, **options) -> None:
-        from analysis.engine import bench
+        from analysis.bench import engine as bench
 
         bench.main(list(args))

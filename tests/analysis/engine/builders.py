@@ -1,4 +1,5 @@
-"""Site dicts for the engine tests, built in code (format ``loopkeep.site/1``).
+"""Site dicts for the engine tests, built in code (format ``loopkeep.site/1``) with the shared
+document builder (``fixtures.documents``).
 
 ``SiteBuilder`` adds elements one by one; ``wye_panel`` and ``delta_panel`` build the usual
 three-phase relay panels (CT set, leads, test switch, optional draw-out case and trip pole).
@@ -8,36 +9,26 @@ from __future__ import annotations
 
 from typing import Any
 
+from fixtures.documents import DocumentBuilder
 
-class SiteBuilder:
-    """Accumulates a site dict; every method returns ``self`` where that reads well."""
+
+class SiteBuilder(DocumentBuilder):
+    """``fixtures.documents.DocumentBuilder`` with the engine tests' defaults (a C400 CT of
+    0.3 Ω on X1-X2 at 400 A, 5 A inputs given as complex ohms); every method returns ``self``
+    so that calls chain."""
 
     def __init__(self, code: str = "TST", design_temp_c: float = 75.0) -> None:
-        self.doc: dict[str, Any] = {
-            "format": "loopkeep.site/1",
-            "site": {"code": code, "name": f"Test site {code}", "design_temp_c": design_temp_c},
-            "buses": [],
-            "equipment": [],
-            "cts": [],
-            "devices": [],
-            "wires": [],
-            "links": [],
-            "grounds": [],
-            "switches": [],
-            "procedures": [],
-            "terminal_blocks": [],
-        }
+        super().__init__(
+            {"code": code, "name": f"Test site {code}", "design_temp_c": design_temp_c}
+        )
 
-    def equipment(
+    def equipment(  # type: ignore[override]
         self, code: str, *, in_service: bool = True, max_load_a: float | None = None
     ) -> SiteBuilder:
-        e: dict[str, Any] = {"code": code, "kind": "breaker", "in_service": in_service}
-        if max_load_a is not None:
-            e["max_load_a"] = max_load_a
-        self.doc["equipment"].append(e)
+        super().equipment(code, in_service=in_service, max_load_a=max_load_a)
         return self
 
-    def ct(
+    def ct(  # type: ignore[override]
         self,
         code: str,
         *,
@@ -48,68 +39,54 @@ class SiteBuilder:
         in_use: tuple[str, str] = ("X1", "X2"),
         secondary_a: float = 5,
     ) -> SiteBuilder:
-        c: dict[str, Any] = {
-            "code": code,
-            "phase": phase,
-            "secondary_a": secondary_a,
-            "terminals": terminals or {"X1": 0, "X2": 400},
-            "in_use": list(in_use),
-            "accuracy": "C400",
-            "winding_ohm": 0.3,
-        }
-        if equipment:
-            c["equipment"] = equipment
-        if set_name:
-            c["set"] = set_name
-        self.doc["cts"].append(c)
+        super().ct(
+            code,
+            terminals=terminals or {"X1": 0, "X2": 400},
+            in_use=in_use,
+            secondary_a=secondary_a,
+            phase=phase,
+            accuracy="C400",
+            winding_ohm=0.3,
+            equipment=equipment or None,
+            set=set_name or None,
+        )
         return self
 
-    def device(
+    def device(  # type: ignore[override]
         self,
         code: str,
         *,
         kind: str = "relay",
         functions: tuple[str, ...] = ("51",),
         inputs: list[tuple[str, str, str, complex]] = (),  # type: ignore[assignment]
-        outputs: list[tuple[str, str, str]] = (),
-    ) -> SiteBuilder:  # type: ignore[assignment]
-        self.doc["devices"].append(
-            {
-                "code": code,
-                "kind": kind,
-                "functions": list(functions),
-                "inputs": [
-                    {
-                        "name": n,
-                        "from": a,
-                        "to": b,
-                        "rated_a": 5,
-                        "burden_ohm": [complex(z).real, complex(z).imag],
-                    }
-                    for n, a, b, z in inputs
-                ],
-                "outputs": [{"name": n, "terminal": t, "target": g} for n, t, g in outputs],
-            }
+        outputs: list[tuple[str, str, str]] = (),  # type: ignore[assignment]
+    ) -> SiteBuilder:
+        super().device(
+            code,
+            kind=kind,
+            functions=functions,
+            inputs=[self.device_input(n, a, b, burden_ohm=z) for n, a, b, z in inputs],
+            outputs=outputs,
         )
         return self
 
-    def wire(self, a: str, b: str, r_ohm: float) -> SiteBuilder:
-        self.doc["wires"].append({"from": a, "to": b, "r_ohm": r_ohm})
+    def wire(self, a: str, b: str, r_ohm: float) -> SiteBuilder:  # type: ignore[override]
+        super().wire(a, b, r_ohm=r_ohm)
         return self
 
-    def link(self, a: str, b: str) -> SiteBuilder:
-        self.doc["links"].append([a, b])
+    def link(self, a: str, b: str) -> SiteBuilder:  # type: ignore[override]
+        super().link(a, b)
         return self
 
-    def ground(self, t: str) -> SiteBuilder:
-        self.doc["grounds"].append(t)
+    def ground(self, t: str) -> SiteBuilder:  # type: ignore[override]
+        super().ground(t)
         return self
 
-    def block(self, code: str) -> SiteBuilder:
-        self.doc["terminal_blocks"].append({"code": code})
+    def block(self, code: str) -> SiteBuilder:  # type: ignore[override]
+        super().block(code)
         return self
 
-    def switch(
+    def switch(  # type: ignore[override]
         self,
         code: str,
         contacts: list[tuple[str, str, tuple[str, ...]]],
@@ -119,19 +96,12 @@ class SiteBuilder:
         normal: str = "closed",
         transition: str = "make_before_break",
     ) -> SiteBuilder:
-        self.doc["switches"].append(
-            {
-                "code": code,
-                "kind": kind,
-                "positions": list(positions),
-                "normal": normal,
-                "transition": transition,
-                "contacts": [{"between": [a, b], "closed_in": list(p)} for a, b, p in contacts],
-            }
+        super().switch(
+            code, contacts, kind=kind, positions=positions, normal=normal, transition=transition
         )
         return self
 
-    def ct_pole(
+    def ct_pole(  # type: ignore[override]
         self,
         code: str,
         line: str,
@@ -140,26 +110,18 @@ class SiteBuilder:
         *,
         transition: str = "make_before_break",
     ) -> SiteBuilder:
-        """A CT test-switch pole: knife line–load closed in ``closed``; shorting jaw
-        line–short closed in ``open`` (when ``short`` is given)."""
-        contacts = [(line, load, ("closed",))]
-        if short is not None:
-            contacts.append((line, short, ("open",)))
-        return self.switch(code, contacts, transition=transition)
-
-    def trip_pole(self, code: str, a: str, b: str) -> SiteBuilder:
-        return self.switch(code, [(a, b, ("closed",))], transition="break_before_make")
-
-    def procedure(
-        self, code: str, steps: list[dict[str, Any]], devices: tuple[str, ...] = ()
-    ) -> SiteBuilder:
-        self.doc["procedures"].append(
-            {"code": code, "title": code, "devices": list(devices), "steps": steps}
-        )
+        super().ct_pole(code, line, load, short, transition=transition)
         return self
 
-    def build(self) -> dict[str, Any]:
-        return self.doc
+    def trip_pole(self, code: str, a: str, b: str) -> SiteBuilder:  # type: ignore[override]
+        super().trip_pole(code, a, b)
+        return self
+
+    def procedure(  # type: ignore[override]
+        self, code: str, steps: list[dict[str, Any]], devices: tuple[str, ...] = ()
+    ) -> SiteBuilder:
+        super().procedure(code, steps, devices)
+        return self
 
 
 PHASES = ("A", "B", "C")

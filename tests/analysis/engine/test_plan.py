@@ -350,7 +350,7 @@ def _bfs_lengths(nl, device):
 
 @pytest.mark.parametrize("breakers", [2, 4])
 def test_bus_differential_plan_uses_the_relays_test_switch(breakers):
-    """25 switches for four breakers (analysis.engine.bench). The relay's own trip first, even
+    """25 switches for four breakers (analysis.bench.engine). The relay's own trip first, even
     though the zone is balanced (R-87 reads 0 A under load whatever is shorted); then the
     test switch: three CT poles (each jaw makes before the knife breaks) and the neutral pole,
     which leave R-87 without current and free to remove. Shorting the breakers' sets at their
@@ -358,7 +358,7 @@ def test_bus_differential_plan_uses_the_relays_test_switch(breakers):
     restoration puts the same switches back in the reverse order. For two breakers the
     lengths are checked against breadth-first search over every CT-side switch (for four that
     search takes too long for a test)."""
-    from analysis.engine.bench import bus_differential_site
+    from analysis.bench.engine import bus_differential_site
 
     nl = build_netlist(bus_differential_site(breakers))
     plan = plan_isolation(nl, "R-87")

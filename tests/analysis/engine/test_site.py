@@ -4,7 +4,8 @@ from __future__ import annotations
 
 import pytest
 
-from analysis.engine import analyze_site, bench, build_netlist
+from analysis.bench import engine as bench
+from analysis.engine import analyze_site, build_netlist
 from tests.analysis.engine.builders import wye_panel
 
 
