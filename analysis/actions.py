@@ -45,24 +45,25 @@ def shared_at_revision(key: str, compute: Callable[[], Any]) -> Any:
     return hit
 
 
-def site_document_at(site_id: int, revision: int, load: Callable[[], dict[str, Any]]) -> Any:
-    """The site document at ``revision`` (``load`` reads it from the database), shared."""
-    return shared_at_revision(f"loopkeep:site-document:{site_id}:{revision}", load)
+def site_document_at(version: str, load: Callable[[], dict[str, Any]]) -> Any:
+    """The site document at ``version`` (``Site.record_version``: the site, its revision and
+    the key drawn with it; ``load`` reads it from the database), shared."""
+    return shared_at_revision(f"loopkeep:site-document:{version}", load)
 
 
 def site_netlist(
-    site_id: int, revision: int, load: Callable[[], dict[str, Any]]
+    version: str, load: Callable[[], dict[str, Any]]
 ) -> tuple[dict[str, Any], engine.Netlist]:
     """The site document and its netlist at ``revision``, kept per thread for the last few
     sites asked: a planner checks several procedures and plans of one site in a row, and the
     netlist (with the engine's caches of the normal state) is the costly part. A new revision
-    is a new key, so an edit is never answered from the old record."""
-    kept: OrderedDict[tuple[int, int], tuple[dict[str, Any], engine.Netlist]] | None = getattr(
+    is a new key (``Site.record_version``), so an edit is never answered from the old record."""
+    kept: OrderedDict[str, tuple[dict[str, Any], engine.Netlist]] | None = getattr(
         _local, "sites", None
     )
     if kept is None:
         kept = _local.sites = OrderedDict()
-    key = (site_id, revision)
+    key = version
     hit = kept.get(key)
     if hit is None:
         doc = load()
@@ -75,12 +76,12 @@ def site_netlist(
 
 
 _VERDICTS_KEPT = 512
-_verdicts: OrderedDict[tuple[int, int, str], dict[str, Any]] = OrderedDict()
+_verdicts: OrderedDict[tuple[str, str], dict[str, Any]] = OrderedDict()
 _verdicts_lock = threading.Lock()
 
 
 def procedure_check_at(
-    site_id: int, revision: int, procedure: str, load: Callable[[], dict[str, Any]]
+    version: str, procedure: str, load: Callable[[], dict[str, Any]]
 ) -> dict[str, Any]:
     """The verdict JSON of a stored procedure of a site at ``revision``, computed now unless
     this process computed it already. The check is a function of the record alone, and the
@@ -88,7 +89,7 @@ def procedure_check_at(
     ``(site, revision, procedure)`` is kept, process-wide, for the last few hundred asked:
     an edit is a new key, never a stale answer. Another process's verdict is taken from the
     shared cache (``shared_at_revision``). The caller must not change the body."""
-    key = (site_id, revision, procedure)
+    key = (version, procedure)
     with _verdicts_lock:
         hit = _verdicts.get(key)
         if hit is not None:
@@ -96,10 +97,10 @@ def procedure_check_at(
             return hit
 
     def compute() -> dict[str, Any]:
-        doc, netlist = site_netlist(site_id, revision, load)
+        doc, netlist = site_netlist(version, load)
         return procedure_check(doc, procedure, netlist=netlist)
 
-    verdict = shared_at_revision(f"loopkeep:verdict:{site_id}:{revision}:{procedure}", compute)
+    verdict = shared_at_revision(f"loopkeep:verdict:{version}:{procedure}", compute)
     with _verdicts_lock:
         _verdicts[key] = verdict
         while len(_verdicts) > _VERDICTS_KEPT:

@@ -52,12 +52,12 @@ def _document(site: inv.Site) -> dict[str, Any]:
 
 def _shared_document(site: inv.Site) -> Callable[[], dict[str, Any]]:
     """A loader of the site document at the site's revision, through the shared cache."""
-    return lambda: actions.site_document_at(site.pk, site.revision, lambda: _document(site))
+    return lambda: actions.site_document_at(site.record_version, lambda: _document(site))
 
 
 def _site_input(site: inv.Site) -> tuple[dict[str, Any], Any]:
     """The site document and netlist at the site's current revision (kept per thread)."""
-    return actions.site_netlist(site.pk, site.revision, _shared_document(site))
+    return actions.site_netlist(site.record_version, _shared_document(site))
 
 
 def _printable_code(text: str) -> bool:
@@ -292,7 +292,7 @@ class ProcedureCheck(SiteScoped, APIView):
         site_obj = self.site
         try:
             verdict = actions.procedure_check_at(
-                site_obj.pk, site_obj.revision, code, _shared_document(site_obj)
+                site_obj.record_version, code, _shared_document(site_obj)
             )
             return Response(verdict)
         except ProcedureError as exc:

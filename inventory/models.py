@@ -12,6 +12,8 @@ in ``save()``.
 
 from __future__ import annotations
 
+import uuid
+
 from django.core.exceptions import ValidationError
 from django.core.validators import MinValueValidator
 from django.db import models
@@ -76,6 +78,10 @@ class Site(models.Model):
     )
     notes = models.TextField(blank=True)
     revision = models.PositiveBigIntegerField(default=1, editable=False)
+    # Drawn afresh with every revision: a revision number alone can come back with other
+    # content (a write rolled back after something read it, or SQLite giving a deleted site's
+    # id to a new one), the pair never does. Caches of computed answers are keyed by it.
+    record_key = models.UUIDField(default=uuid.uuid4, editable=False)
     updated_at = models.DateTimeField("updated", auto_now=True)
     history = HistoricalRecords()
 
@@ -96,6 +102,12 @@ class Site(models.Model):
 
     def __str__(self) -> str:
         return self.code
+
+    @property
+    def record_version(self) -> str:
+        """What a cached answer computed from this site's record is keyed by: the site, its
+        revision and the key drawn with that revision."""
+        return f"{self.pk}:{self.revision}:{self.record_key.hex}"
 
 
 class SiteOwned(models.Model):

@@ -13,6 +13,7 @@ import datetime as dt
 import hashlib
 import math
 import re
+import uuid
 from collections.abc import Callable, Hashable, Iterable
 from dataclasses import dataclass, field
 from typing import Any
@@ -116,7 +117,9 @@ def site_record_change(*, site_id: int) -> None:
     up (every result computed from the old revision is stale from the moment this commits) and
     the change is recorded in the outbox (``inventory.changes``), whose consumers (the
     analysis) schedule the recompute for when the transaction commits."""
-    models.Site.objects.filter(pk=site_id).update(revision=F("revision") + 1)
+    models.Site.objects.filter(pk=site_id).update(
+        revision=F("revision") + 1, record_key=uuid.uuid4()
+    )
     change_record(site_id=site_id)
 
 

@@ -24,7 +24,7 @@ def get_site(code: str) -> inv.Site:
 def site_input(site: inv.Site) -> tuple[dict[str, Any], Any]:
     """The site document and netlist at the site's current revision, from the same per-thread
     cache as the API (``analysis.actions.site_netlist``)."""
-    return actions.site_netlist(site.pk, site.revision, lambda: records.site_document(site))
+    return actions.site_netlist(site.record_version, lambda: records.site_document(site))
 
 
 def paginate(request: HttpRequest, items: Any, param: str, per_page: int = PAGE_SIZE) -> Page:
