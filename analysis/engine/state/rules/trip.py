@@ -4,6 +4,7 @@ changes what its inputs see (rules (a)–(d) of the findings table)."""
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from typing import Any
 
 from analysis.engine import findings as fc
@@ -211,29 +212,17 @@ def _reconnected_early(
     hit = _off_normal(ev, dev)
     if hit is None:
         return None
-    di, i_now, i_norm, ref, others = hit
-    outs = ", ".join(
-        f"{o.name} ({nl.terminals[o.terminal]} → {nl.terminals[o.target]})" for o in new
-    )
-    also = f" (and {', '.join(sorted(others))})" if others else ""
-    return Finding(
-        code=fc.TRIP_NOT_ISOLATED,
-        message=(
-            f"{dev.code} output {outs} is reconnected while input {di.name}{also} carries "
-            f"{_fmt_a(abs(i_now))} against {_fmt_a(abs(i_norm))} with the CT circuits in their "
-            f"normal state (more than 10 % of the circuit's largest CT current, "
-            f"{_fmt_a(ref)}, apart): restore the CT circuits before the trips"
+    return _off_normal_finding(
+        nl,
+        ev,
+        dev,
+        hit,
+        new,
+        stage,
+        lambda outs, seen: (
+            f"{dev.code} output {outs} is reconnected while input {seen}: restore the CT "
+            f"circuits before the trips"
         ),
-        device=dev.code,
-        input=di.name,
-        circuit=ev.circ_id.get(ev.inp_circ[di.index]),
-        stage=stage,
-        numbers={
-            "now_a": round(abs(i_now), 4),
-            "normal_a": round(abs(i_norm), 4),
-            "circuit_max_a": round(ref, 4),
-            "outputs": [o.name for o in new],
-        },
     )
 
 
@@ -259,21 +248,48 @@ def _energized_abnormal(
     hit = _off_normal(ev, dev)
     if hit is None:
         return None
-    di, i_now, i_norm, ref, others = hit
     what = ", ".join(sorted(added))
+    return _off_normal_finding(
+        nl,
+        ev,
+        dev,
+        hit,
+        conn,
+        stage,
+        lambda outs, seen: (
+            f"{what} is energized while {dev.code} output {outs} is connected and input "
+            f"{seen}: isolate the trips or restore the CT circuits before energizing"
+        ),
+        energized=sorted(added),
+    )
+
+
+def _off_normal_finding(
+    nl: Netlist,
+    ev: StateEval,
+    dev: Any,
+    hit: tuple[Any, complex, complex, float, list[str]],
+    outputs: list[Any],
+    stage: str | None,
+    say: Callable[[str, str], str],
+    **more: Any,
+) -> Finding:
+    """The ``trip_not_isolated`` finding of an input off its normal current (``hit``, from
+    ``_off_normal``) while ``outputs`` are connected; ``say(outs, seen)`` words the message
+    around the outputs and what the input carries."""
+    di, i_now, i_norm, ref, others = hit
     outs = ", ".join(
-        f"{o.name} ({nl.terminals[o.terminal]} → {nl.terminals[o.target]})" for o in conn
+        f"{o.name} ({nl.terminals[o.terminal]} → {nl.terminals[o.target]})" for o in outputs
     )
     also = f" (and {', '.join(sorted(others))})" if others else ""
+    seen = (
+        f"{di.name}{also} carries {_fmt_a(abs(i_now))} against {_fmt_a(abs(i_norm))} with the "
+        f"CT circuits in their normal state (more than 10 % of the circuit's largest CT "
+        f"current, {_fmt_a(ref)}, apart)"
+    )
     return Finding(
         code=fc.TRIP_NOT_ISOLATED,
-        message=(
-            f"{what} is energized while {dev.code} output {outs} is connected and input "
-            f"{di.name}{also} carries {_fmt_a(abs(i_now))} against {_fmt_a(abs(i_norm))} with "
-            f"the CT circuits in their normal state (more than 10 % of the circuit's largest CT "
-            f"current, {_fmt_a(ref)}, apart): isolate the trips or restore the CT circuits "
-            f"before energizing"
-        ),
+        message=say(outs, seen),
         device=dev.code,
         input=di.name,
         circuit=ev.circ_id.get(ev.inp_circ[di.index]),
@@ -282,8 +298,8 @@ def _energized_abnormal(
             "now_a": round(abs(i_now), 4),
             "normal_a": round(abs(i_norm), 4),
             "circuit_max_a": round(ref, 4),
-            "outputs": [o.name for o in conn],
-            "energized": sorted(added),
+            "outputs": [o.name for o in outputs],
+            **more,
         },
     )
 
