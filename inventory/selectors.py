@@ -7,9 +7,11 @@ and the fleet recompute read through it, and the export (``site_documents``) ser
 
 from __future__ import annotations
 
+import contextlib
+import gc
 import json
 from collections import defaultdict
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from typing import Any
 
 from django.db import connection
@@ -23,18 +25,6 @@ from inventory import models
 num = rec.document.num
 
 SITE_FORMAT = rec.model.SITE_FORMAT
-_SECTIONS = (
-    "buses",
-    "equipment",
-    "terminal_blocks",
-    "cts",
-    "devices",
-    "wires",
-    "links",
-    "grounds",
-    "switches",
-    "procedures",
-)
 
 
 def _rows(qs: QuerySet) -> list[tuple[Any, ...]]:
@@ -43,30 +33,86 @@ def _rows(qs: QuerySet) -> list[tuple[Any, ...]]:
     decodes what it reads). The record read's rows are plain numbers, strings and ids, and
     the converters cost more than the query."""
     sql, params = qs.query.sql_with_params()
+    return _execute(sql, params)
+
+
+def _execute(sql: str, params: Sequence[Any]) -> list[tuple[Any, ...]]:
     with connection.cursor() as cursor:
         cursor.execute(sql, params)
         return cursor.fetchall()
 
 
-class _Decoded:
+# (vendor, query name, number of ids) -> (SQL, where the ids go in the parameters)
+_SQL_CACHE: dict[tuple[str, str, int], tuple[str, tuple[Any, ...], tuple[int, ...]]] = {}
+_SQL_CACHE_MAX = 512
+
+
+def _by_ids(name: str, build: Callable[[list[int]], QuerySet], ids: list[int]) -> list[Any]:
+    """The rows of ``build(ids)`` (a ``values_list`` filtered by ``ids``, which are distinct)
+    read like :func:`_rows`, with the SQL compiled once per query and number of ids: a chunk
+    of the fleet recompute reads 18 tables, and Django's compilation of 18 querysets costs
+    more than a small chunk's rows. The SQL is compiled for two sets of placeholder ids; the
+    parameters that differ are where the ids go (anything else, say a constant, is kept)."""
+    key = (connection.vendor, name, len(ids))
+    hit = _SQL_CACHE.get(key)
+    if hit is None:
+        n = len(ids)
+        sql, one = build(list(range(1, n + 1))).query.sql_with_params()
+        sql_two, two = build(list(range(n + 1, 2 * n + 1))).query.sql_with_params()
+        at: tuple[int, ...] = ()
+        if (sql_two, len(two)) == (sql, len(one)):
+            at = tuple(k for k, (p, q) in enumerate(zip(one, two, strict=True)) if p != q)
+        if [one[k] for k in at] != [*range(1, n + 1)]:
+            return _rows(build(ids))  # not a plain filter by the ids: compiled each time
+        if len(_SQL_CACHE) >= _SQL_CACHE_MAX:
+            _SQL_CACHE.clear()
+        hit = _SQL_CACHE[key] = (sql, tuple(one), at)
+    sql, template, at = hit
+    if len(at) == len(template):
+        return _execute(sql, ids)
+    params = list(template)
+    for k, value in zip(at, ids, strict=True):
+        params[k] = value
+    return _execute(sql, params)
+
+
+def _table(
+    ids: list[int],
+    model: type[Model],
+    fields: tuple[str, ...],
+    *,
+    order: tuple[str, ...] = ("id",),
+    by: str = "site_id",
+) -> list[tuple[Any, ...]]:
+    """``fields`` of the rows of ``model`` whose ``by`` is one of ``ids``, in ``order``, as
+    tuples (:func:`_by_ids`; an empty ``order`` also drops the model's default ordering)."""
+
+    def build(some: list[int]) -> QuerySet:
+        return (
+            model._default_manager.filter(**{f"{by}__in": some})
+            .order_by(*order)
+            .values_list(*fields)
+        )
+
+    return _by_ids(f"{model._meta.label}:{by}:{order}:{fields}", build, ids)
+
+
+class _Decoded(dict[Any, Any]):
     """JSON column text -> the value ``convert`` makes of it, decoded once per distinct text
-    (a switch contact's ``["closed"]``, a relay's functions, a step repeat across the fleet).
-    The values are immutable (tuples, typed operations), so sharing them is safe."""
+    (a switch contact's ``["closed"]``, a relay's functions, a step repeat across the fleet):
+    ``decoded[text]``, a plain dict lookup once the text has been seen. The values are
+    immutable (tuples, typed operations), so sharing them is safe."""
 
-    __slots__ = ("_convert", "_memo")
-
-    def __init__(self, convert: Any) -> None:
-        self._memo: dict[Any, Any] = {}
+    def __init__(self, convert: Callable[[Any], Any]) -> None:
+        super().__init__()
         self._convert = convert
 
-    def __call__(self, raw: Any) -> Any:
-        if raw is None:
-            return None
-        hit = self._memo.get(raw)
-        if hit is None:
-            value = json.loads(raw) if isinstance(raw, (str, bytes)) else raw
-            hit = self._memo[raw] = self._convert(value)
-        return hit
+    def __missing__(self, raw: Any) -> Any:
+        value = None
+        if raw is not None:
+            value = self._convert(json.loads(raw) if isinstance(raw, (str, bytes)) else raw)
+        self[raw] = value
+        return value
 
 
 def _tuple(value: Any) -> tuple[Any, ...]:
@@ -81,60 +127,92 @@ def site_by_code(code: str) -> models.Site:
     return models.Site.objects.get(code=code)
 
 
+@contextlib.contextmanager
+def _gc_paused() -> Iterator[None]:
+    """The cyclic garbage collector held off while a read builds its records. A fleet chunk
+    makes a few hundred thousand tuples and frozen dataclasses, none of them in a cycle, and
+    the collections their allocation triggers (each young one traversing everything still
+    young, the old ones the whole heap) cost as much as building them. Reference counting
+    still frees everything as usual; the collector runs again as soon as the read ends."""
+    was_enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if was_enabled:
+            gc.enable()
+
+
 def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
     """The typed records of the given sites, keyed by site id, in the canonical order the export
     writes (codes sorted; wires, links and contacts in the order they were recorded). One query
     per table, whatever the number of sites; rows are read as tuples (dict rows cost more than
-    the query)."""
-    site_rows = list(
-        models.Site.objects.filter(pk__in=list(site_ids))
-        .order_by("code")
-        .values_list("id", "code", "name", "design_temp_c", "notes")
+    the query) and the records built from them directly."""
+    wanted = sorted(set(site_ids))
+    if not wanted:
+        return {}
+    with _gc_paused():
+        return _site_records(wanted)
+
+
+def _site_records(wanted: list[int]) -> dict[int, rec.SiteRecord]:
+    site_rows = _table(
+        wanted,
+        models.Site,
+        ("id", "code", "name", "design_temp_c", "notes"),
+        order=("code",),
+        by="pk",
     )
     ids = [row[0] for row in site_rows]
-    sections: dict[int, dict[str, list[Any]]] = {sid: {k: [] for k in _SECTIONS} for sid in ids}
+    if not ids:
+        return {}
 
+    def per_site() -> dict[int, list[Any]]:
+        return {sid: [] for sid in ids}
+
+    # Terminals in no order (a CT's own are sorted below, per CT).
     labels: dict[int, str] = {}
     ct_terminals: dict[int, list[tuple[float, str, str]]] = defaultdict(list)
-    for tid, owner, name, ct_id, position_a, tap_role in _rows(
-        models.Terminal.objects.filter(site_id__in=ids).values_list(
-            "id", "owner", "name", "ct_id", "position_a", "tap_role"
-        )
+    for tid, owner, name, ct_id, position_a, tap_role in _table(
+        ids, models.Terminal, ("id", "owner", "name", "ct_id", "position_a", "tap_role"), order=()
     ):
         labels[tid] = f"{owner}:{name}"
         if ct_id is not None:
             ct_terminals[ct_id].append((position_a, name, tap_role))
 
+    buses = per_site()
     bus_codes: dict[int, str] = {}
-    for bid, site_id, code, kv, three, ground, xr in (
-        models.Bus.objects.filter(site_id__in=ids)
-        .order_by("code")
-        .values_list(
-            "id", "site_id", "code", "kv", "three_phase_fault_ka", "ground_fault_ka", "x_over_r"
-        )
+    Bus = rec.Bus
+    for bid, site_id, code, kv, three, ground, xr in _table(
+        ids,
+        models.Bus,
+        ("id", "site_id", "code", "kv", "three_phase_fault_ka", "ground_fault_ka", "x_over_r"),
+        order=("code",),
     ):
         bus_codes[bid] = code
-        sections[site_id]["buses"].append(rec.Bus(code, kv, three, ground, xr))
+        buses[site_id].append(Bus(code, kv, three, ground, xr))
 
+    equipment = per_site()
     equipment_codes: dict[int, str] = {}
-    for eid, site_id, code, kind, bus_id, in_service, max_load_a in (
-        models.Equipment.objects.filter(site_id__in=ids)
-        .order_by("code")
-        .values_list("id", "site_id", "code", "kind", "bus_id", "in_service", "max_load_a")
+    Equipment = rec.Equipment
+    for eid, site_id, code, kind, bus_id, in_service, max_load_a in _table(
+        ids,
+        models.Equipment,
+        ("id", "site_id", "code", "kind", "bus_id", "in_service", "max_load_a"),
+        order=("code",),
     ):
         equipment_codes[eid] = code
         bus = bus_codes[bus_id] if bus_id else None
-        sections[site_id]["equipment"].append(
-            rec.Equipment(code, kind, bus, in_service, max_load_a)
-        )
+        equipment[site_id].append(Equipment(code, kind, bus, bool(in_service), max_load_a))
 
-    for site_id, code, description in (
-        models.TerminalBlock.objects.filter(site_id__in=ids)
-        .order_by("code")
-        .values_list("site_id", "code", "description")
+    blocks = per_site()
+    TerminalBlock = rec.TerminalBlock
+    for site_id, code, description in _table(
+        ids, models.TerminalBlock, ("site_id", "code", "description"), order=("code",)
     ):
-        sections[site_id]["terminal_blocks"].append(rec.TerminalBlock(code, description))
+        blocks[site_id].append(TerminalBlock(code, description))
 
+    # Through Django's converters: a date-time and JSON lists (few rows).
     tap_changes: dict[int, list[rec.TapChange]] = defaultdict(list)
     for ct_id, from_tap, to_tap, changed_at, by, reason in (
         models.TapChange.objects.filter(ct__site_id__in=ids)
@@ -145,11 +223,14 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
             rec.TapChange(tuple(from_tap), tuple(to_tap), changed_at, by, reason)
         )
 
+    cts = per_site()
     points = _Decoded(_points)
-    for row in _rows(
-        models.CurrentTransformer.objects.filter(site_id__in=ids)
-        .order_by("code")
-        .values_list(
+    CT = rec.CT
+    no_terminals: list[tuple[float, str, str]] = []
+    for row in _table(
+        ids,
+        models.CurrentTransformer,
+        (
             "id",
             "site_id",
             "code",
@@ -164,37 +245,45 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
             "rating_factor",
             "excitation",
             "nameplate",
-        )
+        ),
+        order=("code",),
     ):
         (ct_id, site_id, code, eq_id, phase, set_name, secondary_a, accuracy) = row[:8]
         (rated_burden_va, knee_v, winding_ohm, rating_factor, excitation, nameplate) = row[8:]
-        own = sorted(ct_terminals.get(ct_id, ()))
-        roles = {role: name for _, name, role in own if role}
-        sections[site_id]["cts"].append(
-            rec.CT(
-                code=code,
-                equipment=equipment_codes[eq_id],
-                phase=phase,
-                secondary_a=float(secondary_a),
-                terminals=tuple((name, position) for position, name, _ in own),
-                in_use=tuple(roles[r] for r in ("first", "second") if r in roles),
-                set_name=set_name or None,
-                accuracy=accuracy or None,
-                rated_burden_va=rated_burden_va,
-                knee_v=knee_v,
-                winding_ohm=winding_ohm,
-                rating_factor=rating_factor,
-                excitation=points(excitation),
-                nameplate=nameplate,
-                tap_changes=tuple(tap_changes.get(ct_id, ())),
+        own = ct_terminals.get(ct_id, no_terminals)
+        own.sort()
+        first = second = None
+        for _, name, role in own:
+            if role == "first":
+                first = name
+            elif role == "second":
+                second = name
+        cts[site_id].append(
+            CT(
+                code,
+                equipment_codes[eq_id],
+                phase,
+                float(secondary_a),
+                tuple([(name, position) for position, name, _ in own]),
+                tuple([n for n in (first, second) if n is not None]),
+                set_name or None,
+                accuracy or None,
+                rated_burden_va,
+                knee_v,
+                winding_ohm,
+                rating_factor,
+                None if excitation is None else points[excitation],
+                nameplate,
+                tuple(tap_changes[ct_id]) if ct_id in tap_changes else (),
             )
         )
 
     inputs: dict[int, list[rec.DeviceInput]] = defaultdict(list)
-    for device_id, name, a, b, rated_a, burden_va, pf, r_ohm, x_ohm in _rows(
-        models.DeviceInput.objects.filter(device__site_id__in=ids)
-        .order_by("id")
-        .values_list(
+    DeviceInput = rec.DeviceInput
+    for device_id, name, a, b, rated_a, burden_va, pf, r_ohm, x_ohm in _table(
+        ids,
+        models.DeviceInput,
+        (
             "device_id",
             "name",
             "from_terminal_id",
@@ -204,48 +293,55 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
             "pf",
             "burden_r_ohm",
             "burden_x_ohm",
-        )
+        ),
+        by="device__site_id",
     ):
         inputs[device_id].append(
-            rec.DeviceInput(
-                name=name,
-                from_terminal=labels[a],
-                to_terminal=labels[b],
-                rated_a=float(rated_a),
-                burden_va=burden_va,
-                pf=pf,
-                burden_ohm=None if burden_va is not None else (r_ohm, x_ohm),
+            DeviceInput(
+                name,
+                labels[a],
+                labels[b],
+                float(rated_a),
+                burden_va,
+                pf,
+                None if burden_va is not None else (r_ohm, x_ohm),
             )
         )
     outputs: dict[int, list[rec.DeviceOutput]] = defaultdict(list)
-    for device_id, name, terminal, target in _rows(
-        models.DeviceOutput.objects.filter(device__site_id__in=ids)
-        .order_by("id")
-        .values_list("device_id", "name", "terminal_id", "target_id")
+    DeviceOutput = rec.DeviceOutput
+    for device_id, name, terminal, target in _table(
+        ids,
+        models.DeviceOutput,
+        ("device_id", "name", "terminal_id", "target_id"),
+        by="device__site_id",
     ):
-        outputs[device_id].append(rec.DeviceOutput(name, labels[terminal], labels[target]))
+        outputs[device_id].append(DeviceOutput(name, labels[terminal], labels[target]))
+    devices = per_site()
     tuple_of = _Decoded(_tuple)
-    for did, site_id, code, kind, functions, ratio_setting in _rows(
-        models.Device.objects.filter(site_id__in=ids)
-        .order_by("code")
-        .values_list("id", "site_id", "code", "kind", "functions", "ratio_setting")
+    Device = rec.Device
+    for did, site_id, code, kind, functions, ratio_setting in _table(
+        ids,
+        models.Device,
+        ("id", "site_id", "code", "kind", "functions", "ratio_setting"),
+        order=("code",),
     ):
-        sections[site_id]["devices"].append(
-            rec.Device(
-                code=code,
-                kind=kind,
-                functions=tuple_of(functions) or (),
-                ratio_setting=ratio_setting or None,
-                inputs=tuple(inputs.get(did, ())),
-                outputs=tuple(outputs.get(did, ())),
+        devices[site_id].append(
+            Device(
+                code,
+                kind,
+                () if functions is None else tuple_of[functions],
+                ratio_setting or None,
+                tuple(inputs[did]) if did in inputs else (),
+                tuple(outputs[did]) if did in outputs else (),
             )
         )
 
-    wire = rec.Wire
-    for site_id, a, b, size, material, length_m, length_ft, r_ohm in _rows(
-        models.Wire.objects.filter(site_id__in=ids)
-        .order_by("id")
-        .values_list(
+    wires = per_site()
+    Wire = rec.Wire
+    for site_id, a, b, size, material, length_m, length_ft, r_ohm in _table(
+        ids,
+        models.Wire,
+        (
             "site_id",
             "from_terminal_id",
             "to_terminal_id",
@@ -254,86 +350,101 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
             "length_m",
             "length_ft",
             "r_ohm",
-        )
+        ),
     ):
-        sections[site_id]["wires"].append(
-            wire(labels[a], labels[b], size, material, length_m, length_ft, r_ohm)
+        wires[site_id].append(
+            Wire(labels[a], labels[b], size, material, length_m, length_ft, r_ohm)
         )
 
-    for site_id, a, b in _rows(
-        models.Link.objects.filter(site_id__in=ids)
-        .order_by("id")
-        .values_list("site_id", "a_id", "b_id")
-    ):
-        sections[site_id]["links"].append(rec.Link(labels[a], labels[b]))
-    for site_id, terminal in _rows(
-        models.Ground.objects.filter(site_id__in=ids)
-        .order_by("id")
-        .values_list("site_id", "terminal_id")
-    ):
-        sections[site_id]["grounds"].append(labels[terminal])
+    links = per_site()
+    Link = rec.Link
+    for site_id, a, b in _table(ids, models.Link, ("site_id", "a_id", "b_id")):
+        links[site_id].append(Link(labels[a], labels[b]))
+    grounds = per_site()
+    for site_id, terminal in _table(ids, models.Ground, ("site_id", "terminal_id")):
+        grounds[site_id].append(labels[terminal])
 
-    positions: dict[int, list[tuple[str, bool]]] = defaultdict(list)
-    for switch_id, name, is_normal in _rows(
-        models.SwitchPosition.objects.filter(switch__site_id__in=ids)
-        .order_by("switch_id", "order")
-        .values_list("switch_id", "name", "is_normal")
+    # A switch's positions in order, and its normal one (the first marked normal).
+    positions: dict[int, list[str]] = defaultdict(list)
+    normals: dict[int, str] = {}
+    for switch_id, name, is_normal in _table(
+        ids,
+        models.SwitchPosition,
+        ("switch_id", "name", "is_normal"),
+        order=("switch_id", "order"),
+        by="switch__site_id",
     ):
-        positions[switch_id].append((name, bool(is_normal)))
+        positions[switch_id].append(name)
+        if is_normal and switch_id not in normals:
+            normals[switch_id] = name
     contacts: dict[int, list[rec.Contact]] = defaultdict(list)
-    for switch_id, a, b, closed_in in _rows(
-        models.SwitchContact.objects.filter(switch__site_id__in=ids)
-        .order_by("id")
-        .values_list("switch_id", "a_id", "b_id", "closed_in")
+    Contact = rec.Contact
+    for switch_id, a, b, closed_in in _table(
+        ids, models.SwitchContact, ("switch_id", "a_id", "b_id", "closed_in"), by="switch__site_id"
     ):
-        contacts[switch_id].append(rec.Contact((labels[a], labels[b]), tuple_of(closed_in)))
-    for sw_id, site_id, code, kind, transition in _rows(
-        models.Switch.objects.filter(site_id__in=ids)
-        .order_by("code")
-        .values_list("id", "site_id", "code", "kind", "transition")
+        contacts[switch_id].append(
+            Contact((labels[a], labels[b]), () if closed_in is None else tuple_of[closed_in])
+        )
+    switches = per_site()
+    Switch = rec.Switch
+    for sw_id, site_id, code, kind, transition in _table(
+        ids, models.Switch, ("id", "site_id", "code", "kind", "transition"), order=("code",)
     ):
-        own_positions = positions.get(sw_id, [])
-        sections[site_id]["switches"].append(
-            rec.Switch(
-                code=code,
-                kind=kind,
-                positions=tuple(name for name, _ in own_positions),
-                normal=next((name for name, normal in own_positions if normal), None),
-                transition=transition,
-                contacts=tuple(contacts.get(sw_id, ())),
+        switches[site_id].append(
+            Switch(
+                code,
+                kind,
+                tuple(positions[sw_id]) if sw_id in positions else (),
+                normals.get(sw_id),
+                transition,
+                tuple(contacts[sw_id]) if sw_id in contacts else (),
             )
         )
 
     steps: dict[int, list[rec.Operation]] = defaultdict(list)
     operation = _Decoded(rec.operation_from_json)
-    for procedure_id, order, op in _rows(
-        models.ProcedureStep.objects.filter(procedure__site_id__in=ids)
-        .order_by("procedure_id", "order")
-        .values_list("procedure_id", "order", "op")
+    for procedure_id, order, op in _table(
+        ids,
+        models.ProcedureStep,
+        ("procedure_id", "order", "op"),
+        order=("procedure_id", "order"),
+        by="procedure__site_id",
     ):
         try:
-            steps[procedure_id].append(operation(op))
+            steps[procedure_id].append(operation[op])
         except rec.OperationError as err:
             raise rec.RecordError(f"procedure step {order} (id {procedure_id}): {err}") from err
-    for pid, site_id, code, title, author, devices in _rows(
-        models.Procedure.objects.filter(site_id__in=ids)
-        .order_by("code")
-        .values_list("id", "site_id", "code", "title", "author", "devices")
+    procedures = per_site()
+    Procedure = rec.Procedure
+    for pid, site_id, code, title, author, on_devices in _table(
+        ids,
+        models.Procedure,
+        ("id", "site_id", "code", "title", "author", "devices"),
+        order=("code",),
     ):
-        sections[site_id]["procedures"].append(
-            rec.Procedure(
-                code=code,
-                title=title,
-                steps=tuple(steps.get(pid, ())),
-                author=author,
-                devices=tuple_of(devices) or (),
+        procedures[site_id].append(
+            Procedure(
+                code,
+                title,
+                tuple(steps[pid]) if pid in steps else (),
+                author,
+                () if on_devices is None else tuple_of[on_devices],
             )
         )
 
     return {
         sid: rec.SiteRecord(
-            site=rec.Site(code, name, design_temp_c, notes),
-            **{k: tuple(v) for k, v in sections[sid].items()},
+            rec.Site(code, name, design_temp_c, notes),
+            tuple(buses[sid]),
+            tuple(equipment[sid]),
+            tuple(blocks[sid]),
+            tuple(cts[sid]),
+            tuple(devices[sid]),
+            tuple(wires[sid]),
+            tuple(links[sid]),
+            tuple(grounds[sid]),
+            tuple(switches[sid]),
+            tuple(procedures[sid]),
         )
         for sid, code, name, design_temp_c, notes in site_rows
     }

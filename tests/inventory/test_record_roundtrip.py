@@ -78,6 +78,12 @@ def test_site_records_is_one_query_per_table_whatever_the_number_of_sites(
     assert list(one) == ids[:1] and sorted(three) == ids
     assert [r.code for r in three.values()] == ["AAA", "BBB", "CCC"]
     assert three[ids[0]] == one[ids[0]]
+    # The SQL is compiled once per table and number of sites: another site of the same number
+    # reads its own rows, not the first one's.
+    with django_assert_num_queries(RECORD_QUERIES):
+        other = site_records(ids[2:3])
+    assert list(other) == ids[2:3] and other[ids[2]] == three[ids[2]]
+    assert other[ids[2]].code == "CCC" and one[ids[0]].code == "AAA"
     # the export is the record serialised: the same queries, nothing more
     site = models.Site.objects.get(pk=ids[1])
     with django_assert_num_queries(RECORD_QUERIES):
