@@ -20,6 +20,7 @@ Table 8's notes; it reproduces Table 8's 75 °C column from the 20 °C values).
 
 from __future__ import annotations
 
+import functools
 import re
 
 TABLE_TEMP_C = 20.0
@@ -103,12 +104,14 @@ def temperature_factor(material: str, temp_c: float, from_temp_c: float = TABLE_
     return (t0 + temp_c) / (t0 + from_temp_c)
 
 
+@functools.lru_cache(maxsize=1024)
 def conductor_ohm_per_m(size: str, material: str = "cu", temp_c: float = 75.0) -> float:
     """DC resistance of one conductor in Ω per metre at ``temp_c``.
 
     Tables at 20 °C (S13 for AWG, S14 IEC 60228 for mm²; aluminium by the IEC 60287 resistivity
     ratio), converted by the inferred-zero-temperature formula (234.5 °C Cu, 228 °C Al).
-    Raises ``ValueError`` for an unknown size or material.
+    Raises ``ValueError`` for an unknown size or material. Cached per (size, material,
+    temperature): a site's netlist asks it for every wire, of a handful of distinct sizes.
     """
     canonical = normalize_size(size)
     mat = _material(material)

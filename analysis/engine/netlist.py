@@ -25,6 +25,7 @@ from typing import Any
 import numpy as np
 
 import record as rec
+from trade.conductors import wire_resistance_ohm
 
 FT_TO_M = 0.3048
 # A branch whose impedance is below this is a zero-impedance connection (merged, not solved).
@@ -377,7 +378,9 @@ def _input_z_ohm(spec: rec.DeviceInput) -> complex:
     return z
 
 
-def _wire_r_ohm(spec: rec.Wire, temp_c: float, where: str) -> float:
+def _wire_r_ohm(spec: rec.Wire, temp_c: float, k: int) -> float:
+    """The resistance of wire ``k`` of the site: ``r_ohm``, or its size's conductor at
+    ``temp_c`` times its length (``trade.conductors`` caches the per-metre value)."""
     if spec.r_ohm is not None:
         return float(spec.r_ohm)
     if spec.length_m is not None:
@@ -385,12 +388,9 @@ def _wire_r_ohm(spec: rec.Wire, temp_c: float, where: str) -> float:
     elif spec.length_ft is not None:
         length_m = float(spec.length_ft) * FT_TO_M
     else:
-        raise ValueError(f"{where}: wire needs r_ohm, or size with length_m or length_ft")
+        raise ValueError(f"/wires/{k}: wire needs r_ohm, or size with length_m or length_ft")
     if not spec.size:
-        raise ValueError(f"{where}: wire has a length but no size")
-    # Imported here: the conductor table is a separate module and only needed for sized wires.
-    from trade.conductors import wire_resistance_ohm
-
+        raise ValueError(f"/wires/{k}: wire has a length but no size")
     return float(
         wire_resistance_ohm(
             size=spec.size,
@@ -418,39 +418,49 @@ def build_netlist(source: rec.SiteRecord | Mapping[str, Any]) -> Netlist:
     temp_c = float(record.site.design_temp_c)
     terminals: list[str] = []
     index: dict[str, int] = {}
+    known = index.get
 
-    def term(name: Any, where: str) -> int:
-        if not isinstance(name, str) or ":" not in name:
-            raise ValueError(f"{where}: terminal {name!r} is not of the form OWNER:NAME")
-        i = index.get(name)
+    def term(name: Any, *where: object) -> int:
+        """The index of terminal ``name`` (created on first reference); the parts of
+        ``where`` make the JSON pointer named when it is not of the form ``OWNER:NAME``
+        (joined only then: a site references some thousands of terminals)."""
+        i = known(name) if name.__class__ is str else None
         if i is None:
-            i = index[name] = len(terminals)
-            terminals.append(name)
+            if not isinstance(name, str) or ":" not in name:
+                pointer = "".join(map(str, where))
+                raise ValueError(f"{pointer}: terminal {name!r} is not of the form OWNER:NAME")
+            i = index.get(name)
+            if i is None:
+                i = index[name] = len(terminals)
+                terminals.append(name)
         return i
 
     equipment: dict[str, Equipment] = {}
     for e in record.equipment:
         load = e.max_load_a
         equipment[e.code] = Equipment(
-            code=e.code,
-            kind=e.kind,
-            in_service=bool(e.in_service),
-            max_load_a=float(load) if load is not None else None,
+            e.code, e.kind, bool(e.in_service), float(load) if load is not None else None
         )
 
     cts: dict[str, CT] = {}
     for k, c in enumerate(record.cts):
-        where = f"/cts/{k}"
         code = c.code
         positions = dict(c.terminals)
         in_use_raw = c.in_use or tuple(positions)[:2]
         if len(in_use_raw) != 2:
-            raise ValueError(f"{where}/in_use: needs exactly two terminals")
+            raise ValueError(f"/cts/{k}/in_use: needs exactly two terminals")
         in_use = (in_use_raw[0], in_use_raw[1])
         for n in in_use:
             if n not in positions:
                 positions[n] = 0.0 if not positions else max(positions.values())
-        tidx = {n: term(f"{code}:{n}", f"{where}/terminals/{n}") for n in positions}
+        tidx: dict[str, int] = {}
+        for n in positions:
+            name = f"{code}:{n}"  # always OWNER:NAME
+            i = known(name)
+            if i is None:
+                i = index[name] = len(terminals)
+                terminals.append(name)
+            tidx[n] = i
         secondary_a = float(c.secondary_a or 5.0)
         tap_a = abs(positions[in_use[0]] - positions[in_use[1]])
         eq = equipment.get(c.equipment) if c.equipment else None
@@ -464,113 +474,112 @@ def build_netlist(source: rec.SiteRecord | Mapping[str, Any]) -> Netlist:
         else:
             load_a = 1.0
         cts[code] = CT(
-            index=len(cts),
-            code=code,
-            equipment=c.equipment,
-            phase=c.phase.upper() if c.phase else None,
-            set_name=c.set_name,
-            secondary_a=secondary_a,
-            positions=positions,
-            terminals=tidx,
-            in_use=in_use,
-            first=tidx[in_use[0]],
-            second=tidx[in_use[1]],
-            tap_primary_a=tap_a,
-            load_secondary_a=load_a,
-            winding_ohm=float(c.winding_ohm) if c.winding_ohm is not None else None,
+            len(cts),
+            code,
+            c.equipment,
+            c.phase.upper() if c.phase else None,
+            c.set_name,
+            secondary_a,
+            positions,
+            tidx,
+            in_use,
+            tidx[in_use[0]],
+            tidx[in_use[1]],
+            tap_a,
+            load_a,
+            float(c.winding_ohm) if c.winding_ohm is not None else None,
         )
 
     devices: dict[str, Device] = {}
     inputs: list[DeviceInput] = []
     outputs: list[DeviceOutput] = []
     for k, d in enumerate(record.devices):
-        where = f"/devices/{k}"
         code = d.code
         dins: list[DeviceInput] = []
         for m, spec in enumerate(d.inputs):
-            w = f"{where}/inputs/{m}"
             rated = spec.rated_a
             di = DeviceInput(
-                index=len(inputs),
-                device=code,
-                name=spec.name,
-                a=term(spec.from_terminal, f"{w}/from"),
-                b=term(spec.to_terminal, f"{w}/to"),
-                z_ohm=_input_z_ohm(spec),
-                rated_a=float(rated) if rated is not None else None,
+                len(inputs),
+                code,
+                spec.name,
+                term(spec.from_terminal, "/devices/", k, "/inputs/", m, "/from"),
+                term(spec.to_terminal, "/devices/", k, "/inputs/", m, "/to"),
+                _input_z_ohm(spec),
+                float(rated) if rated is not None else None,
             )
             inputs.append(di)
             dins.append(di)
         douts: list[DeviceOutput] = []
         for m, out in enumerate(d.outputs):
-            w = f"{where}/outputs/{m}"
             do = DeviceOutput(
-                index=len(outputs),
-                device=code,
-                name=out.name,
-                terminal=term(out.terminal, f"{w}/terminal"),
-                target=term(out.target, f"{w}/target"),
+                len(outputs),
+                code,
+                out.name,
+                term(out.terminal, "/devices/", k, "/outputs/", m, "/terminal"),
+                term(out.target, "/devices/", k, "/outputs/", m, "/target"),
             )
             outputs.append(do)
             douts.append(do)
         setting = d.ratio_setting
         devices[code] = Device(
-            code=code,
-            kind=d.kind,
-            functions=d.functions,
-            ratio_setting=list(setting) if isinstance(setting, tuple) else setting,
-            inputs=tuple(dins),
-            outputs=tuple(douts),
+            code,
+            d.kind,
+            d.functions,
+            list(setting) if isinstance(setting, tuple) else setting,
+            tuple(dins),
+            tuple(douts),
         )
 
     wires: list[Wire] = []
     for k, wire in enumerate(record.wires):
-        where = f"/wires/{k}"
-        a = term(wire.from_terminal, f"{where}/from")
-        b = term(wire.to_terminal, f"{where}/to")
-        wires.append(
-            Wire(
-                index=k,
-                a=a,
-                b=b,
-                r_ohm=_wire_r_ohm(wire, temp_c, where),
-                ends=(terminals[a], terminals[b]),
-            )
-        )
+        ends = (wire.from_terminal, wire.to_terminal)
+        a = known(ends[0]) if ends[0].__class__ is str else None
+        if a is None:
+            a = term(ends[0], "/wires/", k, "/from")
+        b = known(ends[1]) if ends[1].__class__ is str else None
+        if b is None:
+            b = term(ends[1], "/wires/", k, "/to")
+        wires.append(Wire(k, a, b, _wire_r_ohm(wire, temp_c, k), ends))
 
     links: list[Link] = []
     for k, link in enumerate(record.links):
-        where = f"/links/{k}"
-        a = term(link.a, f"{where}/0")
-        b = term(link.b, f"{where}/1")
-        links.append(Link(index=k, a=a, b=b, ends=(terminals[a], terminals[b])))
+        a = term(link.a, "/links/", k, "/0")
+        b = term(link.b, "/links/", k, "/1")
+        links.append(Link(k, a, b, (terminals[a], terminals[b])))
 
-    grounds = tuple(dict.fromkeys(term(g, f"/grounds/{k}") for k, g in enumerate(record.grounds)))
+    grounds = tuple(dict.fromkeys(term(g, "/grounds/", k) for k, g in enumerate(record.grounds)))
 
     switches: dict[str, Switch] = {}
     n_contacts = 0
+    # (positions closed in, the switch's positions) -> the frozenset, checked once per pair
+    closed_sets: dict[tuple[tuple[str, ...], tuple[str, ...]], frozenset[str]] = {}
     for k, s in enumerate(record.switches):
-        where = f"/switches/{k}"
         code = s.code
         positions_s = s.positions or ("closed", "open")
         normal = s.normal or positions_s[0]
         if normal not in positions_s:
-            raise ValueError(f"{where}/normal: {normal!r} is not one of {list(positions_s)}")
+            raise ValueError(f"/switches/{k}/normal: {normal!r} is not one of {list(positions_s)}")
         contacts = []
         for m, contact in enumerate(s.contacts):
             between = contact.between
             if len(between) != 2:
-                raise ValueError(f"{where}/contacts/{m}/between: needs two terminals")
-            closed_in = frozenset(contact.closed_in)
-            unknown = sorted(closed_in - set(positions_s))
-            if unknown:
-                raise ValueError(f"{where}/contacts/{m}/closed_in: unknown positions {unknown}")
+                raise ValueError(f"/switches/{k}/contacts/{m}/between: needs two terminals")
+            pair = (contact.closed_in, positions_s)
+            closed_in = closed_sets.get(pair)
+            if closed_in is None:
+                closed_in = frozenset(contact.closed_in)
+                unknown = sorted(closed_in - set(positions_s))
+                if unknown:
+                    raise ValueError(
+                        f"/switches/{k}/contacts/{m}/closed_in: unknown positions {unknown}"
+                    )
+                closed_sets[pair] = closed_in
             contacts.append(
                 Contact(
-                    index=n_contacts,
-                    a=term(between[0], f"{where}/contacts/{m}/between/0"),
-                    b=term(between[1], f"{where}/contacts/{m}/between/1"),
-                    closed_in=closed_in,
+                    n_contacts,
+                    term(between[0], "/switches/", k, "/contacts/", m, "/between/0"),
+                    term(between[1], "/switches/", k, "/contacts/", m, "/between/1"),
+                    closed_in,
                 )
             )
             n_contacts += 1
