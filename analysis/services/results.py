@@ -8,6 +8,7 @@ the outbox rows the stored results satisfy done.
 from __future__ import annotations
 
 import datetime as dt
+import itertools
 import json
 import logging
 import math
@@ -185,85 +186,86 @@ def _record_failure(
     )
 
 
+# The columns every result table starts with (``_columns`` checks it), then each table's own.
+COMMON_COLUMNS = ("site_id", "site_code", "revision", "computed_at", "run_id")
+CT_CASE_COLUMNS = (
+    "ct",
+    "case",
+    "burden_r_ohm",
+    "burden_x_ohm",
+    "burden_z_ohm",
+    "fault_a",
+    "secondary_fault_a",
+    "x_over_r",
+    "vx_required_v",
+    "vx_available_v",
+    "c37_110_index",
+    "time_to_saturate_ms",
+)
+FINDING_NAMES = ("ct", "device", "input", "circuit", "procedure", "step", "stage")
+
+Row = tuple[Any, ...]
+
+
 def _result_rows(
     results: Mapping[int, Any],
     heads: Mapping[int, tuple[str, int]],
     now: dt.datetime,
     run_id: int | None,
-) -> dict[type[djm.Model], list[dict[str, Any]]]:
-    rows: dict[type[djm.Model], list[dict[str, Any]]] = {m: [] for m in RESULT_MODELS}
+) -> dict[type[djm.Model], list[Row]]:
+    """The rows of every result table for these sites, as tuples in the order of the table's
+    columns (:func:`_columns`): the common ones (site, code, revision, when, run), then the
+    table's own."""
+    rows: dict[type[djm.Model], list[Row]] = {m: [] for m in RESULT_MODELS}
+    ratings, reports, findings = rows[models.CTRating], rows[models.CTReport], rows[models.Finding]
+    verdicts, circuits = rows[models.ProcedureVerdict], rows[models.Circuit]
+    members, computations = rows[models.CircuitMember], rows[models.SiteComputation]
+    case_values = operator.itemgetter(*CT_CASE_COLUMNS)
     for sid, r in results.items():
         code, revision = heads[sid]
-        common = {
-            "site_id": sid,
-            "site_code": code,
-            "revision": revision,
-            "computed_at": now,
-            "run_id": run_id,
-        }
-        rows[models.CTRating] += [{**common, **case} for case in r.ct_cases]
-        rows[models.CTReport] += [
-            {**common, "ct": rep["ct"], "report": rep["report"]} for rep in r.ct_reports
-        ]
-        rows[models.Finding] += [
-            {
-                **common,
-                **{
-                    k: f.get(k)
-                    for k in ("ct", "device", "input", "circuit", "procedure", "step", "stage")
-                },
-                "code": f["code"],
-                "severity": f["severity"],
-                "message": f["message"],
-                "numbers": f.get("numbers") or {},
-            }
-            for f in r.findings
-        ]
-        rows[models.ProcedureVerdict] += [
-            {
-                **common,
-                "procedure": v["procedure"],
-                "safe": bool(v["safe"]),
-                "first_danger": v.get("first_danger"),
-                "verdict": v["verdict"],
-            }
-            for v in r.verdicts
-        ]
-        for c in r.circuits:
-            rows[models.Circuit].append(
-                {**common, "key": c["key"], "ground_points": int(c["ground_points"])}
+        common = (sid, code, revision, now, run_id)
+        ratings += [common + case_values(case) for case in r.ct_cases]
+        reports += [(*common, rep["ct"], rep["report"]) for rep in r.ct_reports]
+        dangers = 0
+        for f in r.findings:
+            findings.append(
+                (
+                    *common,
+                    f["code"],
+                    f["severity"],
+                    *map(f.get, FINDING_NAMES),
+                    f["message"],
+                    f.get("numbers") or {},
+                )
             )
-            members = {("ct", code) for code in c["cts"]} | {
-                ("device", code) for code in c["devices"]
-            }
-            rows[models.CircuitMember] += [
-                {**common, "circuit_key": c["key"], "kind": kind, "code": member}
-                for kind, member in sorted(members)
-            ]
-        dangers = sum(1 for f in r.findings if f["severity"] == "danger")
-        rows[models.SiteComputation].append(
-            {
-                **common,
-                "cts": len(r.ct_reports),
-                "findings": len(r.findings),
-                "dangers": dangers,
-                "verdicts": len(r.verdicts),
-                "unsafe_procedures": sum(1 for v in r.verdicts if not v["safe"]),
-                "circuits": len(r.circuits),
-                "status": models.ComputationStatus.OK,
-                "error": "",
-            }
-        )
+            dangers += f["severity"] == "danger"
+        unsafe = 0
+        for v in r.verdicts:
+            safe = bool(v["safe"])
+            verdicts.append((*common, v["procedure"], safe, v.get("first_danger"), v["verdict"]))
+            unsafe += not safe
+        for c in r.circuits:
+            key = c["key"]
+            circuits.append((*common, key, int(c["ground_points"])))
+            in_circuit = {("ct", ct) for ct in c["cts"]} | {("device", d) for d in c["devices"]}
+            members += [(*common, key, kind, member) for kind, member in sorted(in_circuit)]
+        counts = (len(r.ct_reports), len(r.findings), dangers, len(r.verdicts), unsafe)
+        status = (models.ComputationStatus.OK, "")
+        computations.append((*common, *status, *counts, len(r.circuits)))
     return rows
 
 
 def _columns(model: type[djm.Model]) -> list[djm.Field]:
-    return [f for f in model._meta.concrete_fields if not f.primary_key]
+    fields = [f for f in model._meta.concrete_fields if not f.primary_key]
+    if tuple(f.attname for f in fields[: len(COMMON_COLUMNS)]) != COMMON_COLUMNS:
+        raise TypeError(f"{model.__name__}: a result table starts with {COMMON_COLUMNS}")
+    return fields
 
 
-def _insert(model: type[djm.Model], rows: list[dict[str, Any]], *, table: str = "") -> None:
-    """Insert rows: one COPY on PostgreSQL (psycopg 3), ``bulk_create`` elsewhere. ``table``
-    overrides the model's table (PostgreSQL only; the benchmark copies into a twin).
+def _insert(model: type[djm.Model], rows: list[Row], *, table: str = "") -> None:
+    """Insert rows (tuples in the order of :func:`_columns`): one COPY on PostgreSQL
+    (psycopg 3), ``bulk_create`` elsewhere. ``table`` overrides the model's table (PostgreSQL
+    only; the benchmark copies into a twin).
 
     Stored results are served as JSON, which has no infinity or NaN: a non-finite number in a
     float column or a JSON document raises ``ValueError`` (on every database alike), and the
@@ -271,17 +273,16 @@ def _insert(model: type[djm.Model], rows: list[dict[str, Any]], *, table: str = 
     if not rows:
         return
     fields = _columns(model)
-    float_names = [f.attname for f in fields if isinstance(f, djm.FloatField)]
-    if float_names:
-        _check_finite(model, rows, float_names)
+    float_at = [i for i, f in enumerate(fields) if isinstance(f, djm.FloatField)]
+    if float_at:
+        _check_finite(model, rows, fields, float_at)
+    attnames = [f.attname for f in fields]
+    json_at = [i for i, f in enumerate(fields) if isinstance(f, djm.JSONField)]
     if connection.vendor == "postgresql":
         names = ", ".join(connection.ops.quote_name(f.column) for f in fields)
         table = connection.ops.quote_name(table or model._meta.db_table)
         # COPY goes to psycopg directly: wrap its errors as Django's, so a lost connection is
         # a django.db.OperationalError (retried) and the connection is known to be broken.
-        attnames = [f.attname for f in fields]
-        json_at = [i for i, f in enumerate(fields) if isinstance(f, djm.JSONField)]
-        pick = operator.itemgetter(*attnames)
         dumps = _dumps
         with (
             connection.wrap_database_errors,
@@ -289,17 +290,22 @@ def _insert(model: type[djm.Model], rows: list[dict[str, Any]], *, table: str = 
             cursor.copy(f"COPY {table} ({names}) FROM STDIN") as copy,
         ):
             write = copy.write_row
-            for row in rows:
-                values = list(pick(row))
-                for i in json_at:
-                    values[i] = dumps(model, attnames[i], values[i])
-                write(values)
+            if not json_at:
+                for row in rows:
+                    write(row)
+            else:
+                for row in rows:
+                    values = list(row)
+                    for i in json_at:
+                        values[i] = dumps(model, attnames[i], values[i])
+                    write(values)
     else:
-        json_names = [f.attname for f in fields if isinstance(f, djm.JSONField)]
         for row in rows:
-            for name in json_names:
-                _dumps(model, name, row[name])
-        model._default_manager.bulk_create([model(**row) for row in rows], batch_size=500)
+            for i in json_at:
+                _dumps(model, attnames[i], row[i])
+        model._default_manager.bulk_create(
+            [model(**dict(zip(attnames, row, strict=True))) for row in rows], batch_size=500
+        )
 
 
 def _dumps(model: type[djm.Model], name: str, value: Any) -> str:
@@ -313,12 +319,20 @@ def _dumps(model: type[djm.Model], name: str, value: Any) -> str:
         ) from None
 
 
-def _check_finite(model: type[djm.Model], rows: list[dict[str, Any]], names: list[str]) -> None:
+def _check_finite(
+    model: type[djm.Model], rows: list[Row], fields: list[djm.Field], at: list[int]
+) -> None:
+    """Raise ``ValueError`` naming the column when a float column of ``rows`` holds infinity
+    or NaN. All rows at once (None and 0 left out, both fine); the row is looked for only when
+    one is found."""
     isfinite = math.isfinite
+    pick = operator.itemgetter(*at) if len(at) > 1 else lambda row: (row[at[0]],)
+    if all(map(isfinite, filter(None, itertools.chain.from_iterable(map(pick, rows))))):
+        return
     for row in rows:
-        for name in names:
-            value = row[name]
+        for i in at:
+            value = row[i]
             if value is not None and not isfinite(value):
                 raise ValueError(
-                    f"{model._meta.model_name}.{name} is {value} (not a finite number)"
+                    f"{model._meta.model_name}.{fields[i].attname} is {value} (not a finite number)"
                 )

@@ -204,6 +204,37 @@ def test_recompute_twice_gives_the_same_rows_and_counts_once(django_capture_on_c
     assert len(rows["CTRating"]) == len(doc_results.ct_cases)
 
 
+def test_stored_rows_hold_the_engines_values_column_by_column():
+    """The writer builds its rows as tuples in column order: each value lands in its column."""
+    with services.recompute_deferred():
+        site_import(doc=small_site())
+    site = inv.Site.objects.get(code="TST")
+    services.chunk_recompute(run_id=None, index=0, site_ids=[site.pk], force=True)
+    engine = compute_sites({site.pk: small_site()})[site.pk]
+    cases = list(
+        models.CTRating.objects.filter(site_id=site.pk).order_by("id").values(*engine.ct_cases[0])
+    )
+    assert cases == engine.ct_cases
+    names = ("code", "severity", "ct", "device", "input", "circuit", "procedure", "step", "stage")
+    stored = models.Finding.objects.filter(site_id=site.pk).order_by("id")
+    assert [(*(getattr(f, n) for n in names), f.message, f.numbers) for f in stored] == [
+        (*(f.get(n) for n in names), f["message"], f["numbers"]) for f in engine.findings
+    ]
+    verdicts = models.ProcedureVerdict.objects.filter(site_id=site.pk).order_by("id")
+    assert [(v.procedure, v.safe, v.first_danger, v.verdict) for v in verdicts] == [
+        (v["procedure"], v["safe"], v["first_danger"], v["verdict"]) for v in engine.verdicts
+    ]
+    computation = models.SiteComputation.objects.get(site_id=site.pk)
+    assert (computation.status, computation.error) == ("ok", "")
+    assert computation.revision == site.revision
+    assert (computation.cts, computation.findings, computation.circuits) == (
+        len(engine.ct_reports),
+        len(engine.findings),
+        len(engine.circuits),
+    )
+    assert computation.dangers == sum(f["severity"] == "danger" for f in engine.findings)
+
+
 def test_unchanged_site_is_skipped_without_force(django_capture_on_commit_callbacks):
     site = _import(small_site(), django_capture_on_commit_callbacks)
     computed_at = models.SiteComputation.objects.get(site_id=site.pk).computed_at

@@ -9,6 +9,7 @@ In-process (the embedded default), so these run on SQLite and on PostgreSQL alik
 from __future__ import annotations
 
 import pytest
+from django.db import transaction
 from rest_framework.test import APIClient
 
 from analysis import models, selectors, services
@@ -160,17 +161,24 @@ def test_a_later_good_recompute_clears_the_failure(
 
 def test_writer_refuses_non_finite_numbers_on_every_database(three_sites):
     site = three_sites["AAA"]
-    row = {
-        "site_id": site.pk,
-        "site_code": "AAA",
-        "revision": 1,
-        "computed_at": "2026-01-01T00:00:00Z",
-        "run_id": None,
-        "ct": "CB-1-A",
-        "report": {"index": float("nan")},
-    }
-    with pytest.raises(ValueError, match=r"ctreport.report holds a number that is not a finite"):
+    # (site, code, revision, computed at, run, then the table's own columns)
+    common = (site.pk, "AAA", 1, "2026-01-01T00:00:00Z", None)
+    row = (*common, "CB-1-A", {"index": float("nan")})
+    # each in a savepoint, as the writer does (a COPY refused midway aborts the transaction)
+    with (
+        pytest.raises(ValueError, match=r"ctreport.report holds a number that is not a finite"),
+        transaction.atomic(),
+    ):
         results_writer._insert(models.CTReport, [row])
+    rating = (*common, "CB-1-A", "ground_fault", 0.5, 0.0, 0.5, 12000.0, 100.0, 12.0)
+    rating += (float("inf"), 400.0, 0.0, None)
+    stored = models.CTRating.objects.count()
+    with (
+        pytest.raises(ValueError, match=r"ctrating.vx_required_v is inf \(not a finite"),
+        transaction.atomic(),
+    ):
+        results_writer._insert(models.CTRating, [rating])
+    assert models.CTRating.objects.count() == stored  # refused before anything is written
 
 
 # ---------------------------------------------------------------------------------------------
