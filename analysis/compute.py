@@ -14,8 +14,19 @@ import record as rec
 from analysis import engine
 from analysis.engine import ratings
 from analysis.engine.findings import PROCEDURE_UNCHECKED, SEVERITY, Finding
+from record.gcpause import gc_paused
 
 CASES = ("ground_fault", "phase_fault")
+# The values of a CT case row besides its burden (keys of the report's case, columns of CTRating).
+CASE_VALUES = (
+    "fault_a",
+    "secondary_fault_a",
+    "x_over_r",
+    "vx_required_v",
+    "vx_available_v",
+    "c37_110_index",
+    "time_to_saturate_ms",
+)
 
 
 @dataclass
@@ -95,7 +106,13 @@ def ct_report(source: Source, ct_code: str) -> dict[str, Any]:
 
 def compute_site(source: Source) -> SiteResults:
     """Burdens, ratings, static and normal-state findings, circuits and procedure verdicts of
-    one site."""
+    one site (the garbage collector held off meanwhile, ``record.gcpause``: the engine
+    allocates some hundred thousand small objects per site)."""
+    with gc_paused():
+        return _compute_site(source)
+
+
+def _compute_site(source: Source) -> SiteResults:
     out = SiteResults()
     record = rec.as_record(source)
     netlist = engine.build_netlist(record)
@@ -124,18 +141,7 @@ def compute_site(source: Source) -> SiteResults:
                     "burden_r_ohm": burden.get("r"),
                     "burden_x_ohm": burden.get("x"),
                     "burden_z_ohm": burden.get("z"),
-                    **{
-                        k: values.get(k)
-                        for k in (
-                            "fault_a",
-                            "secondary_fault_a",
-                            "x_over_r",
-                            "vx_required_v",
-                            "vx_available_v",
-                            "c37_110_index",
-                            "time_to_saturate_ms",
-                        )
-                    },
+                    **{k: values.get(k) for k in CASE_VALUES},
                 }
             )
     for f in rated.findings:

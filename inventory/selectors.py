@@ -7,11 +7,9 @@ and the fleet recompute read through it, and the export (``site_documents``) ser
 
 from __future__ import annotations
 
-import contextlib
-import gc
 import json
 from collections import defaultdict
-from collections.abc import Callable, Iterable, Iterator, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from typing import Any
 
 from django.db import connection
@@ -20,6 +18,7 @@ from django.db.models.functions import Abs
 
 import record as rec
 from inventory import models
+from record.gcpause import gc_paused
 
 # The site file's number form (integral floats as integers), used by the API too.
 num = rec.document.num
@@ -127,22 +126,6 @@ def site_by_code(code: str) -> models.Site:
     return models.Site.objects.get(code=code)
 
 
-@contextlib.contextmanager
-def _gc_paused() -> Iterator[None]:
-    """The cyclic garbage collector held off while a read builds its records. A fleet chunk
-    makes a few hundred thousand tuples and frozen dataclasses, none of them in a cycle, and
-    the collections their allocation triggers (each young one traversing everything still
-    young, the old ones the whole heap) cost as much as building them. Reference counting
-    still frees everything as usual; the collector runs again as soon as the read ends."""
-    was_enabled = gc.isenabled()
-    gc.disable()
-    try:
-        yield
-    finally:
-        if was_enabled:
-            gc.enable()
-
-
 def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
     """The typed records of the given sites, keyed by site id, in the canonical order the export
     writes (codes sorted; wires, links and contacts in the order they were recorded). One query
@@ -151,7 +134,7 @@ def site_records(site_ids: Iterable[int]) -> dict[int, rec.SiteRecord]:
     wanted = sorted(set(site_ids))
     if not wanted:
         return {}
-    with _gc_paused():
+    with gc_paused():  # the rows make some hundred thousand objects, none in a cycle
         return _site_records(wanted)
 
 

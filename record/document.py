@@ -16,6 +16,7 @@ from dataclasses import replace
 from datetime import UTC, datetime
 from typing import Any
 
+from record.gcpause import gc_paused
 from record.model import (
     CT,
     DEFAULT_DESIGN_TEMP_C,
@@ -215,6 +216,11 @@ def record_from_document(doc: Mapping[str, Any]) -> SiteRecord:
     ``inventory.sitefile.validate_site_document``). Raises ``RecordError`` naming the JSON
     pointer of a part that has no typed form (a procedure step that is no operation, a link
     that is not two terminals)."""
+    with gc_paused():  # some thousand small frozen objects, none in a cycle
+        return _record_from_document(doc)
+
+
+def _record_from_document(doc: Mapping[str, Any]) -> SiteRecord:
     site = doc.get("site") or {}
     temp = site.get("design_temp_c")
     return SiteRecord(

@@ -22,6 +22,7 @@ from django.db import models as djm
 from django.utils import timezone
 
 from analysis import models
+from analysis.compute import CASE_VALUES
 from analysis.engine.findings import DANGER
 from inventory.changes import changes_done
 from inventory.models import Site
@@ -188,20 +189,7 @@ def _record_failure(
 
 # The columns every result table starts with (``_columns`` checks it), then each table's own.
 COMMON_COLUMNS = ("site_id", "site_code", "revision", "computed_at", "run_id")
-CT_CASE_COLUMNS = (
-    "ct",
-    "case",
-    "burden_r_ohm",
-    "burden_x_ohm",
-    "burden_z_ohm",
-    "fault_a",
-    "secondary_fault_a",
-    "x_over_r",
-    "vx_required_v",
-    "vx_available_v",
-    "c37_110_index",
-    "time_to_saturate_ms",
-)
+CT_CASE_COLUMNS = ("ct", "case", "burden_r_ohm", "burden_x_ohm", "burden_z_ohm", *CASE_VALUES)
 FINDING_NAMES = ("ct", "device", "input", "circuit", "procedure", "step", "stage")
 
 Row = tuple[Any, ...]
