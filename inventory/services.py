@@ -14,19 +14,27 @@ import hashlib
 import math
 import re
 import uuid
-from collections.abc import Callable, Hashable, Iterable
+from collections import Counter
+from collections.abc import Callable, Hashable, Iterable, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
 from django.core.exceptions import ValidationError
 from django.db import connection, transaction
 from django.db import models as djm
-from django.db.models import F, Q
+from django.db.models import Case, F, Q, Value, When
 from django.utils import timezone
 
 from inventory import models
 from inventory.changes import change_record
-from inventory.sitefile.importer import ImportResult, SiteImportError, upsert_site
+from inventory.sitefile.importer import (
+    LOOK_UP,
+    ImportResult,
+    SiteImportError,
+    new_row_counts,
+    upsert_site,
+)
+from inventory.sitefile.rowsync import NewRows
 
 __all__ = [
     "ImportResult",
@@ -35,6 +43,7 @@ __all__ = [
     "sheet_import",
     "site_import",
     "site_record_change",
+    "sites_import",
 ]
 
 
@@ -51,23 +60,90 @@ def site_import(*, doc: dict, dry_run: bool = False, user: Any = None) -> Import
     written by ``inventory.sitefile.importer``; a changed site gets a new revision and a
     recompute request in the same transaction.
     """
+    return _import([(None, doc)], dry_run=dry_run, user=user)[0]
+
+
+def sites_import(
+    *, docs: Sequence[tuple[str, dict]], dry_run: bool = False, user: Any = None
+) -> list[ImportResult]:
+    """Validate and upsert several site documents in one transaction: a chunk of a bulk load
+    (``bench_import``, ``generate_fleet``), each ``(name, document)`` with the name of its
+    site file. Each site is imported exactly as :func:`site_import` would (the same checks,
+    rows, history and recompute request), with the round trips of the chunk shared: the new
+    rows of all its sites go in by one COPY per table.
+
+    Every document is validated before anything is written; ``SiteImportError`` lists the
+    errors of all of them, each as ``name: JSON-pointer: what is wrong``, and nothing of the
+    chunk is written (likewise when the database refuses any of it).
+    """
+    return _import(list(docs), dry_run=dry_run, user=user)
+
+
+def _import(docs: list[tuple[str | None, dict]], *, dry_run: bool, user: Any) -> list[ImportResult]:
     from inventory.sitefile.validate import validate_site_document
 
-    errors = validate_site_document(doc)
+    def named(name: str | None, errors: Iterable[Any]) -> list[str]:
+        return [str(e) if name is None else f"{name}: {e}" for e in errors]
+
+    errors: list[str] = []
+    for name, doc in docs:
+        errors += named(name, validate_site_document(doc))
     if errors:
         raise SiteImportError(errors)
-    result = ImportResult(site=doc["site"]["code"], dry_run=dry_run)
+    results = [ImportResult(site=doc["site"]["code"], dry_run=dry_run) for _, doc in docs]
+    codes = {result.site for result in results}
     try:
         with transaction.atomic():
-            _lock_site_code(result.site)
-            site_id = upsert_site(doc, result, user)
-            if result.changed:
-                site_record_change(site_id=site_id)
+            _lock_site_codes(codes)
+            stored = {
+                site.code: site
+                for site in models.Site.objects.select_for_update().filter(code__in=codes)
+            }
+            new = NewRows(user)
+            # The ids of every row of the new sites, in one query.
+            wanted: Counter = Counter()
+            for code, doc in {doc["site"]["code"]: doc for _, doc in docs}.items():
+                if code not in stored:
+                    wanted.update(new_row_counts(doc))
+            new.reserve(dict(wanted))
+            site_ids: list[int] = []
+            for (name, doc), result in zip(docs, results, strict=True):
+                site: Any = stored.get(result.site)
+                if result.site in codes:
+                    codes.discard(result.site)
+                else:  # the site again: its second import reads what the first wrote
+                    new.flush()
+                    site = LOOK_UP
+                try:
+                    site_ids.append(upsert_site(doc, result, user, new=new, site=site))
+                except SiteImportError as exc:
+                    raise SiteImportError(named(name, exc.errors)) from exc
+            new.flush()
+            _sites_record_change(
+                [site_id for site_id, r in zip(site_ids, results, strict=True) if r.changed]
+            )
             if dry_run:
                 raise _DryRunRollback
     except _DryRunRollback:
         pass
-    return result
+    return results
+
+
+def _sites_record_change(site_ids: list[int]) -> None:
+    """:func:`site_record_change` for several sites: their revisions go up in one statement."""
+    if len(set(site_ids)) < len(site_ids):  # a site imported twice goes up twice
+        for site_id in site_ids:
+            site_record_change(site_id=site_id)
+        return
+    if len(site_ids) > 1:
+        keys = [When(pk=site_id, then=Value(uuid.uuid4())) for site_id in site_ids]
+        models.Site.objects.filter(pk__in=site_ids).update(
+            revision=F("revision") + 1, record_key=Case(*keys, output_field=djm.UUIDField())
+        )
+    elif site_ids:
+        _bump_revision(site_ids[0])
+    for site_id in site_ids:
+        change_record(site_id=site_id)
 
 
 def sheet_import(
@@ -96,20 +172,29 @@ def sheet_import(
     )
 
 
-def _lock_site_code(code: str) -> None:
+def _lock_site_codes(codes: Iterable[str]) -> None:
     """Imports of one site code take turns, even before the site exists: two first imports
     of a new site would otherwise both insert it and one would fail on the unique code. A
-    transaction-scoped advisory lock on PostgreSQL (released at commit or rollback); SQLite
-    serialises writers anyway."""
+    transaction-scoped advisory lock per code on PostgreSQL (released at commit or rollback),
+    taken in the order of the keys, so two chunks that share codes cannot wait for each other
+    in a circle; SQLite serialises writers anyway."""
     if connection.vendor != "postgresql":
         return
-    key = int.from_bytes(
-        hashlib.blake2b(f"loopkeep.site:{code}".encode(), digest_size=8).digest(),
-        "big",
-        signed=True,
+    keys = sorted(
+        int.from_bytes(
+            hashlib.blake2b(f"loopkeep.site:{code}".encode(), digest_size=8).digest(),
+            "big",
+            signed=True,
+        )
+        for code in codes
     )
+    lock = "SELECT pg_advisory_xact_lock(%s)"
     with connection.cursor() as cursor:
-        cursor.execute("SELECT pg_advisory_xact_lock(%s)", [key])
+        if connection.settings_dict.get("OPTIONS", {}).get("server_side_binding"):
+            for key in keys:
+                cursor.execute(lock, [key])
+        else:  # one round trip: the statements run one after the other, in this order
+            cursor.execute(";".join([lock] * len(keys)), keys)
 
 
 def site_record_change(*, site_id: int) -> None:
@@ -117,10 +202,14 @@ def site_record_change(*, site_id: int) -> None:
     up (every result computed from the old revision is stale from the moment this commits) and
     the change is recorded in the outbox (``inventory.changes``), whose consumers (the
     analysis) schedule the recompute for when the transaction commits."""
+    _bump_revision(site_id)
+    change_record(site_id=site_id)
+
+
+def _bump_revision(site_id: int) -> None:
     models.Site.objects.filter(pk=site_id).update(
         revision=F("revision") + 1, record_key=uuid.uuid4()
     )
-    change_record(site_id=site_id)
 
 
 @transaction.atomic

@@ -69,4 +69,7 @@ def item_schema(schema: dict, section: str) -> dict:
 def fast_path_allowed(text: str | None) -> bool:
     """Whether the gate may decide for a document with this JSON text (from
     :func:`plain_json`)."""
-    return text is not None and not any(s in text for s in _SPACE_DISAGREEMENTS)
+    if text is None:
+        return False
+    # All of them are escapes; most documents have none at all.
+    return "\\u" not in text or not any(s in text for s in _SPACE_DISAGREEMENTS)

@@ -24,7 +24,7 @@ from django.utils.dateparse import parse_datetime
 
 from inventory import models
 from inventory.sitefile import rowsync
-from inventory.sitefile.rowsync import Row, RowSync, numbered
+from inventory.sitefile.rowsync import NewRows, Row, RowSync, numbered
 
 
 class SiteImportError(ValueError):
@@ -116,22 +116,102 @@ _CODED_SECTIONS: tuple[tuple[type[djm.Model], str], ...] = (
 )
 
 
-def upsert_site(doc: dict, result: ImportResult, user: Any, *, source: str = "site import") -> int:
+# ``upsert_site(site=LOOK_UP)``: the site is read (and locked) by the upsert itself.
+LOOK_UP: Any = object()
+
+
+def new_row_counts(doc: dict) -> dict[type[djm.Model], int]:
+    """The rows of each model the import of a valid ``doc`` writes when its site is new (the
+    tap changes at most; the terminals are the points the document names), so that their ids
+    can be taken ahead, for several sites in one query."""
+    cts = doc.get("cts", [])
+    devices = doc.get("devices", [])
+    switches = doc.get("switches", [])
+    points = {f"{c['code']}:{name}" for c in cts for name in c["terminals"]}
+    for d in devices:
+        for inp in d.get("inputs", []):
+            points.add(inp["from"])
+            points.add(inp["to"])
+        for out in d.get("outputs", []):
+            points.add(out["terminal"])
+            points.add(out["target"])
+    for w in doc.get("wires", []):
+        points.add(w["from"])
+        points.add(w["to"])
+    for link in doc.get("links", []):
+        points.update(link)
+    points.update(doc.get("grounds", []))
+    for s in switches:
+        for contact in s.get("contacts", []):
+            points.update(contact["between"])
+    events = [len(c["tap_changes"]) for c in cts if c.get("tap_changes")]
+    return {
+        models.Site: 1,
+        **{model: len(doc.get(section, [])) for model, section in _CODED_SECTIONS},
+        models.Terminal: len(points),
+        # each recorded event, and a change now where the last one left another tap
+        models.TapChange: sum(events) + len(events),
+        models.DeviceInput: sum(len(d.get("inputs", [])) for d in devices),
+        models.DeviceOutput: sum(len(d.get("outputs", [])) for d in devices),
+        models.Wire: len(doc.get("wires", [])),
+        models.Link: len(doc.get("links", [])),
+        models.Ground: len(set(doc.get("grounds", []))),
+        models.SwitchPosition: sum(len(s["positions"]) for s in switches),
+        models.SwitchContact: sum(len(s.get("contacts", [])) for s in switches),
+        models.ProcedureStep: sum(len(p["steps"]) for p in doc.get("procedures", [])),
+    }
+
+
+def upsert_site(
+    doc: dict,
+    result: ImportResult,
+    user: Any,
+    *,
+    source: str = "site import",
+    new: NewRows | None = None,
+    site: Any = LOOK_UP,
+) -> int:
     """Upsert the site a valid document describes (in the caller's transaction); its id.
-    ``source`` names the door in the tap changes an import records (``site import``)."""
-    return _SiteUpsert(doc, result, user, source).run()
+    ``source`` names the door in the tap changes an import records (``site import``).
+
+    With ``new`` (the new rows of several sites imported in one transaction) the new rows wait
+    there and the caller writes them with ``new.flush()`` before anything reads them or the
+    site's change is recorded; without it they are written before this returns. ``site`` is
+    the stored site when the caller has already read it with its lock (None: a new site, whose
+    rows' ids the caller has reserved with :func:`new_row_counts`)."""
+    upsert = _SiteUpsert(doc, result, user, source, new, site)
+    site_id = upsert.run()
+    if new is None:
+        upsert.sync.new.flush()
+    return site_id
 
 
 class _SiteUpsert:
     """One import of one site: the sections in dependency order, each a method."""
 
-    def __init__(self, doc: dict, result: ImportResult, user: Any, source: str) -> None:
+    def __init__(
+        self,
+        doc: dict,
+        result: ImportResult,
+        user: Any,
+        source: str,
+        new: NewRows | None,
+        site: Any = LOOK_UP,
+    ) -> None:
         self.doc = doc
+        # The stored site when the caller has read it (locked), None for a new one.
+        self.known = site
+        # A caller that shares ``new`` takes the ids of new sites for all of them at once.
+        self.reserve = new is None
         self.source = source
         self.result = result
         self.user = user
         self.sync = RowSync(
-            user=user, created=result.created, updated=result.updated, deleted=result.deleted
+            user=user,
+            created=result.created,
+            updated=result.updated,
+            deleted=result.deleted,
+            new=new,
         )
         self.sid = 0
         self.fresh = False  # a new site: nothing stored to compare with
@@ -143,10 +223,8 @@ class _SiteUpsert:
     def run(self) -> int:
         self.site()
         doc = self.doc
-        if self.fresh:  # every row is new: take the ids of the coded objects in one go
-            self.sync.new.reserve(
-                {model: len(doc.get(section, [])) for model, section in _CODED_SECTIONS}
-            )
+        if self.fresh and self.reserve:  # every row is new: take all their ids in one go
+            self.sync.new.reserve(new_row_counts(doc))
         buses = self.coded(models.Bus, "buses", self.bus_row)
         self.equipment = self.coded(
             models.Equipment, "equipment", lambda e: self.equipment_row(e, buses)
@@ -168,22 +246,6 @@ class _SiteUpsert:
         old_terminals = self.stored(models.Terminal, site_id=self.sid)
         self.ct_terminals()
         refs = self.references()
-        if self.fresh:  # ...and of the rows that join terminals in another
-            self.sync.new.reserve(
-                {
-                    models.Terminal: len(self.terminals),
-                    models.DeviceInput: len(refs["inputs"]),
-                    models.DeviceOutput: len(refs["outputs"]),
-                    models.Wire: len(refs["wires"]),
-                    models.Link: len(refs["links"]),
-                    models.Ground: len(set(refs["grounds"])),
-                    models.SwitchPosition: sum(
-                        len(s["positions"]) for s in doc.get("switches", [])
-                    ),
-                    models.SwitchContact: len(refs["contacts"]),
-                    models.ProcedureStep: sum(len(p["steps"]) for p in doc.get("procedures", [])),
-                }
-            )
         self.sync_terminals(old_terminals)
         self.tap_changes(old_terminals)
         self.device_inputs(refs["inputs"])
@@ -194,7 +256,6 @@ class _SiteUpsert:
         self.switch_positions()
         self.switch_contacts(refs["contacts"])
         self.procedure_steps()
-        self.sync.new.flush()
         self.drop_removed()
         return self.sid
 
@@ -202,7 +263,9 @@ class _SiteUpsert:
 
     def site(self) -> None:
         data = self.doc["site"]
-        site = models.Site.objects.select_for_update().filter(code=data["code"]).first()
+        site = self.known
+        if site is LOOK_UP:
+            site = models.Site.objects.select_for_update().filter(code=data["code"]).first()
         values = {
             "name": data["name"],
             "design_temp_c": float(data.get("design_temp_c", 75)),
@@ -210,10 +273,15 @@ class _SiteUpsert:
         }
         if site is None:
             self.fresh = True
-            site = models.Site(code=data["code"], **values)
-            site.save()
+            # Written with the rest of the new rows (revision 1, a fresh record key: the
+            # model's defaults), and its history row with theirs.
+            new = models.Site(code=data["code"], **values)
+            row = {f.attname: getattr(new, f.attname) for f in rowsync.fields(models.Site)}
+            row["updated_at"] = timezone.now()
+            (self.sid,) = self.sync.new.insert(models.Site, [row])
             self.result.created["sites"] += 1
-        elif any(getattr(site, k) != v for k, v in values.items()):
+            return
+        if any(getattr(site, k) != v for k, v in values.items()):
             for k, v in values.items():
                 setattr(site, k, v)
             site.save()

@@ -16,6 +16,7 @@ deletes go through the ORM so that its signals record them.
 from __future__ import annotations
 
 import json
+import operator
 from collections import Counter
 from collections.abc import Callable, Hashable, Iterable
 from typing import Any
@@ -54,11 +55,31 @@ def numbered(pairs: Iterable[tuple]) -> list[tuple]:
 _PREPARED = frozenset({"JSONField", "DateTimeField", "DateField", "DecimalField", "UUIDField"})
 
 
-def _preparers(fields: list[djm.Field]) -> list[Callable[[Any], Any] | None]:
+def fields(model: type[djm.Model]) -> list[djm.Field]:
+    """A model's concrete fields but its primary key, in column order."""
+    return [f for f in model._meta.concrete_fields if not f.primary_key]
+
+
+def _preparers(model: type[djm.Model]) -> list[Callable[[Any], Any] | None]:
+    """Per column (primary key first), how a value is made ready for the driver, if it must."""
+
     def prep(f: djm.Field) -> Callable[[Any], Any]:
         return lambda value: f.get_db_prep_save(value, connection)
 
-    return [prep(f) if f.get_internal_type() in _PREPARED else None for f in fields]
+    def as_json(f: djm.JSONField) -> Callable[[Any], Any]:
+        # COPY sends text, which the server reads with the column's type: JSON text is all
+        # a json column needs, without a round through the driver's adapter per value.
+        encoder = f.encoder
+        return lambda value: None if value is None else json.dumps(value, cls=encoder)
+
+    return [
+        as_json(f)
+        if isinstance(f, djm.JSONField)
+        else prep(f)
+        if f.get_internal_type() in _PREPARED
+        else None
+        for f in (model._meta.pk, *fields(model))
+    ]
 
 
 def _prepared(values: list[tuple], preparers: list[Callable[[Any], Any] | None]) -> list[tuple]:
@@ -97,30 +118,40 @@ def _copy(table: str, names: list[str], values: list[tuple]) -> None:
 
 
 class NewRows:
-    """Inserts the new rows of one import and their ``+`` history rows.
+    """Inserts the new rows of one import (one site, or a chunk of sites in one transaction)
+    and their ``+`` history rows.
 
-    Round trips are what a loaded server makes expensive, so on PostgreSQL ids for several
-    tables come from their sequences in one query (:meth:`reserve`, when the counts are known
-    ahead; unused ids are only a gap in a sequence), the rows go in by one ``COPY`` per table,
-    and the history rows, copied by the database from the rows themselves (the values never
-    travel twice), wait for :meth:`flush` to go in one batch of statements.
+    Round trips and statements are what a loaded server makes expensive, so on PostgreSQL ids
+    for several tables come from their sequences in one query (:meth:`reserve`, when the counts
+    are known ahead; unused ids are only a gap in a sequence) and the rows wait in memory, by
+    table, for :meth:`flush`: one ``COPY`` per table for everything the import inserted, then
+    the history rows, copied by the database from the rows themselves (the values never travel
+    twice), in one batch of statements. Nothing reads a new row back before the flush (the
+    importer reads the stored rows of a table before it writes any), and the foreign keys are
+    checked at commit, so the order of the tables does not matter. Elsewhere (SQLite, the
+    embedded default) ``bulk_create`` writes the rows at once and returns their ids.
     """
 
     def __init__(self, user: Any) -> None:
         self.postgres = connection.vendor == "postgresql"
         self.user_id = _history_user_id(user)
         self.reserved: dict[type[djm.Model], list[int]] = {}
-        self.pending: list[tuple[str, list[Any]]] = []
+        # Model -> rows waiting for the COPY (prepared values, primary key first), and the ids
+        # of the rows written or waiting whose history rows are still to write.
+        self.rows: dict[type[djm.Model], list[tuple]] = {}
+        self.ids: dict[type[djm.Model], list[int]] = {}
 
     def reserve(self, counts: dict[type[djm.Model], int]) -> None:
         """Take ids for the given numbers of new rows per model, in one query (PostgreSQL)."""
         counts = {m: n for m, n in counts.items() if n > 0}
         if not self.postgres or not counts:
             return
-        # The sequence is looked up once per table (in the lateral subquery), not per value.
+        # The sequence is looked up once per table: ``OFFSET 0`` keeps the planner from
+        # pulling the lookup into the series, where it would run once per value (ten times
+        # the cost of the ids themselves).
         arrays = ", ".join(
             "ARRAY(SELECT nextval(q.seq) FROM (SELECT pg_get_serial_sequence(%s, %s)::regclass"
-            " AS seq) q, generate_series(1, %s))"
+            " AS seq OFFSET 0) q, generate_series(1, %s))"
             for _ in counts
         )
         params = [
@@ -143,36 +174,31 @@ class NewRows:
 
     def insert(self, model: type[djm.Model], rows: list[Row]) -> list[int]:
         """Insert ``rows`` (column attname -> value, no primary key); their new primary keys,
-        in order. Their history rows are written by :meth:`flush`."""
+        in order. On PostgreSQL the rows are written by :meth:`flush`; their history rows are,
+        everywhere."""
         if not rows:
             return []
-        pk = model._meta.pk
-        fields = [f for f in model._meta.concrete_fields if not f.primary_key]
         if self.postgres:
             ids = self._ids(model, len(rows))
-            names = [f.attname for f in fields]
-            values = _prepared(
-                [(i, *(row[n] for n in names)) for i, row in zip(ids, rows, strict=True)],
-                _preparers([pk, *fields]),
-            )
-            _copy(model._meta.db_table, [pk.column, *(f.column for f in fields)], values)
+            take = operator.itemgetter(*(f.attname for f in fields(model)))
+            if len(fields(model)) == 1:
+                values = [(i, take(row)) for i, row in zip(ids, rows, strict=True)]
+            else:
+                values = [(i, *take(row)) for i, row in zip(ids, rows, strict=True)]
+            self.rows.setdefault(model, []).extend(_prepared(values, _preparers(model)))
         else:
             created = model.objects.bulk_create([model(**row) for row in rows])
             ids = [row.pk for row in created]
             if ids and ids[0] is None:
                 raise RuntimeError(f"bulk create of {model.__name__} returned no primary keys")
-        self._history(model, ids)
+        self.ids.setdefault(model, []).extend(ids)
         return ids
 
-    def _history(self, model: type[djm.Model], ids: list[int]) -> None:
+    def _history(self, model: type[djm.Model], ids: list[int], stamp: Any) -> tuple[str, list]:
         history = model.history.model
-        columns = [
-            history._meta.get_field(f.name).column
-            for f in model._meta.concrete_fields
-            if not f.primary_key
-        ]
-        if self.postgres:
-            chosen, id_list = "= ANY(%s)", ids
+        columns = [history._meta.get_field(f.name).column for f in fields(model)]
+        if self.postgres:  # the ids as one array literal (the driver's list adapter is slow)
+            chosen, id_list = "= ANY(%s::bigint[])", "{" + ",".join(map(str, ids)) + "}"
         else:  # SQLite: the ids as one JSON array parameter, read back by json_each
             chosen, id_list = "IN (SELECT value FROM json_each(%s))", json.dumps(ids)
         pk = _quote(model._meta.pk.column)
@@ -183,41 +209,56 @@ class NewRows:
             f"SELECT {pk}, {names}, %s, NULL, '+', %s FROM {_quote(model._meta.db_table)} "
             f"WHERE {pk} {chosen} ORDER BY {pk}"
         )
-        date = history._meta.get_field("history_date")
-        stamp = date.get_db_prep_save(timezone.now(), connection)
-        self.pending.append((sql, [stamp, self.user_id, id_list]))
+        return sql, [stamp, self.user_id, id_list]
 
     def flush(self) -> None:
-        """Write the history rows of everything inserted so far."""
-        if not self.pending:
+        """Write the rows waiting (PostgreSQL) and the history rows of everything inserted
+        so far: one COPY per table, then one statement per table for the history."""
+        for model, values in self.rows.items():
+            pk = model._meta.pk
+            _copy(model._meta.db_table, [pk.column, *(f.column for f in fields(model))], values)
+        self.rows = {}
+        if not self.ids:
             return
+        # One time for the history rows of one flush, as simple-history's bulk helper does.
+        stamp = timezone.now()
+        pending = [self._history(model, ids, stamp) for model, ids in self.ids.items()]
+        self.ids = {}
         with connection.cursor() as cursor:
             # One round trip: Django's default client-side binding on psycopg 3 takes several
             # statements in one execute (server-side binding does not).
             options = connection.settings_dict.get("OPTIONS", {})
             if self.postgres and not options.get("server_side_binding"):
                 cursor.execute(
-                    ";\n".join(sql for sql, _ in self.pending),
-                    [p for _, params in self.pending for p in params],
+                    ";\n".join(sql for sql, _ in pending),
+                    [p for _, params in pending for p in params],
                 )
             else:
-                for sql, params in self.pending:
+                for sql, params in pending:
                     cursor.execute(sql, params)
-        self.pending = []
 
 
 class RowSync:
     """Syncs rows model by model for one import, counting into ``created``/``updated``/
     ``deleted`` (keyed by the model's plural name)."""
 
-    def __init__(self, *, user: Any, created: Counter, updated: Counter, deleted: Counter):
+    def __init__(
+        self,
+        *,
+        user: Any,
+        created: Counter,
+        updated: Counter,
+        deleted: Counter,
+        new: NewRows | None = None,
+    ):
         self.user = user
         self.created = created
         self.updated = updated
         self.deleted = deleted
         # Model -> ids of stored rows the document dropped, when their deletion waits.
         self.gone: dict[type[djm.Model], list[int]] = {}
-        self.new = NewRows(user)
+        # Shared by the sites of one chunk (``inventory.services.sites_import``), else its own.
+        self.new = NewRows(user) if new is None else new
 
     def __call__(
         self,
