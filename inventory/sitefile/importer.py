@@ -591,6 +591,9 @@ class _SiteUpsert:
     ) -> None:
         """Rows with no code of their own, keyed by the ids in ``ends`` plus a running count
         (document order against stored id order)."""
+        if self.fresh:  # nothing stored to match: no keys needed
+            self.sync.create(model, wanted)
+            return
         old = self.stored(model, **where)
         old_keys = dict(
             zip(

@@ -260,6 +260,13 @@ class RowSync:
         # Shared by the sites of one chunk (``inventory.services.sites_import``), else its own.
         self.new = NewRows(user) if new is None else new
 
+    def create(self, model: type[djm.Model], rows: list[Row]) -> list[int]:
+        """Insert rows known to be new (nothing is stored to compare with); their ids."""
+        ids = self.new.insert(model, rows)
+        if ids:
+            self.created[str(model._meta.verbose_name_plural)] += len(ids)
+        return ids
+
     def __call__(
         self,
         model: type[djm.Model],
