@@ -50,13 +50,12 @@ def record_names(doc: dict) -> RecordNames:
     wires: set[frozenset[str]] = set()
     for _, wire in items_of(doc, "wires"):
         a, b = wire.get("from"), wire.get("to")
-        a_text, b_text = isinstance(a, str), isinstance(b, str)
-        if a_text:
+        if isinstance(a, str):
             add(a)
-        if b_text:
+        if isinstance(b, str):
             add(b)
-        if a_text and b_text and a != b:
-            wires.add(frozenset((a, b)))
+            if isinstance(a, str) and a != b:
+                wires.add(frozenset((a, b)))
     links: set[frozenset[str]] = set()
     raw_links = doc.get("links")
     for link in raw_links if isinstance(raw_links, list) else ():
