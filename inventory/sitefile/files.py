@@ -3,9 +3,7 @@
 
 from __future__ import annotations
 
-import gc
-from collections.abc import Iterator, Sequence
-from contextlib import contextmanager
+from collections.abc import Sequence
 from pathlib import Path
 
 from django.conf import settings
@@ -34,19 +32,3 @@ def capped(lines: Sequence[str], limit: int | None = None) -> list[str]:
     if len(lines) <= limit:
         return list(lines)
     return [*lines[:limit], f"... and {len(lines) - limit} more error(s) not shown"]
-
-
-@contextmanager
-def gc_paused() -> Iterator[None]:
-    """The cyclic garbage collector paused for one chunk of a bulk load (reading, validating
-    and writing a few site files). A site document is a tree of some 10^5 lists and dicts;
-    while a chunk of them is alive the collector would walk them again and again (about a
-    fifth of the import's own CPU time) and find nothing: they hold no cycles and are freed
-    by reference counting when the chunk is done. It runs again after the chunk."""
-    was = gc.isenabled()
-    gc.disable()
-    try:
-        yield
-    finally:
-        if was:
-            gc.enable()

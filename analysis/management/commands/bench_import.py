@@ -61,7 +61,8 @@ def _import_files(paths: list[str], chunk: int) -> tuple[int, int, int, float, f
     """Import the site files at ``paths`` in this process, ``chunk`` files per transaction;
     (sites, CTs, peak RSS in KiB, CPU seconds of this process and of its server process)."""
     from inventory.services import sites_import
-    from inventory.sitefile.files import gc_paused, read_site_file
+    from inventory.sitefile.files import read_site_file
+    from record.gcpause import gc_paused
 
     cts = 0
     cpu, server = time.process_time(), _server_cpu_s()

@@ -19,7 +19,7 @@ from django.db import connections
 
 from analysis import services
 from inventory.services import SiteImportError, sites_import
-from inventory.sitefile.files import gc_paused
+from record.gcpause import gc_paused
 
 # Sites per transaction: the new rows of a chunk go in by one COPY per table (``sites_import``).
 CHUNK = 10
