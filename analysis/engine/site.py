@@ -8,8 +8,14 @@ from typing import Any
 from analysis.engine.findings import Finding
 from analysis.engine.netlist import Netlist
 from analysis.engine.nodal import Circuit, CTBurden, normal_analysis
-from analysis.engine.procedure import ProcedureVerdict, check_procedure
-from analysis.engine.state import ProcedureError, evaluate_states, normal_state, state_findings
+from analysis.engine.procedure import ProcedureVerdict, check_procedures
+from analysis.engine.state import (
+    ProcedureError,
+    StateEval,
+    evaluate_states,
+    normal_state,
+    state_findings,
+)
 
 
 @dataclass(eq=False)
@@ -33,27 +39,31 @@ class SiteAnalysis:
         }
 
 
-def normal_findings(netlist: Netlist) -> list[Finding]:
+def normal_findings(netlist: Netlist, ev: StateEval | None = None) -> list[Finding]:
     """State findings of the normal state (open secondaries, partial winding shorts, ground
-    points), as the findings list shows them (no procedure, no stage)."""
-    ev = evaluate_states(netlist, [normal_state(netlist)])[0]
+    points), as the findings list shows them (no procedure, no stage). ``ev``: the normal
+    state already solved (``analyze_site`` solves it in the batch of the procedures)."""
+    if ev is None:
+        ev = evaluate_states(netlist, [normal_state(netlist)])[0]
     return state_findings(netlist, ev, ev, ev, frozenset(), None)
 
 
 def analyze_site(netlist: Netlist) -> SiteAnalysis:
     """Normal-state nodal analysis (both fault cases, every CT), circuits, feeds, state
-    findings, and every stored procedure checked step by step."""
+    findings, and every stored procedure checked step by step (the normal state and the
+    states of every procedure solved in one batch, ``procedure.check_procedures``)."""
     na = normal_analysis(netlist)
+    checked, (normal,) = check_procedures(netlist, also=[(netlist, [normal_state(netlist)])])
     out = SiteAnalysis(
         site=netlist.site_code,
         circuits=na.circuits,
         burdens=na.burdens,
         feeds=na.feeds(),
-        findings=normal_findings(netlist),
+        findings=normal_findings(netlist, normal[0]),
     )
-    for code in netlist.procedures:
-        try:
-            out.verdicts[code] = check_procedure(netlist, code)
-        except ProcedureError as exc:
-            out.procedure_errors[code] = str(exc)
+    for code, verdict in checked.items():
+        if isinstance(verdict, ProcedureError):
+            out.procedure_errors[code] = str(verdict)
+        else:
+            out.verdicts[code] = verdict
     return out

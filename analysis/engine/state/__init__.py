@@ -29,7 +29,12 @@ from analysis.engine.state.rules.grounds import check_grounds
 from analysis.engine.state.rules.open_secondary import check_open_secondary
 from analysis.engine.state.rules.partial_winding import check_partial
 from analysis.engine.state.rules.trip import check_trip
-from analysis.engine.state.solve import INSIDE_SHORT_FRACTION, StateEval, evaluate_states
+from analysis.engine.state.solve import (
+    INSIDE_SHORT_FRACTION,
+    StateEval,
+    evaluate_groups,
+    evaluate_states,
+)
 
 __all__ = [
     "ALWAYS_REPORTED",
@@ -48,6 +53,7 @@ __all__ = [
     "check_open_secondary",
     "check_partial",
     "check_trip",
+    "evaluate_groups",
     "evaluate_states",
     "finding_key",
     "input_roles_of",

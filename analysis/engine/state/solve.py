@@ -18,7 +18,7 @@ section currents.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 from typing import Any
 
@@ -28,6 +28,7 @@ from analysis.engine.netlist import Netlist
 from analysis.engine.state.operations import State, normal_state
 from analysis.engine.topology import components, solve, topology
 from analysis.engine.windings import (
+    Stamp,
     WindingArrays,
     coupled_mask,
     section_currents,
@@ -340,24 +341,42 @@ def _live_row(nl: Netlist, st: State) -> np.ndarray:
     return _cached_row(nl, ("live", st.energized), make)
 
 
-def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
-    """Solve every state in one batch (each state is a disjoint copy of the netlist)."""
-    if not states:
-        return []
-    n_states = len(states)
-    n_t = nl.n_terminals
-    ar = nl.arrays
-    cts = nl.ct_list
-    n_ct = len(cts)
-    offs = np.arange(n_states, dtype=np.int64) * n_t
+@dataclass(eq=False)
+class _Group:
+    """One netlist's states inside a batch: their masks and element edges, local vertex
+    numbering (vertex = row · terminals + terminal) and ``base``, the batch vertex of the
+    group's first one."""
 
-    # One row per state of: contacts closed, links in place, branches in place, CTs live,
-    # inputs in place (each row cached on the netlist by the part of the state it depends on).
+    nl: Netlist
+    states: list[State]
+    base: int
+    offs: np.ndarray  # local vertex of each state's terminal 0
+    live: np.ndarray
+    inp_active: np.ndarray
+    za: list[np.ndarray]
+    zb: list[np.ndarray]
+    zrow: list[np.ndarray]
+    zelem: list[np.ndarray]
+    sb: np.ndarray
+    ba: np.ndarray
+    bb: np.ndarray
+    br_y: np.ndarray
+    is_wire: np.ndarray
+
+    @property
+    def n_vertices(self) -> int:
+        return len(self.states) * self.nl.n_terminals
+
+
+def _group(nl: Netlist, states: list[State], base: int) -> _Group:
+    """The masks and element edges of ``states`` (one row each; rows cached on the netlist
+    by the part of the state they depend on)."""
+    ar = nl.arrays
+    offs = np.arange(len(states), dtype=np.int64) * nl.n_terminals
     cmask = np.stack([_contact_row(nl, st) for st in states])
     lmask = np.stack([_link_row(nl, st) for st in states])
     bmask = np.stack([_branch_row(nl, st) for st in states])
     live = np.stack([_live_row(nl, st) for st in states])
-    inp_active = bmask[:, ar.n_wires :]
     sc, cc = np.nonzero(cmask)
     sl, lk = np.nonzero(lmask)
     sz, zz = np.nonzero(bmask & ar.br_zero)
@@ -366,79 +385,211 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
     js = np.asarray([j[0] for j in jumps], dtype=np.int64)
     ja = np.asarray([j[1] for j in jumps], dtype=np.int64)
     jb = np.asarray([j[2] for j in jumps], dtype=np.int64)
-    za = [
-        ar.contact_a[cc] + offs[sc],
-        ar.link_a[lk] + offs[sl],
-        ar.br_a[zz] + offs[sz],
-        ja + offs[js],
-    ]
-    zb = [
-        ar.contact_b[cc] + offs[sc],
-        ar.link_b[lk] + offs[sl],
-        ar.br_b[zz] + offs[sz],
-        jb + offs[js],
-    ]
-    ba = [ar.br_a[br_index] + offs[sb]]
-    bb = [ar.br_b[br_index] + offs[sb]]
+    return _Group(
+        nl=nl,
+        states=states,
+        base=base,
+        offs=offs,
+        live=live,
+        inp_active=bmask[:, ar.n_wires :],
+        za=[
+            ar.contact_a[cc] + offs[sc],
+            ar.link_a[lk] + offs[sl],
+            ar.br_a[zz] + offs[sz],
+            ja + offs[js],
+        ],
+        zb=[
+            ar.contact_b[cc] + offs[sc],
+            ar.link_b[lk] + offs[sl],
+            ar.br_b[zz] + offs[sz],
+            jb + offs[js],
+        ],
+        zrow=[sc, sl, sz, js],
+        # element of each edge: 0 contact, 1 link, 2 zero-impedance branch, 3 jumper (its
+        # place in its state's ``jumpers``)
+        zelem=[
+            cc,
+            lk,
+            zz,
+            np.asarray([k for st in states for k in range(len(st.jumpers))], dtype=np.int64),
+        ],
+        sb=sb,
+        ba=ar.br_a[br_index] + offs[sb],
+        bb=ar.br_b[br_index] + offs[sb],
+        br_y=1.0 / ar.br_z[br_index],
+        is_wire=br_index < ar.n_wires,
+    )
 
-    br_y = 1.0 / ar.br_z[br_index]
-    wind_a = (ar.wind_a[None, :] + offs[:, None]).ravel()
-    wind_b = (ar.wind_b[None, :] + offs[:, None]).ravel()
-    gv = (ar.grounds[None, :] + offs[:, None]).ravel()
+
+def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
+    """Solve every state in one batch (each state is a disjoint copy of the netlist)."""
+    if not states:
+        return []
+    return evaluate_groups([(nl, states)])[0]
+
+
+def evaluate_groups(groups: Sequence[tuple[Netlist, Sequence[State]]]) -> list[list[StateEval]]:
+    """Solve the states of several netlists (the regions of a site's procedures, say) in one
+    batch: every state is a disjoint copy of its netlist, and all of them form one graph for
+    the topology and one set of stacked nodal solves.
+
+    Each circuit of each state is solved as its own matrix, its nodes and branches in the
+    order a batch of its netlist alone would give them, so every figure is the one
+    ``evaluate_states`` of that netlist gives, to the last bit; only the numpy calls are
+    shared."""
+    out: list[list[StateEval]] = [[] for _ in groups]
+    parts: list[tuple[int, _Group]] = []
+    base = 0
+    for k, (nl, states) in enumerate(groups):
+        if states:
+            g = _group(nl, list(states), base)
+            parts.append((k, g))
+            base += g.n_vertices
+    if not parts:
+        return out
+    gs = [g for _, g in parts]
+
+    def cat(arrays: list[np.ndarray]) -> np.ndarray:
+        return np.concatenate(arrays) if len(arrays) > 1 else arrays[0]
+
+    za = cat([x + g.base for g in gs for x in g.za])
+    zb = cat([x + g.base for g in gs for x in g.zb])
+    wind_a = cat([(g.nl.arrays.wind_a[None, :] + (g.offs + g.base)[:, None]).ravel() for g in gs])
+    wind_b = cat([(g.nl.arrays.wind_b[None, :] + (g.offs + g.base)[:, None]).ravel() for g in gs])
+    gv = cat([(g.nl.arrays.grounds[None, :] + (g.offs + g.base)[:, None]).ravel() for g in gs])
     topo = topology(
-        n_states * n_t,
-        np.concatenate(za),
-        np.concatenate(zb),
-        ba[0],
-        bb[0],
+        base,
+        za,
+        zb,
+        cat([g.ba + g.base for g in gs]),
+        cat([g.bb + g.base for g in gs]),
         wind_a,
         wind_b,
         gv,
     )
     tn = topo.term_node
-    f = tn[ar.ct_first[None, :] + offs[:, None]]
-    s2 = tn[ar.ct_second[None, :] + offs[:, None]]
-    ct_open = topo.node_imp[f] != topo.node_imp[s2]
-    ct_circ = topo.node_circ[f]
-    load = np.broadcast_to(ar.ct_load, (n_states, n_ct))
-
-    # Tapped windings joined across other than at the pair in use are solved as coupled
-    # sections (windings.py); every other CT stays an ideal source across its tap.
-    wa = winding_arrays(nl)
-
-    def node_of(rows: np.ndarray, terms: np.ndarray) -> np.ndarray:
-        return tn[terms + offs[rows]]
-
-    wind_imp = topo.node_imp[tn[wa.term[None, :] + offs[:, None]]]
-    coupled = coupled_mask(wa, wind_imp)
-    solve_topo, solve_y = topo, br_y
-    if wa.n:
-        solve_topo, solve_y, coupled, wind_imp = _coupled_windings(
-            topo, br_y, wa, coupled, ct_open[:, wa.ct], ar, node_of, offs
-        )
-    cr, cm = np.nonzero(coupled)
-    ct_coupled = np.zeros((n_states, n_ct), dtype=bool)
-    ct_coupled[cr, wa.ct[cm]] = True
-    inj = live & (~ct_open | ct_coupled)
-    fn, sn = f, s2
-    mult = np.ones((n_states, n_ct))
-    if len(cm):
-        fn, sn = f.copy(), s2.copy()
-        fn[cr, wa.ct[cm]] = node_of(cr, wa.src[cm])
-        sn[cr, wa.ct[cm]] = node_of(cr, wa.snk[cm])
-        mult[cr, wa.ct[cm]] = wa.scale[cm]
-    probe = np.exp(1j * (0.5 + _GOLDEN_RAD * np.arange(n_ct)))
-    pr = np.broadcast_to(probe, (n_states, n_ct))
-    fi, si = fn[inj], sn[inj]
-    li, pi = load[inj] * mult[inj], pr[inj] * mult[inj]
-    inj_node = np.concatenate([fi, si, fi, si])
-    zeros = np.zeros(len(fi), dtype=np.int64)
-    inj_col = np.concatenate([zeros, zeros, zeros + 1, zeros + 1])
-    inj_val = np.concatenate([li, -li, pi, -pi])
+    br_y = cat([g.br_y for g in gs])
+    # trip paths: zero-impedance elements and wires (not device inputs, not ground)
+    is_wire = cat([g.is_wire for g in gs])
+    tl = components(topo.n_nodes, topo.br_na[is_wire], topo.br_nb[is_wire])
     ncols = np.zeros(topo.n_circ, dtype=np.int64)
-    ncols[ct_circ[inj]] = 2
+    ref = np.zeros(topo.n_circ + 1)
+    stamps: list[Stamp] = []
+    inj_parts: list[tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]] = []
+    pre: list[dict[str, Any]] = []
+    for g in gs:
+        nl = g.nl
+        ar = nl.arrays
+        n_states = len(g.states)
+        n_ct = len(nl.ct_list)
+        goffs = g.offs + g.base
+        live = g.live
+        f = tn[ar.ct_first[None, :] + goffs[:, None]]
+        s2 = tn[ar.ct_second[None, :] + goffs[:, None]]
+        ct_open = topo.node_imp[f] != topo.node_imp[s2]
+        ct_circ = topo.node_circ[f]
+        load = np.broadcast_to(ar.ct_load, (n_states, n_ct))
+
+        # Tapped windings joined across other than at the pair in use are solved as coupled
+        # sections (windings.py); every other CT stays an ideal source across its tap.
+        wa = winding_arrays(nl)
+
+        def node_of(rows: np.ndarray, terms: np.ndarray, goffs: np.ndarray = goffs) -> np.ndarray:
+            return tn[terms + goffs[rows]]
+
+        wind_imp = topo.node_imp[tn[wa.term[None, :] + goffs[:, None]]]
+        coupled = coupled_mask(wa, wind_imp)
+        if wa.n:
+            coupled, wind_imp, st_ = _coupled_windings(
+                topo, wa, coupled, ct_open[:, wa.ct], ar, node_of, goffs
+            )
+            if st_ is not None:
+                stamps.append(st_)
+        cr, cm = np.nonzero(coupled)
+        ct_coupled = np.zeros((n_states, n_ct), dtype=bool)
+        ct_coupled[cr, wa.ct[cm]] = True
+        inj = live & (~ct_open | ct_coupled)
+        fn, sn = f, s2
+        mult = np.ones((n_states, n_ct))
+        if len(cm):
+            fn, sn = f.copy(), s2.copy()
+            fn[cr, wa.ct[cm]] = node_of(cr, wa.src[cm])
+            sn[cr, wa.ct[cm]] = node_of(cr, wa.snk[cm])
+            mult[cr, wa.ct[cm]] = wa.scale[cm]
+        probe = np.exp(1j * (0.5 + _GOLDEN_RAD * np.arange(n_ct)))
+        pr = np.broadcast_to(probe, (n_states, n_ct))
+        fi, si = fn[inj], sn[inj]
+        li, pi = load[inj] * mult[inj], pr[inj] * mult[inj]
+        zeros = np.zeros(len(fi), dtype=np.int64)
+        inj_parts.append(
+            (
+                np.concatenate([fi, si, fi, si]),
+                np.concatenate([zeros, zeros, zeros + 1, zeros + 1]),
+                np.concatenate([li, -li, pi, -pi]),
+                ct_circ[inj],
+            )
+        )
+        ncols[ct_circ[inj]] = 2
+        # largest live CT load current of each circuit, for the thresholds of the findings
+        if n_ct:
+            np.maximum.at(ref, ct_circ[live], np.broadcast_to(np.abs(ar.ct_load), live.shape)[live])
+        pre.append(
+            {
+                "f": f,
+                "s2": s2,
+                "ct_open": ct_open,
+                "ct_circ": ct_circ,
+                "load": load,
+                "wa": wa,
+                "node_of": node_of,
+                "wind_imp": wind_imp,
+                "coupled": coupled,
+            }
+        )
+    solve_topo, solve_y = topo, br_y
+    if stamps:
+        na = np.concatenate([topo.br_na, *(s.na for s in stamps)])
+        nb = np.concatenate([topo.br_nb, *(s.nb for s in stamps)])
+        solve_topo = replace(topo, br_na=na, br_nb=nb, node_imp=components(topo.n_nodes, na, nb))
+        solve_y = np.concatenate([br_y, *(s.y for s in stamps)])
+    if len(inj_parts) == 1:
+        inj_node, inj_col, inj_val, _ = inj_parts[0]
+    else:
+        inj_node = np.concatenate([p[0] for p in inj_parts])
+        inj_col = np.concatenate([p[1] for p in inj_parts])
+        inj_val = np.concatenate([p[2] for p in inj_parts])
     sol = solve(solve_topo, solve_y, inj_node, inj_col, inj_val, ncols)
 
+    b_start = 0
+    for (k, g), p in zip(parts, pre, strict=True):
+        b_end = b_start + len(g.ba)
+        out[k] = _batch_of(g, topo, sol, tl, ref, p, b_start, b_end)
+        b_start = b_end
+    return out
+
+
+def _batch_of(
+    g: _Group,
+    topo: Any,
+    sol: Any,
+    tl: np.ndarray,
+    ref: np.ndarray,
+    p: dict[str, Any],
+    b_start: int,
+    b_end: int,
+) -> list[StateEval]:
+    """The ``StateEval``s of one group of a solved batch."""
+    nl = g.nl
+    ar = nl.arrays
+    states = g.states
+    n_states = len(states)
+    n_t = nl.n_terminals
+    tn = topo.term_node
+    goffs = g.offs + g.base
+    offs = g.offs
+    live, ct_open, ct_circ, load = g.live, p["ct_open"], p["ct_circ"], p["load"]
+    wa, coupled, node_of = p["wa"], p["coupled"], p["node_of"]
+    f, s2 = p["f"], p["s2"]
     all_sections: list[tuple[np.ndarray, np.ndarray]] = []
 
     def row_sections(row: int) -> tuple[np.ndarray, np.ndarray]:
@@ -460,24 +611,15 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
 
     # device input currents, both columns
     n_in = len(nl.inputs)
-    ia = tn[(np.asarray([i.a for i in nl.inputs], dtype=np.int64)[None, :] + offs[:, None])]
-    ib = tn[(np.asarray([i.b for i in nl.inputs], dtype=np.int64)[None, :] + offs[:, None])]
+    ia = tn[ar.input_a[None, :] + goffs[:, None]]
+    ib = tn[ar.br_b[ar.n_wires :][None, :] + goffs[:, None]]
     y_in = 1.0 / ar.br_z[ar.n_wires :]
-    cur = (sol.dv(ia, ib, 0) * y_in) * inp_active
-    prb = (sol.dv(ia, ib, 1) * y_in) * inp_active
+    cur = (sol.dv(ia, ib, 0) * y_in) * g.inp_active
+    prb = (sol.dv(ia, ib, 1) * y_in) * g.inp_active
     inp_circ = topo.node_circ[ia] if n_in else np.zeros((n_states, 0), dtype=np.int64)
-
-    # trip paths: zero-impedance elements and wires (not device inputs, not ground)
-    is_wire = br_index < ar.n_wires
-    tl = components(topo.n_nodes, topo.br_na[is_wire], topo.br_nb[is_wire])
-    ot = tl[tn[ar.out_terminal[None, :] + offs[:, None]]]
-    og = tl[tn[ar.out_target[None, :] + offs[:, None]]]
-    out_conn = ot == og
-
-    # largest live CT load current of each circuit, for the thresholds of the findings table
-    ref = np.zeros(topo.n_circ + 1)
-    if n_ct:
-        np.maximum.at(ref, ct_circ[live], np.broadcast_to(np.abs(ar.ct_load), live.shape)[live])
+    ot = tl[tn[ar.out_terminal[None, :] + goffs[:, None]]]
+    og = tl[tn[ar.out_target[None, :] + goffs[:, None]]]
+    joined = coupled & live[:, wa.ct]
     batch = _StateBatch(
         nl=nl,
         live=live,
@@ -488,33 +630,34 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
         inp_probe=prb,
         inp_circ=inp_circ,
         inp_ref_a=ref[inp_circ],
-        out_connected=out_conn,
+        out_connected=ot == og,
         node_circ=topo.node_circ,
-        gnode=tn[gv].reshape(n_states, len(ar.grounds)),
-        gpoint=topo.term_point[gv].reshape(n_states, len(ar.grounds)),
+        gnode=tn[ar.grounds[None, :] + goffs[:, None]],
+        gpoint=topo.term_point[ar.grounds[None, :] + goffs[:, None]],
         windings=wa,
-        wind_imp=wind_imp,
-        wind_joined=coupled & live[:, wa.ct],
-        any_joined=(coupled & live[:, wa.ct]).any(axis=1).tolist(),
-        ends_shorted=topo.term_point[wa.src[None, :] + offs[:, None]]
-        == topo.term_point[wa.snk[None, :] + offs[:, None]],
+        wind_imp=p["wind_imp"],
+        wind_joined=joined,
+        any_joined=joined.any(axis=1).tolist(),
+        ends_shorted=topo.term_point[wa.src[None, :] + goffs[:, None]]
+        == topo.term_point[wa.snk[None, :] + goffs[:, None]],
         row_sections=row_sections,
     )
-    n_z = [len(x) for x in za]
     batch.n_terminals = n_t
     batch.zero = {
-        "a": np.concatenate(za),
-        "b": np.concatenate(zb),
-        # element of each edge: 0 contact, 1 link, 2 zero-impedance branch, 3 jumper (its
-        # place in its state's ``jumpers``)
-        "kind": np.repeat(np.arange(4), n_z),
-        "elem": np.concatenate(
-            [cc, lk, zz, np.asarray([k for st in states for k in range(len(st.jumpers))], int)]
-        ),
-        "row": np.concatenate([sc, sl, sz, js]),
+        "a": np.concatenate(g.za),
+        "b": np.concatenate(g.zb),
+        "kind": np.repeat(np.arange(4), [len(x) for x in g.za]),
+        "elem": np.concatenate(g.zelem),
+        "row": np.concatenate(g.zrow),
     }
-    batch.branches = {"row": sb, "a": ba[0], "b": bb[0], "na": topo.br_na, "nb": topo.br_nb}
-    batch.branch_y = br_y
+    batch.branches = {
+        "row": g.sb,
+        "a": g.ba,
+        "b": g.bb,
+        "na": topo.br_na[b_start:b_end],
+        "nb": topo.br_nb[b_start:b_end],
+    }
+    batch.branch_y = g.br_y
     batch.solution = sol
     # two-terminal CTs inject their load at their terminals in use; a tapped winding's
     # currents at its terminals come from its section currents (``row_sections``)
@@ -534,18 +677,17 @@ def evaluate_states(nl: Netlist, states: list[State]) -> list[StateEval]:
 
 def _coupled_windings(
     topo: Any,
-    br_y: np.ndarray,
     wa: WindingArrays,
     joined: np.ndarray,
     open_tap: np.ndarray,
     ar: Any,
     node_of: Any,
     offs: np.ndarray,
-) -> tuple[Any, np.ndarray, np.ndarray, np.ndarray]:
-    """Which tapped windings to solve as coupled sections, and the solve's topology with their
-    branches: (topology, branch admittances, coupled mask: states × tapped CTs, conduction label
-    of each winding terminal as the rest of the network joins them: external paths, and for a
-    winding joined only through others, those windings too).
+) -> tuple[np.ndarray, np.ndarray, Stamp | None]:
+    """Which tapped windings to solve as coupled sections, and their branches: (coupled mask:
+    states × tapped CTs, conduction label of each winding terminal as the rest of the network
+    joins them: external paths, and for a winding joined only through others, those windings
+    too; the stamp of the coupled windings, to add to the solve's branches, or None).
 
     A winding must be coupled when a pair of its terminals other than the pair in use is joined
     by the rest of the network: external paths (``joined``), or paths through other coupled
@@ -593,16 +735,8 @@ def _coupled_windings(
                 unsure[:, m] &= keep
                 changed = True
     if not cand.any():
-        return topo, br_y, cand, labels
-    st = stamp(wa, cand, node_of)
-    na = np.concatenate([topo.br_na, st.na])
-    nb = np.concatenate([topo.br_nb, st.nb])
-    return (
-        replace(topo, br_na=na, br_nb=nb, node_imp=components(topo.n_nodes, na, nb)),
-        np.concatenate([br_y, st.y]),
-        cand,
-        labels,
-    )
+        return cand, labels, None
+    return cand, labels, stamp(wa, cand, node_of)
 
 
 # ---------------------------------------------------------------------------------------------
