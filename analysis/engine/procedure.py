@@ -39,6 +39,7 @@ from analysis.engine.state import (
     state_findings,
 )
 from analysis.engine.topology import components
+from analysis.engine.windings import winding_arrays, winding_subset
 from siterules.procedure_refs import procedure_problems
 
 
@@ -154,6 +155,25 @@ def touched_terminals(
     return seeds, jumps
 
 
+def _device_labels(nl: Netlist) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(device of each input terminal, its union label, device of each output terminal and
+    target, its union label), devices numbered in ``nl.devices`` order (cached)."""
+    hit = nl.cache.get("device_labels")
+    if hit is None:
+        lab = _union_labels(nl)
+        ar = nl.arrays
+        dev_no = {code: k for k, code in enumerate(nl.devices)}
+        in_dev = np.fromiter((dev_no[i.device] for i in nl.inputs), np.int64, len(nl.inputs))
+        out_dev = np.fromiter((dev_no[o.device] for o in nl.outputs), np.int64, len(nl.outputs))
+        hit = nl.cache["device_labels"] = (
+            np.concatenate([in_dev, in_dev]),
+            lab[np.concatenate([ar.br_a[ar.n_wires :], ar.br_b[ar.n_wires :]])],
+            np.concatenate([out_dev, out_dev]),
+            lab[np.concatenate([ar.out_terminal, ar.out_target])],
+        )
+    return hit
+
+
 def region_mask(nl: Netlist, seeds: set[int], jumps: list[tuple[int, int]]) -> np.ndarray:
     """Terminals of the connected parts holding a seed (jumpers join parts), plus the trip
     paths of every device with a terminal there."""
@@ -169,21 +189,22 @@ def region_mask(nl: Netlist, seeds: set[int], jumps: list[tuple[int, int]]) -> n
         ra, rb = find(int(lab[a])), find(int(lab[b]))
         if ra != rb:
             parent[ra] = rb
-    chosen = {find(int(lab[t])) for t in seeds}
-    changed = True
-    while changed:
-        changed = False
-        for dev in nl.devices.values():
-            terms = [t for i in dev.inputs for t in (i.a, i.b)]
-            if any(find(int(lab[t])) in chosen for t in terms):
-                for o in dev.outputs:
-                    for t in (o.terminal, o.target):
-                        r = find(int(lab[t]))
-                        if r not in chosen:
-                            chosen.add(r)
-                            changed = True
-    members = set(chosen) | {x for x in parent if find(x) in chosen}
-    return np.isin(lab, np.asarray(sorted(members), dtype=np.int64))
+    # root of every part: itself, or the part a jumper joins it to
+    root = np.arange(int(lab.max()) + 1 if len(lab) else 0, dtype=np.int64)
+    for x in parent:
+        root[x] = find(x)
+    chosen = np.zeros(len(root), dtype=bool)
+    chosen[root[lab[np.fromiter(seeds, np.int64, len(seeds))]]] = True
+    in_dev, in_lab, out_dev, out_lab = _device_labels(nl)
+    in_root, out_root = root[in_lab], root[out_lab]
+    hit_dev = np.zeros(len(nl.devices), dtype=bool)
+    while True:
+        hit_dev[in_dev[chosen[in_root]]] = True
+        reach = out_root[hit_dev[out_dev]]
+        if chosen[reach].all():
+            break
+        chosen[reach] = True
+    return chosen[root][lab]
 
 
 def subnet(nl: Netlist, mask: np.ndarray) -> Netlist:
@@ -195,6 +216,14 @@ def subnet(nl: Netlist, mask: np.ndarray) -> Netlist:
     hit = nl.cache.get(key)
     if hit is None:
         hit = nl.cache[key] = region(nl, mask)
+        # the region's tapped windings are the site's cut, not worked out again
+        term_map = np.full(nl.n_terminals, -1, dtype=np.int64)
+        term_map[np.fromiter((nl.index[t] for t in hit.terminals), np.int64, hit.n_terminals)] = (
+            np.arange(hit.n_terminals)
+        )
+        ct_map = np.full(len(nl.ct_list), -1, dtype=np.int64)
+        ct_map[[nl.cts[c].index for c in hit.cts]] = np.arange(len(hit.cts))
+        hit.cache["windings"] = winding_subset(winding_arrays(nl), ct_map, term_map)
     return hit
 
 

@@ -255,6 +255,45 @@ def winding_arrays(nl: Netlist) -> WindingArrays:
     return hit
 
 
+def winding_subset(
+    wa: WindingArrays, ct_map: np.ndarray, term_map: np.ndarray
+) -> WindingArrays:
+    """The ``WindingArrays`` of a region of a netlist cut from the netlist's own: ``ct_map``
+    gives the region's index of each CT (−1: not in the region), ``term_map`` the region's
+    index of each terminal. The region keeps its CTs in the netlist's order, so this is
+    exactly what ``winding_arrays`` of the region gives, without working the shapes again."""
+    ms = np.flatnonzero(ct_map[wa.ct] >= 0)
+    n = len(ms)
+    m_map = np.full(wa.n, -1, dtype=np.int64)
+    m_map[ms] = np.arange(n)
+    t_keep = m_map[wa.term_m] >= 0
+    pos_map = np.cumsum(t_keep) - 1
+    p_keep = m_map[wa.pair_m] >= 0
+    s_keep = m_map[wa.sec_m] >= 0
+    return WindingArrays(
+        ct=ct_map[wa.ct[ms]],
+        names=[wa.names[m] for m in ms.tolist()],
+        term=term_map[wa.term[t_keep]],
+        term_m=m_map[wa.term_m[t_keep]],
+        pair_i=pos_map[wa.pair_i[p_keep]],
+        pair_j=pos_map[wa.pair_j[p_keep]],
+        pair_m=m_map[wa.pair_m[p_keep]],
+        sec_m=m_map[wa.sec_m[s_keep]],
+        sec_a=term_map[wa.sec_a[s_keep]],
+        sec_b=term_map[wa.sec_b[s_keep]],
+        sec_k=wa.sec_k[s_keep],
+        sec_turns=wa.sec_turns[s_keep],
+        sec_r=wa.sec_r[s_keep],
+        sec_tap=wa.sec_tap[s_keep],
+        src=term_map[wa.src[ms]],
+        snk=term_map[wa.snk[ms]],
+        r_full=wa.r_full[ms],
+        scale=wa.scale[ms],
+        sign=wa.sign[ms],
+        first=term_map[wa.first[ms]],
+    )
+
+
 def coupled_mask(wa: WindingArrays, labels: np.ndarray) -> np.ndarray:
     """(states × tapped CTs): True where a pair of winding terminals other than the pair in use
     shares a conduction label (``labels``: states × winding terminals)."""
