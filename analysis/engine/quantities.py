@@ -37,6 +37,7 @@ A function string may hold several elements ("50/51N", "50, 51N").
 
 from __future__ import annotations
 
+import functools
 import re
 from dataclasses import dataclass
 from typing import Any
@@ -120,16 +121,27 @@ def _functions_lost(dev: Any, k: int, quiet: np.ndarray) -> tuple[str, ...]:
     """A quiet input serves the zero-sequence (and differential) elements; a phase input
     serves every element except the zero-sequence ones that a quiet input of the device
     measures. All functions where that leaves none."""
-    funcs = tuple(dev.functions)
+    measured = any(quiet[i.index] for i in dev.inputs)
+    return _lost(tuple(dev.functions), bool(quiet[k]), bool(measured))
+
+
+@functools.lru_cache(maxsize=4096)
+def _lost(funcs: tuple[str, ...], quiet: bool, measured: bool) -> tuple[str, ...]:
+    """``_functions_lost`` of an input: the same for every device of the same functions."""
     zero = set(zero_sequence(funcs))
-    if quiet[k]:
+    if quiet:
         own = tuple(f for f in funcs if set(elements([f])) & zero)
         return own or funcs
-    measured = any(quiet[i.index] for i in dev.inputs)
     if measured and zero:
         rest = tuple(f for f in funcs if not set(elements([f])) <= zero)
         return rest or funcs
     return funcs
+
+
+@functools.lru_cache(maxsize=4096)
+def _sequences(funcs: tuple[str, ...]) -> tuple[tuple[str, ...], tuple[str, ...]]:
+    """(zero-sequence, negative-sequence) elements of a device's functions (cached)."""
+    return tuple(zero_sequence(funcs)), tuple(negative_sequence(funcs))
 
 
 def input_roles(
@@ -147,18 +159,22 @@ def input_roles(
     phase = (ref_a > 0) & (mag >= PHASE_FROM * ref_a)
     quiet = sees & (mag <= QUIET_BELOW * ref_a + PROBE_ZERO_A)
     computed: dict[str, tuple[Computed, ...]] = {}
+    quiet_l: list[bool] = quiet.tolist()
+    phase_l: list[bool] = phase.tolist()
+    circuit_l: list[int] = np.asarray(circuit).tolist()
+    measured_of: dict[str, bool] = {}
     for dev in nl.devices.values():
+        measured_of[dev.code] = any(quiet_l[i.index] for i in dev.inputs)
         if not dev.is_relay or not dev.inputs:
             continue
-        zero = zero_sequence(dev.functions)
-        neg = negative_sequence(dev.functions)
+        zero, neg = _sequences(tuple(dev.functions))
         if not zero and not neg:
             continue
-        measured = any(quiet[i.index] for i in dev.inputs)
+        measured = measured_of[dev.code]
         groups: dict[int, list[Any]] = {}
         for i in dev.inputs:
-            if phase[i.index]:
-                groups.setdefault(int(circuit[i.index]), []).append(i)
+            if phase_l[i.index]:
+                groups.setdefault(circuit_l[i.index], []).append(i)
         mine: list[Computed] = []
         for ins in groups.values():
             if len(ins) != 3:
@@ -181,5 +197,8 @@ def input_roles(
                 mine.append(Computed(dev.code, "I2", idx, coef, tuple(neg), formula))
         if mine:
             computed[dev.code] = tuple(mine)
-    lost = tuple(_functions_lost(nl.devices[i.device], i.index, quiet) for i in nl.inputs)
+    lost = tuple(
+        _lost(tuple(nl.devices[i.device].functions), quiet_l[i.index], measured_of[i.device])
+        for i in nl.inputs
+    )
     return Roles(phase=phase, quiet=quiet, computed=computed, lost=lost)

@@ -38,24 +38,35 @@ def _a(x: float) -> float:
     return round(float(x), DECIMALS) + 0.0  # + 0.0 turns -0.0 into 0.0
 
 
-def _input_pairs(nl: Netlist) -> list[tuple[str, str]]:
+def _input_items(nl: Netlist) -> list[tuple[int, str, str, str]]:
+    """(input index, device, terminal a, terminal b) of every input (cached)."""
     hit = nl.cache.get("readings_inputs")
     if hit is None:
         hit = nl.cache["readings_inputs"] = [
-            (nl.terminals[i.a], nl.terminals[i.b]) for i in nl.inputs
+            (k, i.device, nl.terminals[i.a], nl.terminals[i.b]) for k, i in enumerate(nl.inputs)
         ]
     return hit
+
+
+def _amps(ev: Any) -> list[float]:
+    """The input currents of ``ev`` rounded as a clamp meter reads them, for every state of
+    its batch at once (cached on the batch)."""
+    b = ev._b
+    hit = b.cache.get("amps")
+    if hit is None:
+        hit = b.cache["amps"] = (np.round(np.abs(b.inp_cur), DECIMALS) + 0.0).tolist()
+    row: list[float] = hit[ev._row]
+    return row
 
 
 def input_readings(nl: Netlist, ev: Any, devices: set[str] | None = None) -> list[dict[str, Any]]:
     """The current in each input of the devices in place (``devices``: only theirs)."""
     removed = ev.state.removed
-    pairs = _input_pairs(nl)
-    amps = (np.round(ev.inp_abs, DECIMALS) + 0.0).tolist()
+    amps = _amps(ev)
     return [
-        {"between": list(pairs[k]), "a": amps[k]}
-        for k, i in enumerate(nl.inputs)
-        if i.device not in removed and (devices is None or i.device in devices)
+        {"between": [a, b], "a": amps[k]}
+        for k, dev, a, b in _input_items(nl)
+        if dev not in removed and (devices is None or dev in devices)
     ]
 
 
@@ -71,6 +82,23 @@ def _contact_info(nl: Netlist) -> tuple[np.ndarray, list[str]]:
                 owner[c.index] = sw.code
         hit = nl.cache["readings_contacts"] = (normal, owner)
     return hit
+
+
+def _csc(vals: np.ndarray, rows: np.ndarray, cols: np.ndarray, n: int) -> csc_matrix:
+    """The n × n matrix of the (row, col, value) entries, duplicates summed, in canonical CSC
+    form (sorted indices): what ``csc_matrix((vals, (rows, cols)))`` gives, without the
+    general constructor's conversions."""
+    key = cols * n + rows
+    order = np.argsort(key, kind="stable")
+    ks = key[order]
+    first = np.ones(len(ks), dtype=bool)
+    np.not_equal(ks[1:], ks[:-1], out=first[1:])
+    starts = np.flatnonzero(first)
+    data = np.add.reduceat(vals[order], starts) if len(starts) else vals[:0]
+    uk = ks[starts]
+    indptr = np.zeros(n + 1, dtype=np.int32)
+    np.cumsum(np.bincount(uk // n, minlength=n), out=indptr[1:])
+    return csc_matrix((data, (uk % n).astype(np.int32), indptr), shape=(n, n))
 
 
 def _batch_shorting(
@@ -161,7 +189,7 @@ def _batch_shorting(
     rows_ = np.concatenate([rows_, np.nonzero(datum)[0]])
     cols_ = np.concatenate([cols_, np.nonzero(datum)[0]])
     vals = np.concatenate([vals, np.ones(int(datum.sum()))])
-    lap = csc_matrix((vals, (rows_, cols_)), shape=(n, n))
+    lap = _csc(vals, rows_, cols_, n)
     rhs = s[members]
     rhs[datum] = 0.0
     wa, wb = local[z["a"][wanted]], local[z["b"][wanted]]

@@ -255,9 +255,7 @@ def winding_arrays(nl: Netlist) -> WindingArrays:
     return hit
 
 
-def winding_subset(
-    wa: WindingArrays, ct_map: np.ndarray, term_map: np.ndarray
-) -> WindingArrays:
+def winding_subset(wa: WindingArrays, ct_map: np.ndarray, term_map: np.ndarray) -> WindingArrays:
     """The ``WindingArrays`` of a region of a netlist cut from the netlist's own: ``ct_map``
     gives the region's index of each CT (−1: not in the region), ``term_map`` the region's
     index of each terminal. The region keeps its CTs in the netlist's order, so this is

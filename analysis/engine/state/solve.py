@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -78,6 +78,8 @@ class _StateBatch:
     branch_y: np.ndarray | None = None
     solution: Any = None
     injections: dict[str, np.ndarray] | None = None
+    # what the rules and readings work out once for every state of the batch
+    cache: dict[str, Any] = field(default_factory=dict)
 
 
 class StateEval:
