@@ -33,9 +33,9 @@ from analysis.engine.state import (
     evaluate_groups,
     evaluate_states,
     finding_key,
+    names_for,
     normal_state,
     op_kind,
-    record_names,
     state_findings,
 )
 from analysis.engine.topology import components
@@ -471,7 +471,7 @@ def _refuse_problems(
         lifted = [frozenset(nl.wires[k].ends) for k in start.lifted_wires]
         lifted += [frozenset(nl.links[k].ends) for k in start.lifted_links]
     problems = procedure_problems(
-        record_names(nl), ops, devices, prefix=prefix, jumpers=jumpers, lifted=lifted
+        names_for(nl, ops), ops, devices, prefix=prefix, jumpers=jumpers, lifted=lifted
     )
     if problems:
         raise ProcedureError.of(problems, prefix)

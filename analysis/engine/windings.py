@@ -50,6 +50,7 @@ Everything here is numpy over the batched states of ``state.evaluate_states``.
 
 from __future__ import annotations
 
+import functools
 import itertools
 from dataclasses import dataclass
 from typing import Any
@@ -115,22 +116,29 @@ class _Shape:
     sign: float
 
 
-def _shape(ct: Any) -> _Shape | None:
-    if len(ct.terminals) < 3 or ct.secondary_a <= 0:
+@functools.lru_cache(maxsize=8192)
+def _shape_of(
+    items: tuple[tuple[str, float], ...],
+    in_use: tuple[str, str],
+    secondary_a: float,
+    winding_ohm: float | None,
+) -> _Shape | None:
+    """``_shape`` of a nameplate and tap (cached: like CTs share it across sites)."""
+    positions = dict(items)
+    if len(positions) < 3 or secondary_a <= 0:
         return None
-    order = sorted(ct.terminals, key=lambda n: (ct.positions[n], n))
-    pos = np.asarray([ct.positions[n] for n in order], dtype=np.float64)
-    lo_use, hi_use = sorted((ct.positions[ct.in_use[0]], ct.positions[ct.in_use[1]]))
+    order = sorted(positions, key=lambda n: (positions[n], n))
+    pos = np.asarray([positions[n] for n in order], dtype=np.float64)
+    lo_use, hi_use = sorted((positions[in_use[0]], positions[in_use[1]]))
     if (np.diff(pos) <= 0).any() or hi_use <= lo_use:
         return None
-    turns = np.diff(pos) / ct.secondary_a
+    turns = np.diff(pos) / secondary_a
     turns_full = float(turns.sum())
-    winding_ohm = getattr(ct, "winding_ohm", None)
     per_turn = DEFAULT_OHM_PER_TURN if winding_ohm is None else float(winding_ohm) / turns_full
     per_turn = max(per_turn, MIN_OHM_PER_TURN)
-    use = {order.index(ct.in_use[0]), order.index(ct.in_use[1])}
+    use = {order.index(in_use[0]), order.index(in_use[1])}
     pairs = [(i, j) for i, j in itertools.combinations(range(len(order)), 2) if {i, j} != use]
-    first_low = ct.positions[ct.in_use[0]] < ct.positions[ct.in_use[1]]
+    first_low = positions[in_use[0]] < positions[in_use[1]]
     last = len(order) - 1
     return _Shape(
         order=order,
@@ -176,7 +184,7 @@ def winding_arrays(nl: Netlist) -> WindingArrays:
             getattr(ct, "winding_ohm", None),
         )
         if key not in shapes:
-            shapes[key] = _shape(ct)
+            shapes[key] = _shape_of(*key)
         sh = shapes[key]
         if sh is None:
             continue
@@ -198,10 +206,21 @@ def winding_arrays(nl: Netlist) -> WindingArrays:
 
     def spread(local: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """Per-shape local arrays laid out for every CT: (CT m, index of the entry within its
-        shape array, position in ``term`` of ``local``'s value), grouped by m."""
-        ms_parts, k_parts, at_parts = [], [], []
+        shape array, position in ``term`` of ``local``'s value), grouped by m. Shapes with
+        equal arrays are laid out together (a fleet has many nameplates, few patterns)."""
+        pattern: dict[bytes, int] = {}
+        arrays: list[np.ndarray] = []
+        of_shape = np.empty(len(local), dtype=np.int64)
         for sid, arr in enumerate(local):
-            ms = np.flatnonzero(of_a == sid)
+            key = arr.tobytes() + bytes([len(arr) % 256])
+            pid = pattern.setdefault(key, len(arrays))
+            if pid == len(arrays):
+                arrays.append(arr)
+            of_shape[sid] = pid
+        of_p = of_shape[of_a] if n else of_a
+        ms_parts, k_parts, at_parts = [], [], []
+        for sid, arr in enumerate(arrays):
+            ms = np.flatnonzero(of_p == sid)
             if not len(ms) or not len(arr):
                 continue
             ms_parts.append(np.repeat(ms, len(arr)))

@@ -48,19 +48,44 @@ class ProcedureError(ValueError):
         return cls("\n".join(lines), tuple(problems))
 
 
-def record_names(nl: Netlist) -> RecordNames:
-    """What a procedure on this netlist may name (``siterules.procedure_refs``), built once."""
-    hit = nl.cache.get("record_names")
-    if hit is None:
-        hit = nl.cache["record_names"] = RecordNames(
-            terminals=frozenset(nl.index),
-            switches={code: sw.positions for code, sw in nl.switches.items()},
-            devices=frozenset(nl.devices),
-            equipment=frozenset(nl.equipment),
-            wires=frozenset(frozenset(w.ends) for w in nl.wires if w.a != w.b),
-            links=frozenset(frozenset(k.ends) for k in nl.links if k.a != k.b),
-        )
+def record_names(nl: Netlist, conductors: bool = True) -> RecordNames:
+    """What a procedure on this netlist may name (``siterules.procedure_refs``), built once.
+
+    ``conductors`` False leaves out the wires and links (the two ends of each), which only a
+    ``lift`` or ``land`` looks up (``names_for``): a site has hundreds of them."""
+    hit: RecordNames | None = nl.cache.get("record_names")
+    if hit is not None:
+        return hit
+    if not conductors:
+        bare: RecordNames | None = nl.cache.get("record_names_bare")
+        if bare is None:
+            bare = nl.cache["record_names_bare"] = _names(nl, False)
+        return bare
+    hit = nl.cache["record_names"] = _names(nl, True)
     return hit
+
+
+def _names(nl: Netlist, conductors: bool) -> RecordNames:
+    return RecordNames(
+        terminals=frozenset(nl.index),
+        switches={code: sw.positions for code, sw in nl.switches.items()},
+        devices=frozenset(nl.devices),
+        equipment=frozenset(nl.equipment),
+        wires=frozenset(frozenset(w.ends) for w in nl.wires if w.a != w.b)
+        if conductors
+        else frozenset(),
+        links=frozenset(frozenset(k.ends) for k in nl.links if k.a != k.b)
+        if conductors
+        else frozenset(),
+    )
+
+
+def names_for(nl: Netlist, ops: list[Any]) -> RecordNames:
+    """``record_names`` enough to check ``ops``: the wires and links only when one of them is
+    a ``lift`` or ``land`` (no other operation looks them up)."""
+    return record_names(
+        nl, any(isinstance(op, dict) and ("lift" in op or "land" in op) for op in ops)
+    )
 
 
 @dataclass(frozen=True, slots=True)
@@ -112,7 +137,7 @@ def validate_op(nl: Netlist, op: Any, step: int) -> None:
     wire or link, device or equipment the site does not have (the names part of
     ``siterules.procedure_refs``; jumper ids and lifted conductors depend on the steps before,
     see ``check_operations``). ``step`` is the step's number (1-based)."""
-    problems = procedure_problems(record_names(nl), [op], sequence=False)
+    problems = procedure_problems(names_for(nl, [op]), [op], sequence=False)
     if problems:
         raise ProcedureError.of(
             [replace(p, step=step - 1, at=("steps", step - 1, *p.at[2:])) for p in problems]

@@ -95,10 +95,11 @@ class StateEval:
         self._cache: dict[str, Any] = {}
 
     def _get(self, name: str) -> Any:
-        hit = self._cache.get(name)
-        if hit is None:
-            hit = self._cache[name] = getattr(self._b, name)[self._row].tolist()
-        return hit
+        # every state's row of the batch array as Python values, converted once per batch
+        rows = self._b.cache.get(name)
+        if rows is None:
+            rows = self._b.cache[name] = getattr(self._b, name).tolist()
+        return rows[self._row]
 
     @property
     def live(self) -> list[bool]:
@@ -163,11 +164,10 @@ class StateEval:
         """Circuit label -> circuit id (named after its first CT code)."""
         hit = self._cache.get("circ_id")
         if hit is None:
-            cts = self._b.nl.ct_list
             cl = self.ct_circ
             hit = {}
-            for k in sorted(range(len(cts)), key=lambda k: cts[k].code):
-                hit.setdefault(cl[k], f"CKT-{cts[k].code}")
+            for k, cid in _circuit_names(self._b.nl):
+                hit.setdefault(cl[k], cid)
             self._cache["circ_id"] = hit
         return hit
 
@@ -260,6 +260,18 @@ class StateEval:
         return complex(self._sections()[1][int(hits[0])]) if len(hits) else None
 
 
+def _circuit_names(nl: Netlist) -> list[tuple[int, str]]:
+    """(CT index, the id of a circuit named after it) of every CT in code order: a circuit is
+    named after its first CT by code (cached)."""
+    hit = nl.cache.get("circuit_names")
+    if hit is None:
+        cts = nl.ct_list
+        hit = nl.cache["circuit_names"] = [
+            (k, f"CKT-{cts[k].code}") for k in sorted(range(len(cts)), key=lambda k: cts[k].code)
+        ]
+    return hit
+
+
 def _cached_row(nl: Netlist, key: tuple[Any, ...], make: Any) -> np.ndarray:
     row = nl.cache.get(key)
     if row is None:
@@ -275,13 +287,14 @@ def _contact_table(nl: Netlist) -> tuple[np.ndarray, np.ndarray, list[dict[str, 
     if hit is None:
         sws = list(nl.switches.values())
         width = max((len(sw.positions) for sw in sws), default=1)
-        owner = np.zeros(len(nl.contacts), dtype=np.int64)
-        tab = np.zeros((len(nl.contacts), width), dtype=bool)
+        owner_l = [0] * len(nl.contacts)
+        rows: list[list[bool]] = [[False] * width for _ in nl.contacts]
         for k, sw in enumerate(sws):
             for c in sw.contacts:
-                owner[c.index] = k
-                for m, pos in enumerate(sw.positions):
-                    tab[c.index, m] = pos in c.closed_in
+                owner_l[c.index] = k
+                rows[c.index][: len(sw.positions)] = [p in c.closed_in for p in sw.positions]
+        owner = np.asarray(owner_l, dtype=np.int64)
+        tab = np.asarray(rows, dtype=bool).reshape(len(nl.contacts), width)
         pos_index = [{p: m for m, p in enumerate(sw.positions)} for sw in sws]
         hit = nl.cache["contact_table"] = (owner, tab, pos_index)
     return hit

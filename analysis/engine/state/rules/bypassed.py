@@ -71,11 +71,10 @@ def check_bypassed(
             closed_feeders = (b.live & ~b.ct_open).astype(np.int32) @ feeders
             open_feeders = (b.live & b.ct_open).astype(np.int32) @ feeders
             lost &= (closed_feeders > 0) & (open_feeders == 0)
-        batch_hit = bb["lost"] = (b, lost)
-    row = batch_hit[1][ev._row]
-    if not row.any():
+        batch_hit = bb["lost"] = (b, lost, lost.any(axis=1).tolist())
+    if not batch_hit[2][ev._row]:
         return out
-    hits = np.flatnonzero(row).tolist()
+    hits = np.flatnonzero(batch_hit[1][ev._row]).tolist()
     roles = input_roles_of(nl)
     for k in hits:
         key = bb["keys"][k]
