@@ -134,6 +134,15 @@ class StateEval:
         return self._get("out_connected")
 
     @property
+    def any_output_connected(self) -> bool:
+        """Whether any trip/close output is connected to its target in this state."""
+        rows: list[bool] | None = self._b.cache.get("out_any")
+        if rows is None:
+            flags: np.ndarray = np.any(self._b.out_connected, axis=1)
+            rows = self._b.cache["out_any"] = flags.tolist()
+        return rows[self._row]
+
+    @property
     def normal_ref(self) -> StateEval:
         """The state with every switch, lead, link, jumper and device as in the normal state
         of the site and this state's primary (energized equipment): what the inputs carry when
@@ -455,10 +464,13 @@ def evaluate_groups(groups: Sequence[tuple[Netlist, Sequence[State]]]) -> list[l
     out: list[list[StateEval]] = [[] for _ in groups]
     parts: list[tuple[int, _Group]] = []
     base = 0
+    asked: list[list[State]] = []
     for k, (nl, states) in enumerate(groups):
         if states:
-            g = _group(nl, list(states), base)
+            # a state met twice (a note, a switch set back) is solved once
+            g = _group(nl, list(dict.fromkeys(states)), base)
             parts.append((k, g))
+            asked.append(list(states))
             base += g.n_vertices
     if not parts:
         return out
@@ -576,9 +588,11 @@ def evaluate_groups(groups: Sequence[tuple[Netlist, Sequence[State]]]) -> list[l
     sol = solve(solve_topo, solve_y, inj_node, inj_col, inj_val, ncols)
 
     b_start = 0
-    for (k, g), p in zip(parts, pre, strict=True):
+    for (k, g), p, states in zip(parts, pre, asked, strict=True):
         b_end = b_start + len(g.ba)
-        out[k] = _batch_of(g, topo, sol, tl, ref, p, b_start, b_end)
+        batch = _batch_of(g, topo, sol, tl, ref, p, b_start, b_end)
+        row = {st: r for r, st in enumerate(g.states)}
+        out[k] = [StateEval(batch, row[st], st) for st in states]
         b_start = b_end
     return out
 
@@ -592,8 +606,8 @@ def _batch_of(
     p: dict[str, Any],
     b_start: int,
     b_end: int,
-) -> list[StateEval]:
-    """The ``StateEval``s of one group of a solved batch."""
+) -> _StateBatch:
+    """The solved batch of one group (one row per state of ``g.states``)."""
     nl = g.nl
     ar = nl.arrays
     states = g.states
@@ -687,7 +701,7 @@ def _batch_of(
         "term": np.concatenate([first_v, second_v]),
         "cur": np.concatenate([load[plain], -load[plain]]),
     }
-    return [StateEval(batch, s, st) for s, st in enumerate(states)]
+    return batch
 
 
 def _coupled_windings(

@@ -72,6 +72,14 @@ def _computed_appears(
     return None
 
 
+def _with_outputs(nl: Netlist) -> list[Any]:
+    """The devices of ``nl`` with a trip/close output, in ``nl.devices`` order (cached)."""
+    hit = nl.cache.get("devices_with_outputs")
+    if hit is None:
+        hit = nl.cache["devices_with_outputs"] = [d for d in nl.devices.values() if d.outputs]
+    return hit
+
+
 def check_trip(
     nl: Netlist, before: StateEval, ev: StateEval, work: frozenset[str], stage: str | None
 ) -> list[Finding]:
@@ -84,9 +92,11 @@ def check_trip(
     Rule (c) judges each input's current, and each quantity a relay computes from its phase
     inputs (``quantities``: a calculated residual 3I0 or negative-sequence I2), against its
     value in the normal state with the same primary (``_appears``)."""
-    out = []
+    out: list[Finding] = []
+    if not ev.any_output_connected:
+        return out  # every finding here is about an output still connected
     roles: Roles | None = None
-    for dev in nl.devices.values():
+    for dev in _with_outputs(nl):
         conn = [o for o in dev.outputs if ev.out_connected[o.index]]
         if not conn:
             continue
