@@ -40,7 +40,7 @@ from analysis.engine.state import (
 )
 from analysis.engine.topology import components
 from analysis.engine.windings import winding_arrays, winding_subset
-from siterules.procedure_refs import procedure_problems
+from siterules.procedure_refs import Problem, procedure_problems
 
 
 @dataclass(frozen=True, slots=True)
@@ -237,9 +237,15 @@ def simulate(
     """(states passed on the way, after) of every operation, from ``start`` (the normal
     state)."""
     st = start if start is not None else normal_state(nl)
+    # each operation's names checked at once (``validate_op``), raised when its turn comes
+    bad: dict[int | None, list[Problem]] = {}
+    for p in procedure_problems(names_for(nl, ops), ops, sequence=False):
+        bad.setdefault(p.step, []).append(p)
     out = []
     for n, op in enumerate(ops, start=1):
-        trans, st = apply_op(nl, st, op, n)
+        if n - 1 in bad:
+            raise ProcedureError.of(bad[n - 1])
+        trans, st = apply_op(nl, st, op, n, validated=True)
         out.append((trans, st))
     return out
 

@@ -144,18 +144,44 @@ def validate_op(nl: Netlist, op: Any, step: int) -> None:
         )
 
 
+def _with(
+    st: State,
+    *,
+    positions: tuple[tuple[str, str], ...] | None = None,
+    jumpers: tuple[tuple[str, int, int], ...] | None = None,
+    lifted_wires: frozenset[int] | None = None,
+    lifted_links: frozenset[int] | None = None,
+    removed: frozenset[str] | None = None,
+    energized: frozenset[str] | None = None,
+    override: tuple[str, frozenset[int]] | None = None,
+) -> State:
+    """``st`` (not in transition) with the given parts changed: ``dataclasses.replace``
+    without its generic machinery (a procedure makes one per operation)."""
+    return State(
+        st.positions if positions is None else positions,
+        st.jumpers if jumpers is None else jumpers,
+        st.lifted_wires if lifted_wires is None else lifted_wires,
+        st.lifted_links if lifted_links is None else lifted_links,
+        st.removed if removed is None else removed,
+        st.energized if energized is None else energized,
+        override,
+    )
+
+
 def apply_op(
-    nl: Netlist, state: State, op: dict[str, Any], step: int
+    nl: Netlist, state: State, op: dict[str, Any], step: int, *, validated: bool = False
 ) -> tuple[tuple[State, ...], State]:
     """Carry out one operation: (the states passed on the way, in order; the state after).
 
     A ``set`` passes, for each move between neighbouring positions, the transition state of
     the switch's transition type, and each position on the way (``Switch.path``: a switch
     with more than two positions moves through them in their recorded order, so a rotary
-    switch set from P1 to P3 rests in P2 on the way). Other operations pass no state."""
-    validate_op(nl, op, step)
+    switch set from P1 to P3 rests in P2 on the way). Other operations pass no state.
+    ``validated``: the caller has checked ``op`` as ``validate_op`` does."""
+    if not validated:
+        validate_op(nl, op, step)
     kind = op_kind(op)
-    st = replace(state, override=None)
+    st = state if state.override is None else replace(state, override=None)
     if kind == "set":
         sw = nl.switches[str(op["set"])]
         pos = dict(st.positions)
@@ -167,7 +193,7 @@ def apply_op(
         for nxt in sw.path(old_pos, str(op["to"])):
             here = pos[sw.code]
             pos[sw.code] = nxt
-            reached = replace(st, positions=tuple(pos.items()))
+            reached = _with(st, positions=tuple(pos.items()))
             old_c, new_c = sw.closed(here), sw.closed(nxt)
             if sw.transition == "make_before_break":
                 during: frozenset[int] | None = old_c | new_c
@@ -176,7 +202,7 @@ def apply_op(
             else:  # break_before_make, and any unknown kind (the safe reading)
                 during = old_c & new_c
             if during is not None and during != new_c:
-                passed.append(replace(cur, override=(sw.code, during)))
+                passed.append(_with(cur, override=(sw.code, during)))
             passed.append(reached)
             cur = reached
         return tuple(passed[:-1]), passed[-1]
@@ -186,7 +212,7 @@ def apply_op(
         if any(j[0] == jid for j in st.jumpers):
             raise ProcedureError(f"step {step}: jumper {jid!r} is already in place")
         jumpers = (*st.jumpers, (jid, nl.index[a], nl.index[b]))
-        return (), replace(st, jumpers=tuple(sorted(jumpers)))
+        return (), _with(st, jumpers=tuple(sorted(jumpers)))
     if kind == "remove_jumper":
         jid = str(op["remove_jumper"])
         if not any(j[0] == jid for j in st.jumpers):
@@ -194,25 +220,25 @@ def apply_op(
             raise ProcedureError(
                 f"step {step}: unknown jumper {jid!r} (jumpers in place: {placed})"
             )
-        return (), replace(st, jumpers=tuple(j for j in st.jumpers if j[0] != jid))
+        return (), _with(st, jumpers=tuple(j for j in st.jumpers if j[0] != jid))
     if kind in ("lift", "land"):
         a, b = _pair(op, kind)
         wires, links = _between(nl, a, b)
         if kind == "lift":
-            return (), replace(
+            return (), _with(
                 st,
                 lifted_wires=st.lifted_wires | set(wires),
                 lifted_links=st.lifted_links | set(links),
             )
-        return (), replace(
+        return (), _with(
             st, lifted_wires=st.lifted_wires - set(wires), lifted_links=st.lifted_links - set(links)
         )
     if kind == "remove_device":
-        return (), replace(st, removed=st.removed | {str(op[kind])})
+        return (), _with(st, removed=st.removed | {str(op[kind])})
     if kind == "insert_device":
-        return (), replace(st, removed=st.removed - {str(op[kind])})
+        return (), _with(st, removed=st.removed - {str(op[kind])})
     if kind == "deenergize":
-        return (), replace(st, energized=st.energized - {str(op[kind])})
+        return (), _with(st, energized=st.energized - {str(op[kind])})
     if kind == "energize":
-        return (), replace(st, energized=st.energized | {str(op[kind])})
+        return (), _with(st, energized=st.energized | {str(op[kind])})
     return (), st  # note

@@ -157,6 +157,15 @@ class StateEval:
         return hit
 
     @property
+    def any_live_open(self) -> bool:
+        """Whether any CT is live and open in this state."""
+        rows: list[bool] | None = self._b.cache.get("live_open_any")
+        if rows is None:
+            flags: np.ndarray = np.any(self._b.live & self._b.ct_open, axis=1)
+            rows = self._b.cache["live_open_any"] = flags.tolist()
+        return rows[self._row]
+
+    @property
     def live_open(self) -> np.ndarray:
         """Mask of the CTs that are live and open in this state."""
         return self._b.live[self._row] & self._b.ct_open[self._row]

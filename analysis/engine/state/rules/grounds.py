@@ -2,6 +2,10 @@
 
 from __future__ import annotations
 
+from typing import Any
+
+import numpy as np
+
 from analysis.engine import findings as fc
 from analysis.engine.findings import Finding
 from analysis.engine.netlist import Netlist
@@ -15,19 +19,13 @@ def check_grounds(nl: Netlist, ev: StateEval, stage: str | None) -> list[Finding
     The answer depends only on which CTs and ground terminals share a circuit and which
     ground terminals share a point, so it is worked out once per such pattern (most states
     of a procedure share their starting state's) and kept on the netlist."""
-    b, r = ev._b, ev._row
-    ct_circ = b.ct_circ[r]
-    if not len(ct_circ):
+    b = ev._b
+    if not b.ct_circ.shape[1]:
         return []
-    base = ct_circ.min()
-    glab = b.node_circ[b.gnode[r]]
-    gpoint = b.gpoint[r]
-    key = (
-        "grounds",
-        (ct_circ - base).tobytes(),
-        (glab - base).tobytes(),
-        (gpoint - (gpoint.min() if len(gpoint) else 0)).tobytes(),
-    )
+    keys: list[bytes] | None = b.cache.get("ground_keys")
+    if keys is None:
+        keys = b.cache["ground_keys"] = _pattern_keys(b)
+    key = ("grounds", keys[ev._row])
     found = nl.cache.get(key)
     if found is None:
         found = nl.cache[key] = _ground_findings(ev)
@@ -35,6 +33,18 @@ def check_grounds(nl: Netlist, ev: StateEval, stage: str | None) -> list[Finding
         Finding(code=code, message=message, circuit=cid, stage=stage, numbers={"ground_points": n})
         for code, message, cid, n in found
     ]
+
+
+def _pattern_keys(b: Any) -> list[bytes]:
+    """Per state of a solved batch: which CTs and ground terminals share a circuit and which
+    ground terminals share a point, as bytes (labels counted from the state's lowest)."""
+    cbase = b.ct_circ.min(axis=1, keepdims=True)
+    gpoint = b.gpoint
+    pbase = gpoint.min(axis=1, keepdims=True) if gpoint.shape[1] else 0
+    rows = np.ascontiguousarray(
+        np.concatenate([b.ct_circ - cbase, b.node_circ[b.gnode] - cbase, gpoint - pbase], axis=1)
+    )
+    return [row.tobytes() for row in rows]
 
 
 def _ground_findings(ev: StateEval) -> list[tuple[str, str, str, int]]:

@@ -47,7 +47,7 @@ def check_open_secondary(nl: Netlist, ev: StateEval, stage: str | None) -> list[
     balanced load through the phases, and the hazard is the zero-sequence current of a ground
     fault, which has no path (common practice, no source)."""
     out: list[Finding] = []
-    if not ev.live_open.any():
+    if not ev.any_live_open:
         return out
     returns = {c.code: name for name, cts in _open_returns(nl, ev).items() for c in cts}
     for ct in nl.ct_list:
