@@ -101,47 +101,75 @@ def _csc(vals: np.ndarray, rows: np.ndarray, cols: np.ndarray, n: int) -> csc_ma
     return csc_matrix((data, (uk % n).astype(np.int32), indptr), shape=(n, n))
 
 
+Slot = tuple[int, int, Any]  # (slot, row of the batch, state)
+
+
+def _by_row(rows_of: np.ndarray, n_rows: int, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Indices of the entries of each of ``rows`` (entries listed with their row in
+    ``rows_of``), in their order, one copy per time a row is asked; and how many each has."""
+    order = np.argsort(rows_of, kind="stable")
+    count = np.bincount(rows_of, minlength=n_rows)
+    start = np.cumsum(count) - count
+    n = count[rows]
+    first = np.repeat(start[rows], n)
+    within = np.arange(int(n.sum())) - np.repeat(np.cumsum(n) - n, n)
+    return order[first + within], n
+
+
 def _batch_shorting(
-    nl: Netlist, b: Any, rows: list[int], states: dict[int, Any]
+    nl: Netlist, b: Any, slots: list[Slot]
 ) -> dict[int, list[tuple[str, tuple[str, str], float, bool]]]:
-    """``shorting_currents`` of the ``rows`` of one solved batch, all in one sparse solve."""
-    out: dict[int, list[tuple[str, tuple[str, str], float, bool]]] = {r: [] for r in rows}
+    """``shorting_currents`` of states of one solved batch, all in one sparse solve.
+
+    ``slots``: (slot, row, state) in slot order. A state's terminals are numbered from its
+    slot (its place in the list of states its batch was asked to solve), so a state that
+    the batch solved once for two steps still has a part of the Laplacian of its own, as it
+    had when each state had its row: the same matrix, the same figures."""
+    out: dict[int, list[tuple[str, tuple[str, str], float, bool]]] = {s[0]: [] for s in slots}
     z = b.zero
     if z is None or not len(z["row"]):
         return out
     n_t = b.n_terminals
-    want_row = np.zeros(int(z["row"].max()) + 1 if len(z["row"]) else 0, dtype=bool)
-    want_row[[r for r in rows if r < len(want_row)]] = True
+    n_rows = b.gnode.shape[0]
     normal, owner = _contact_info(nl)
-    in_rows = want_row[z["row"]]
-    kind, elem = z["kind"], z["elem"]
-    made = np.zeros(len(kind), dtype=bool)
-    is_c = kind == 0
-    made[is_c] = ~normal[elem[is_c]]
-    made |= kind == 3
-    wanted = np.nonzero(in_rows & made)[0]
+    kind, elem, zrow = z["kind"], z["elem"], z["row"]
+    slot_of = np.asarray([sl[0] for sl in slots], dtype=np.int64)
+    row_of = np.asarray([sl[1] for sl in slots], dtype=np.int64)
+    # every zero-impedance edge of the states, ordered as one batch of them listed them:
+    # by kind, then state, then element
+    e_idx, n_e = _by_row(zrow, n_rows, row_of)
+    e_slot = np.repeat(slot_of, n_e)
+    o = np.lexsort((e_idx, e_slot, kind[e_idx]))
+    e_idx, e_slot = e_idx[o], e_slot[o]
+    shift = (e_slot - zrow[e_idx]) * n_t
+    za, zb = z["a"][e_idx] + shift, z["b"][e_idx] + shift
+    ekind, eelem = kind[e_idx], elem[e_idx]
+    made = np.zeros(len(ekind), dtype=bool)
+    is_c = ekind == 0
+    made[is_c] = ~normal[eelem[is_c]]
+    made |= ekind == 3
+    wanted = np.nonzero(made)[0]
     if not len(wanted):
         return out
 
-    # the zero-impedance graph of those rows, with each circuit's ground points joined
-    sel = np.nonzero(in_rows)[0]
+    # the zero-impedance graph of those states, with each circuit's ground points joined
     ga: list[int] = []
     gb: list[int] = []
     grounds = list(nl.grounds)
-    for r in rows:
+    for slot, nodes in zip(slot_of.tolist(), b.gnode[row_of].tolist(), strict=True):
         first_of: dict[int, int] = {}
-        for g, node in zip(grounds, b.gnode[r].tolist(), strict=True):
-            v = r * n_t + g
+        for g, node in zip(grounds, nodes, strict=True):
+            v = slot * n_t + g
             if node in first_of:
                 ga.append(first_of[node])
                 gb.append(v)
             else:
                 first_of[node] = v
-    ea = np.concatenate([z["a"][sel], np.asarray(ga, dtype=np.int64)])
-    eb = np.concatenate([z["b"][sel], np.asarray(gb, dtype=np.int64)])
-    n_v = b.gnode.shape[0] * n_t
+    ea = np.concatenate([za, np.asarray(ga, dtype=np.int64)])
+    eb = np.concatenate([zb, np.asarray(gb, dtype=np.int64)])
+    n_v = (int(slot_of.max()) + 1) * n_t
     lab = components(n_v, ea, eb)
-    parts = np.unique(lab[z["a"][wanted]])
+    parts = np.unique(lab[za[wanted]])
     member = np.isin(lab, parts)
     members = np.nonzero(member)[0]
     local = np.full(n_v, -1, dtype=np.int64)
@@ -150,22 +178,28 @@ def _batch_shorting(
     # s: the current each terminal receives from impedance branches and CT windings
     s = np.zeros(n_v, dtype=np.complex128)
     br = b.branches
-    bsel = np.nonzero(member[br["a"]] | member[br["b"]])[0]
+    b_idx, n_b = _by_row(br["row"], n_rows, row_of)
+    b_shift = (np.repeat(slot_of, n_b) - br["row"][b_idx]) * n_t
+    b_a, b_b = br["a"][b_idx] + b_shift, br["b"][b_idx] + b_shift
+    bsel = np.nonzero(member[b_a] | member[b_b])[0]
     if len(bsel):
-        i_br = b.solution.dv(br["na"][bsel], br["nb"][bsel], 0) * b.branch_y[bsel]
-        np.add.at(s, br["a"][bsel], -i_br)
-        np.add.at(s, br["b"][bsel], i_br)
+        sel = b_idx[bsel]
+        i_br = b.solution.dv(br["na"][sel], br["nb"][sel], 0) * b.branch_y[sel]
+        np.add.at(s, b_a[bsel], -i_br)
+        np.add.at(s, b_b[bsel], i_br)
     inj = b.injections
-    isel = np.nonzero(member[inj["term"]])[0]
+    i_idx, n_i = _by_row(inj["row"], n_rows, row_of)
+    i_term = inj["term"][i_idx] + (np.repeat(slot_of, n_i) - inj["row"][i_idx]) * n_t
+    isel = np.nonzero(member[i_term])[0]
     if len(isel):
-        np.add.at(s, inj["term"][isel], inj["cur"][isel])
+        np.add.at(s, i_term[isel], inj["cur"][i_idx[isel]])
     wa = b.windings
     if wa is not None and wa.n:
         # each section's current leaves the winding at its lower-position end (windings.py)
-        for r in rows:
-            j = b.row_sections(r)[0]
-            np.add.at(s, wa.sec_a + r * n_t, j)
-            np.add.at(s, wa.sec_b + r * n_t, -j)
+        j = b.sections_all()[0][row_of]
+        base = slot_of[:, None] * n_t
+        np.add.at(s, (wa.sec_a[None, :] + base).ravel(), j.ravel())
+        np.add.at(s, (wa.sec_b[None, :] + base).ravel(), -j.ravel())
 
     # Laplacian of the parts' elements (unit conductances), one datum terminal per part
     keep = member[ea] & (ea != eb)
@@ -192,28 +226,43 @@ def _batch_shorting(
     lap = _csc(vals, rows_, cols_, n)
     rhs = s[members]
     rhs[datum] = 0.0
-    wa, wb = local[z["a"][wanted]], local[z["b"][wanted]]
-    # one column per wanted element for its effective resistance (e_a - e_b, datum rows 0)
-    probe = np.zeros((n, len(wanted)))
-    probe[wa, np.arange(len(wanted))] += 1.0
-    probe[wb, np.arange(len(wanted))] -= 1.0
-    probe[datum, :] = 0.0
+    wa_, wb_ = local[za[wanted]], local[zb[wanted]]
     lu = splu(lap)
     phi = lu.solve(np.ascontiguousarray(rhs.real)) + 1j * lu.solve(np.ascontiguousarray(rhs.imag))
-    pot = lu.solve(probe)
-    pot[datum, :] = 0.0
-    cols = np.arange(len(wanted))
-    r_eff = pot[wa, cols] - pot[wb, cols]
-    cur = np.abs(phi[wa] - phi[wb])
-    for k, e in enumerate(wanted.tolist()):
-        r = int(z["row"][e])
-        if kind[e] == 0:
-            c = nl.contacts[int(elem[e])]
-            name, ends = owner[c.index], (nl.terminals[c.a], nl.terminals[c.b])
+    cur = np.abs(phi[wa_] - phi[wb_]).tolist()
+    # Effective resistance of each wanted element (e_a - e_b, datum rows 0), one column each.
+    # In a part whose elements form a tree every element is a bridge (exactly 1); only the
+    # parts with a loop, and an element from a terminal to itself, need the solve.
+    plab = lab[members]
+    n_vert = np.bincount(plab, minlength=n_v)
+    n_edge = np.bincount(lab[ea[keep]], minlength=n_v)
+    wlab = lab[za[wanted]]
+    need = np.flatnonzero((n_edge[wlab] != n_vert[wlab] - 1) | (wa_ == wb_))
+    r_eff = [1.0] * len(wanted)
+    if len(need):
+        probe = np.zeros((n, len(need)))
+        cols = np.arange(len(need))
+        probe[wa_[need], cols] += 1.0
+        probe[wb_[need], cols] -= 1.0
+        probe[datum, :] = 0.0
+        pot = lu.solve(probe)
+        pot[datum, :] = 0.0
+        for k, r in zip(
+            need.tolist(), (pot[wa_[need], cols] - pot[wb_[need], cols]).tolist(), strict=True
+        ):
+            r_eff[k] = r
+    state_of = {sl[0]: sl[2] for sl in slots}
+    terminals = nl.terminals
+    for k, (slot, knd, el) in enumerate(
+        zip(e_slot[wanted].tolist(), ekind[wanted].tolist(), eelem[wanted].tolist(), strict=True)
+    ):
+        if knd == 0:
+            c = nl.contacts[el]
+            name, ends = owner[c.index], (terminals[c.a], terminals[c.b])
         else:
-            jid, ja, jb = states[r].jumpers[int(elem[e])]
-            name, ends = jid, (nl.terminals[ja], nl.terminals[jb])
-        out[r].append((name, ends, float(cur[k]), bool(r_eff[k] < 1.0 - 1e-9)))
+            jid, ja, jb = state_of[slot].jumpers[el]
+            name, ends = jid, (terminals[ja], terminals[jb])
+        out[slot].append((name, ends, cur[k], r_eff[k] < 1.0 - 1e-9))
     return out
 
 
@@ -225,7 +274,7 @@ def shorting_currents(nl: Netlist, ev: Any) -> list[tuple[str, tuple[str, str], 
     An element is *in parallel* when it lies on a loop of zero-impedance elements (it is no
     bridge of its node's element graph: the effective resistance between its ends, with unit
     conductances, is below 1); its share of the current is then the equal-split estimate."""
-    return _batch_shorting(nl, ev._b, [ev._row], {ev._row: ev.state})[ev._row]
+    return _batch_shorting(nl, ev._b, [(ev._slot, ev._row, ev.state)])[ev._slot]
 
 
 def readings_of(
@@ -238,10 +287,10 @@ def readings_of(
     shorts: dict[int, list[tuple[str, tuple[str, str], float, bool]]] = {}
     for ks in by_batch.values():
         b = evs[ks[0]]._b
-        rows = sorted({evs[k]._row for k in ks})
-        got = _batch_shorting(nl, b, rows, {evs[k]._row: evs[k].state for k in ks})
+        slots = {evs[k]._slot: (evs[k]._slot, evs[k]._row, evs[k].state) for k in ks}
+        got = _batch_shorting(nl, b, [slots[x] for x in sorted(slots)])
         for k in ks:
-            shorts[k] = got[evs[k]._row]
+            shorts[k] = got[evs[k]._slot]
     out = []
     for k, ev in enumerate(evs):
         items = input_readings(nl, ev, devices)

@@ -69,6 +69,8 @@ class _StateBatch:
     # row -> (current of each winding section, current each tapped winding delivers at its
     # first terminal): ``windings.section_currents`` for one state, solved on first use
     row_sections: Callable[[int], tuple[np.ndarray, np.ndarray]]
+    # the same for every state at once (states × sections, states × tapped CTs)
+    sections_all: Callable[[], tuple[np.ndarray, np.ndarray]]
     # What ``readings`` needs to recover the currents of zero-impedance elements: the
     # zero-impedance edges of every state (vertex = row * terminals + terminal), the impedance
     # branches and the solve, and the CT injections at their terminals (load column).
@@ -86,11 +88,14 @@ class StateEval:
     """What the checks need to know about one solved state (row ``row`` of a batch); the
     per-circuit views are built on first use."""
 
-    __slots__ = ("_b", "_cache", "_row", "state")
+    __slots__ = ("_b", "_cache", "_row", "_slot", "state")
 
-    def __init__(self, batch: _StateBatch, row: int, state: State) -> None:
+    def __init__(self, batch: _StateBatch, row: int, state: State, slot: int | None = None) -> None:
         self._b = batch
         self._row = row
+        # the state's place in the list its batch was asked to solve (a state asked twice is
+        # solved once: one row, two slots)
+        self._slot = row if slot is None else slot
         self.state = state
         self._cache: dict[str, Any] = {}
 
@@ -601,7 +606,7 @@ def evaluate_groups(groups: Sequence[tuple[Netlist, Sequence[State]]]) -> list[l
         b_end = b_start + len(g.ba)
         batch = _batch_of(g, topo, sol, tl, ref, p, b_start, b_end)
         row = {st: r for r, st in enumerate(g.states)}
-        out[k] = [StateEval(batch, row[st], st) for st in states]
+        out[k] = [StateEval(batch, row[st], st, i) for i, st in enumerate(states)]
         b_start = b_end
     return out
 
@@ -631,7 +636,11 @@ def _batch_of(
     all_sections: list[tuple[np.ndarray, np.ndarray]] = []
 
     def row_sections(row: int) -> tuple[np.ndarray, np.ndarray]:
-        # every state at once on the first request (one vectorized pass), then by row
+        cur, out = sections_all()
+        return cur[row], out[row]
+
+    def sections_all() -> tuple[np.ndarray, np.ndarray]:
+        # every state at once on the first request (one vectorized pass)
         if not all_sections:
             lv, cts = live[:, wa.ct], wa.ct
             all_sections.append(
@@ -644,8 +653,7 @@ def _batch_of(
                     np.where(lv & ~ct_open[:, cts], load[:, cts] * wa.sign[None, :], 0.0),
                 )
             )
-        cur, out = all_sections[0]
-        return cur[row], out[row]
+        return all_sections[0]
 
     # device input currents, both columns
     n_in = len(nl.inputs)
@@ -679,6 +687,7 @@ def _batch_of(
         ends_shorted=topo.term_point[wa.src[None, :] + goffs[:, None]]
         == topo.term_point[wa.snk[None, :] + goffs[:, None]],
         row_sections=row_sections,
+        sections_all=sections_all,
     )
     batch.n_terminals = n_t
     batch.zero = {
