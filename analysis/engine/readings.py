@@ -87,7 +87,9 @@ def _contact_info(nl: Netlist) -> tuple[np.ndarray, list[str]]:
 def _csc(vals: np.ndarray, rows: np.ndarray, cols: np.ndarray, n: int) -> csc_matrix:
     """The n × n matrix of the (row, col, value) entries, duplicates summed, in canonical CSC
     form (sorted indices): what ``csc_matrix((vals, (rows, cols)))`` gives, without the
-    general constructor's conversions."""
+    general constructor's conversions (which win above a few hundred entries)."""
+    if len(vals) > 400:
+        return csc_matrix((vals, (rows, cols)), shape=(n, n))
     key = cols * n + rows
     order = np.argsort(key, kind="stable")
     ks = key[order]
@@ -196,7 +198,7 @@ def _batch_shorting(
     wa = b.windings
     if wa is not None and wa.n:
         # each section's current leaves the winding at its lower-position end (windings.py)
-        j = b.sections_all()[0][row_of]
+        j = b.sections_all(False)[0][row_of]
         base = slot_of[:, None] * n_t
         np.add.at(s, (wa.sec_a[None, :] + base).ravel(), j.ravel())
         np.add.at(s, (wa.sec_b[None, :] + base).ravel(), -j.ravel())

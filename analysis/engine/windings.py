@@ -355,6 +355,7 @@ def section_currents(
     dv: Any,
     node_of: Any,
     ideal: np.ndarray,
+    delivered_too: bool = True,
 ) -> tuple[np.ndarray, np.ndarray]:
     """(states × sections) current of every section, leaving the winding at the section's
     lower-position end, and (states × tapped CTs) current the winding delivers into the node of
@@ -380,8 +381,9 @@ def section_currents(
         v_sec = dv(node_of(srow, wa.sec_a[sec]), node_of(srow, wa.sec_b[sec]))
         cur[srow, sec] = i_lo + v_ends / wa.r_full[m] - v_sec / wa.sec_r[sec]
     # current into the first terminal's node: sections leaving there minus those entering
+    # (``delivered_too`` False: left at 0, for a caller that needs the sections only)
     delivered = np.zeros((n_states, wa.n), dtype=np.complex128)
-    if wa.n and n_states:
+    if wa.n and n_states and delivered_too:
         s_idx = np.arange(n_states)[:, None]
         nf = node_of(s_idx, wa.first[wa.sec_m][None, :])
         out_a = node_of(s_idx, wa.sec_a[None, :]) == nf

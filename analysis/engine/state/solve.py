@@ -70,7 +70,7 @@ class _StateBatch:
     # first terminal): ``windings.section_currents`` for one state, solved on first use
     row_sections: Callable[[int], tuple[np.ndarray, np.ndarray]]
     # the same for every state at once (states × sections, states × tapped CTs)
-    sections_all: Callable[[], tuple[np.ndarray, np.ndarray]]
+    sections_all: Callable[[bool], tuple[np.ndarray, np.ndarray]]
     # What ``readings`` needs to recover the currents of zero-impedance elements: the
     # zero-impedance edges of every state (vertex = row * terminals + terminal), the impedance
     # branches and the solve, and the CT injections at their terminals (load column).
@@ -633,27 +633,28 @@ def _batch_of(
     live, ct_open, ct_circ, load = g.live, p["ct_open"], p["ct_circ"], p["load"]
     wa, coupled, node_of = p["wa"], p["coupled"], p["node_of"]
     f, s2 = p["f"], p["s2"]
-    all_sections: list[tuple[np.ndarray, np.ndarray]] = []
+    all_sections: dict[bool, tuple[np.ndarray, np.ndarray]] = {}
 
     def row_sections(row: int) -> tuple[np.ndarray, np.ndarray]:
         cur, out = sections_all()
         return cur[row], out[row]
 
-    def sections_all() -> tuple[np.ndarray, np.ndarray]:
-        # every state at once on the first request (one vectorized pass)
-        if not all_sections:
+    def sections_all(delivered: bool = True) -> tuple[np.ndarray, np.ndarray]:
+        # every state at once on the first request (one vectorized pass); the section
+        # currents are the same whether the delivered currents are worked out or not
+        hit = all_sections.get(True) or all_sections.get(delivered)
+        if hit is None:
             lv, cts = live[:, wa.ct], wa.ct
-            all_sections.append(
-                section_currents(
-                    wa,
-                    coupled,
-                    np.where(lv & coupled, load[:, cts] * wa.scale[None, :], 0.0),
-                    lambda a, b: sol.dv(a, b, 0),
-                    node_of,
-                    np.where(lv & ~ct_open[:, cts], load[:, cts] * wa.sign[None, :], 0.0),
-                )
+            hit = all_sections[delivered] = section_currents(
+                wa,
+                coupled,
+                np.where(lv & coupled, load[:, cts] * wa.scale[None, :], 0.0),
+                lambda a, b: sol.dv(a, b, 0),
+                node_of,
+                np.where(lv & ~ct_open[:, cts], load[:, cts] * wa.sign[None, :], 0.0),
+                delivered,
             )
-        return all_sections[0]
+        return hit
 
     # device input currents, both columns
     n_in = len(nl.inputs)
