@@ -21,6 +21,7 @@ ampere-turns of excitation f⁻¹ times the current (S5, S6).
 
 from __future__ import annotations
 
+import bisect
 import functools
 import itertools
 import math
@@ -87,44 +88,78 @@ def scale_to_tap(curve: ExcitationCurve, turns_fraction: float) -> ExcitationCur
     )
 
 
+def _sign(v: float) -> float:
+    """``np.sign`` of a float: -1, 0 or 1, NaN for NaN."""
+    if v > 0:
+        return 1.0
+    if v < 0:
+        return -1.0
+    return v if v != v else 0.0
+
+
 class Pchip:
     """Monotone piecewise-cubic Hermite interpolant (Fritsch-Carlson derivatives, scipy's
-    ``PchipInterpolator`` rule), no extrapolation: NaN outside [x0, xn]."""
+    ``PchipInterpolator`` rule), no extrapolation: NaN outside [x0, xn].
 
-    __slots__ = ("d", "h", "m", "x", "y")
+    Built and evaluated at one point with plain floats (a curve has a handful of points, and
+    the knee searches evaluate it point by point: numpy's per-call overhead would dominate);
+    evaluated over many points with numpy. Both do the same IEEE operations in the same order,
+    so they give the same bits.
+    """
+
+    __slots__ = ("_a", "_b", "_c", "_d", "_h", "_m", "_x", "_y", "d", "h", "m", "x", "y")
 
     def __init__(self, x: np.ndarray, y: np.ndarray) -> None:
-        self.x, self.y = x, y
-        self.h = h = np.diff(x)
-        self.m = m = np.diff(y) / h
-        d = np.empty_like(x)
-        if len(x) == 2:
-            d[:] = m[0]
+        xs: list[float] = np.asarray(x, dtype=float).tolist()
+        ys: list[float] = np.asarray(y, dtype=float).tolist()
+        n = len(xs)
+        h = [xs[i + 1] - xs[i] for i in range(n - 1)]
+        m = [(ys[i + 1] - ys[i]) / h[i] for i in range(n - 1)]
+        if n == 2:
+            d = [m[0], m[0]]
         else:
-            w1 = 2 * h[1:] + h[:-1]
-            w2 = h[1:] + 2 * h[:-1]
-            flat = (np.sign(m[1:]) != np.sign(m[:-1])) | (m[1:] == 0) | (m[:-1] == 0)
-            with np.errstate(divide="ignore", invalid="ignore"):
-                whmean = (w1 / m[:-1] + w2 / m[1:]) / (w1 + w2)
-                d[1:-1] = np.where(flat, 0.0, 1.0 / whmean)
+            d = [0.0] * n
+            for i in range(n - 2):
+                m0, m1 = m[i], m[i + 1]
+                if _sign(m1) != _sign(m0) or m1 == 0 or m0 == 0:
+                    continue  # a flat or turning point: zero slope
+                w1 = 2 * h[i + 1] + h[i]
+                w2 = h[i + 1] + 2 * h[i]
+                whmean = (w1 / m0 + w2 / m1) / (w1 + w2)
+                d[i + 1] = 1.0 / whmean if whmean != 0 else math.copysign(math.inf, whmean)
             d[0] = self._edge(h[0], h[1], m[0], m[1])
             d[-1] = self._edge(h[-1], h[-2], m[-1], m[-2])
-        self.d = d
+        self._x, self._y, self._h, self._m, self._d = xs, ys, h, m, d
+        # Slope on interval k as a t² + b t + c, t in [0, 1].
+        self._a = [-6 * m[k] + 3 * d[k] + 3 * d[k + 1] for k in range(n - 1)]
+        self._b = [6 * m[k] - 4 * d[k] - 2 * d[k + 1] for k in range(n - 1)]
+        self._c = d[:-1]
+        self.x, self.y = np.array(xs), np.array(ys)
+        self.h, self.m, self.d = np.array(h), np.array(m), np.array(d)
 
     @staticmethod
     def _edge(h0: float, h1: float, m0: float, m1: float) -> float:
         d = ((2 * h0 + h1) * m0 - h0 * m1) / (h0 + h1)
-        if np.sign(d) != np.sign(m0):
+        if _sign(d) != _sign(m0):
             return 0.0
-        if np.sign(m0) != np.sign(m1) and abs(d) > 3 * abs(m0):
+        if _sign(m0) != _sign(m1) and abs(d) > 3 * abs(m0):
             return 3 * m0
-        return float(d)
+        return d
 
     def _locate(self, xq: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        k = np.clip(np.searchsorted(self.x, xq, side="right") - 1, 0, len(self.x) - 2)
+        k = np.searchsorted(self.x, xq, side="right") - 1
+        k = np.minimum(np.maximum(k, 0), len(self.x) - 2)
         t = (xq - self.x[k]) / self.h[k]
         inside = (xq >= self.x[0]) & (xq <= self.x[-1])
         return k, t, inside
+
+    def _interval(self, xq: float) -> tuple[int, float] | None:
+        """The interval k of a point and its position t in it; None outside [x0, xn]."""
+        xs = self._x
+        if not xs[0] <= xq <= xs[-1]:
+            return None
+        k = min(max(bisect.bisect_right(xs, xq) - 1, 0), len(xs) - 2)
+        return k, (xq - xs[k]) / self._h[k]
 
     def __call__(self, xq: np.ndarray | float) -> np.ndarray:
         xq = np.asarray(xq, dtype=float)
@@ -139,24 +174,42 @@ class Pchip:
         )
         return np.where(inside, val, np.nan)
 
+    def at(self, xq: float) -> float:
+        """The interpolant at one point (as :meth:`__call__`, with plain floats)."""
+        found = self._interval(xq)
+        if found is None:
+            return math.nan
+        k, t = found
+        h, d0, d1 = self._h[k], self._d[k], self._d[k + 1]
+        t2, t3 = t * t, t * t * t
+        return (
+            (2 * t3 - 3 * t2 + 1) * self._y[k]
+            + (t3 - 2 * t2 + t) * h * d0
+            + (-2 * t3 + 3 * t2) * self._y[k + 1]
+            + (t3 - t2) * h * d1
+        )
+
     def derivative(self, xq: np.ndarray | float) -> np.ndarray:
         xq = np.asarray(xq, dtype=float)
         k, t, inside = self._locate(xq)
-        a, b, c = self._slope_quadratic()
+        a, b, c = np.array(self._a), np.array(self._b), np.array(self._c)
         val = (a[k] * t + b[k]) * t + c[k]
         return np.where(inside, val, np.nan)
 
-    def _slope_quadratic(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Slope on interval k as a t² + b t + c, t in [0, 1]."""
-        m, d0, d1 = self.m, self.d[:-1], self.d[1:]
-        return -6 * m + 3 * d0 + 3 * d1, 6 * m - 4 * d0 - 2 * d1, d0
+    def derivative_at(self, xq: float) -> float:
+        """The slope at one point (as :meth:`derivative`, with plain floats)."""
+        found = self._interval(xq)
+        if found is None:
+            return math.nan
+        k, t = found
+        return (self._a[k] * t + self._b[k]) * t + self._c[k]
 
     def slope_crossings(self, level: float) -> list[tuple[float, float]]:
         """Points (x, slope change sign) where the slope passes through ``level``, in order."""
-        a, b, c = self._slope_quadratic()
         out: list[tuple[float, float]] = []
-        for k in range(len(self.h)):
-            ak, bk, ck = float(a[k]), float(b[k]), float(c[k]) - level
+        last = len(self._h) - 1
+        for k in range(last + 1):
+            ak, bk, ck = self._a[k], self._b[k], self._c[k] - level
             if abs(ak) < 1e-12:
                 roots = [] if abs(bk) < 1e-12 else [-ck / bk]
             else:
@@ -166,21 +219,28 @@ class Pchip:
                 sq = math.sqrt(disc)
                 roots = sorted({(-bk - sq) / (2 * ak), (-bk + sq) / (2 * ak)})
             for t in roots:
-                if 0.0 <= t < 1.0 or (k == len(self.h) - 1 and t == 1.0):
-                    out.append((float(self.x[k] + t * self.h[k]), 2 * ak * t + bk))
+                if 0.0 <= t < 1.0 or (k == last and t == 1.0):
+                    out.append((self._x[k] + t * self._h[k], 2 * ak * t + bk))
         return out
 
     def max_slope_x(self) -> float:
-        """Where the slope is largest (nodes or an interior vertex of a slope parabola)."""
-        a, b, _ = self._slope_quadratic()
-        xs = list(self.x)
-        for k in range(len(self.h)):
-            if a[k] < 0:
-                t = -b[k] / (2 * a[k])
+        """Where the slope is largest (nodes or an interior vertex of a slope parabola); the
+        first such point, NaN slopes counting as largest (``np.argmax``'s rule)."""
+        xs = list(self._x)
+        for k in range(len(self._h)):
+            ak = self._a[k]
+            if ak < 0:
+                t = -self._b[k] / (2 * ak)
                 if 0 < t < 1:
-                    xs.append(float(self.x[k] + t * self.h[k]))
-        xs_arr = np.asarray(xs)
-        return float(xs_arr[int(np.argmax(self.derivative(xs_arr)))])
+                    xs.append(self._x[k] + t * self._h[k])
+        best, best_slope = 0, math.nan
+        for i, xq in enumerate(xs):
+            slope = self.derivative_at(xq)
+            if slope != slope:
+                return xq
+            if i == 0 or slope > best_slope:
+                best, best_slope = i, slope
+        return xs[best]
 
 
 def _logs(curve: ExcitationCurve) -> tuple[np.ndarray, np.ndarray]:
@@ -203,14 +263,14 @@ def voltage_at(curve: ExcitationCurve, current_a: float) -> float | None:
     """E.m.f. at an exciting current, interpolated on log-log; None outside the measured range."""
     if not curve.current_a[0] <= current_a <= curve.current_a[-1]:
         return None
-    return float(math.exp(_log_v_of_log_i(curve)(math.log(current_a))))
+    return math.exp(_log_v_of_log_i(curve).at(math.log(current_a)))
 
 
 def current_at(curve: ExcitationCurve, voltage_v: float) -> float | None:
     """Exciting current at an e.m.f., interpolated on log-log; None outside the measured range."""
     if not curve.voltage_v[0] <= voltage_v <= curve.voltage_v[-1]:
         return None
-    return float(math.exp(_log_i_of_log_v(curve)(math.log(voltage_v))))
+    return math.exp(_log_i_of_log_v(curve).at(math.log(voltage_v)))
 
 
 @functools.lru_cache(maxsize=4096)
@@ -227,7 +287,7 @@ def knee_point_ieee(curve: ExcitationCurve) -> KneePoint | None:
     x_steep = f.max_slope_x()
     for xk, turn in f.slope_crossings(IEEE_KNEE_SLOPE):
         if xk >= x_steep and turn < 0:
-            return KneePoint(voltage_v=float(math.exp(f(xk))), current_a=float(math.exp(xk)))
+            return KneePoint(voltage_v=math.exp(f.at(xk)), current_a=math.exp(xk))
     return None
 
 
@@ -245,13 +305,14 @@ def knee_point_iec(curve: ExcitationCurve) -> KneePoint | None:
         return None
     target = math.log(IEC_CURRENT_STEP)
 
-    def h(y: np.ndarray | float) -> np.ndarray:
-        y = np.minimum(y, y1)  # keep y + step inside the curve despite rounding
-        out: np.ndarray = g(y + step) - g(y) - target
-        return out
+    def h(y: float) -> float:
+        y = y if y <= y1 else y1  # keep y + step inside the curve despite rounding
+        return g.at(y + step) - g.at(y) - target
 
     y = np.linspace(y0, y1, _GRID)
-    hv = h(y)
+    ys = np.minimum(y, y1)
+    both = g(np.concatenate((ys + step, ys)))  # one evaluation for both ends of the step
+    hv = both[:_GRID] - both[_GRID:] - target
     up = np.nonzero((hv[:-1] < 0) & (hv[1:] >= 0))[0]
     if len(up) == 0:
         return None
@@ -261,14 +322,14 @@ def knee_point_iec(curve: ExcitationCurve) -> KneePoint | None:
         mid = lo - h_lo * (hi - lo) / (h_hi - h_lo) if h_hi != h_lo else 0.5 * (lo + hi)
         if not lo < mid < hi:
             mid = 0.5 * (lo + hi)
-        h_mid = float(h(mid))
+        h_mid = h(mid)
         if abs(h_mid) < 1e-12 or hi - lo < 1e-12:
             break
         if h_mid < 0:
             lo, h_lo = mid, h_mid
         else:
             hi, h_hi = mid, h_mid
-    return KneePoint(voltage_v=float(math.exp(mid)), current_a=float(math.exp(g(mid))))
+    return KneePoint(voltage_v=math.exp(mid), current_a=math.exp(g.at(mid)))
 
 
 def operating_point(curve: ExcitationCurve, emf_v: float) -> tuple[float, float | None]:
