@@ -14,12 +14,18 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field, replace
 from typing import Any
 
+import numpy as np
+
 import record as rec
 from analysis.engine import findings as fc
 from analysis.engine.findings import Finding
-from analysis.engine.ratings.saturation import SaturationCase, assess_case
+from analysis.engine.ratings.columns import CASES as CASES
+from analysis.engine.ratings.columns import Burdens, CTColumns, ct_columns
+from analysis.engine.ratings.rounding import rounded_text as _g
+from analysis.engine.ratings.rounding import rounded_texts
+from analysis.engine.ratings.saturation import SaturationCase
 from analysis.engine.ratings.site import SiteIndex
-from analysis.engine.ratings.taps import Tap, winding_ohm_at_tap
+from analysis.engine.ratings.taps import Tap
 from trade.accuracy import (
     IEC_METERING,
     IEC_PROTECTION,
@@ -27,23 +33,10 @@ from trade.accuracy import (
     IEC_TRANSIENT,
     AccuracyClass,
     effective_alf,
-    parse_accuracy,
 )
 from trade.ratio import parse_ratio, ratio_value, ratios_equal
 
-CASES = ("ground_fault", "phase_fault")
-CASE_FAULT_KEY = {"ground_fault": "ground_fault_ka", "phase_fault": "three_phase_fault_ka"}
 CASE_LABEL = {"ground_fault": "ground fault", "phase_fault": "phase fault"}
-
-
-def _g(x: float | None, digits: int = 4) -> str:
-    """A number for a message: ``digits`` significant figures, never in exponent form."""
-    if x is None:
-        return "?"
-    if not math.isfinite(x):
-        return f"{x:g}"
-    value = float(f"{x:.{digits}g}")
-    return f"{value:.0f}" if value.is_integer() else f"{value:g}"
 
 
 def _tap_text(tap: Tap) -> str:
@@ -118,7 +111,12 @@ def input_rating_check(
 ) -> Finding | None:
     """``input_rating_mismatch`` when the CT's secondary rating (1 A / 5 A) matches none of the
     rated currents of the device inputs it can feed (record inputs or site-file entries)."""
-    rated = _rated_inputs(inputs)
+    return _input_rating_finding(device, _rated_inputs(inputs), ct, secondary_a)
+
+
+def _input_rating_finding(
+    device: str, rated: list[tuple[str, float]], ct: str, secondary_a: float
+) -> Finding | None:
     if not rated or any(abs(r - secondary_a) < 1e-9 for _, r in rated):
         return None
     names = ", ".join(f"{n} {r:g} A" for n, r in rated)
@@ -177,63 +175,96 @@ def accuracy_check(
 def saturation_findings(*, ct: str, tap: Tap, result: SaturationCase) -> list[Finding]:
     """``saturation_risk`` where the C37.110 criterion fails (the per-unit index above 20, or
     the ALF for IEC P; the voltage form for PX), ``missing_data`` where it cannot run."""
-    label = CASE_LABEL.get(result.case, result.case)
     if result.missing:
-        return [
-            Finding(
-                code=fc.MISSING_DATA,
-                ct=ct,
-                message=(
-                    f"{ct}: saturation check ({label}) not run: missing "
-                    + ", ".join(result.missing)
-                ),
-                numbers={"case": result.case, "missing": list(result.missing)},
-            )
-        ]
-    # The per-unit criterion decides for IEEE C/K/T; the voltage form, which also counts the
-    # winding drop, decides for PX. For IEC P classes either one failing is a risk: their
-    # per-unit index leaves out the CT's own winding, which dominates with 1 A secondaries,
-    # while the voltage form compares with E_al, the accuracy limit e.m.f. (S10).
+        return [_saturation_missing(ct, result.case, result.missing)]
     iec_p = result.alf_effective is not None
-    if result.c37_110_index is None:
-        fails = result.voltage_fails
-    else:
-        fails = result.index_fails or (iec_p and result.voltage_fails)
-    if not fails:
+    index = result.c37_110_index
+    if not _fails(index is not None, result.index_fails, result.voltage_fails, iec_p):
         return []
-    parts = []
-    if result.c37_110_index is not None:
-        relation = ">" if result.index_fails else "≤"
-        parts.append(f"C37.110 index {_g(result.c37_110_index, 3)} {relation} {result.limit:g}")
-    if result.vx_required_v is not None and result.vx_available_v is not None:
-        parts.append(
-            f"voltage form needs {_g(result.vx_required_v)} V, has {_g(result.vx_available_v)} V"
-        )
-    parts.append(f"at {_tap_text(tap)}")
-    parts.append(
-        f"I_f {_g(result.secondary_fault_a)} A secondary ({_g(result.fault_a)} A primary), "
-        f"X/R {_g(result.x_over_r)}, burden {_g(abs(result.burden_ohm or 0))} Ω"
+    vx_required, vx_available = result.vx_required_v, result.vx_available_v
+    time_ms = result.time_to_saturate_ms
+    texts = _SaturationTexts(
+        index=None if index is None else _g(index, 3),
+        vx_required=None if vx_required is None else _g(vx_required),
+        vx_available=None if vx_available is None else _g(vx_available),
+        secondary_fault_a=_g(result.secondary_fault_a),
+        fault_a=_g(result.fault_a),
+        x_over_r=_g(result.x_over_r),
+        burden=_g(abs(result.burden_ohm or 0)),
+        time_ms=None if time_ms is None else _g(time_ms, 2),
     )
-    if result.time_to_saturate_ms is not None:
-        parts.append(f"saturates after about {_g(result.time_to_saturate_ms, 2)} ms")
-    return [
-        Finding(
-            code=fc.SATURATION_RISK,
-            ct=ct,
-            message=f"{ct} ({label}): " + "; ".join(parts),
-            numbers={
-                "case": result.case,
-                "c37_110_index": result.c37_110_index,
-                "limit": result.limit,
-                "vx_required_v": result.vx_required_v,
-                "vx_available_v": result.vx_available_v,
-                "time_to_saturate_ms": result.time_to_saturate_ms,
-            },
-        )
-    ]
+    numbers = {
+        "case": result.case,
+        "c37_110_index": index,
+        "limit": result.limit,
+        "vx_required_v": vx_required,
+        "vx_available_v": vx_available,
+        "time_to_saturate_ms": time_ms,
+    }
+    return [_saturation_risk(ct, _tap_text(tap), result.index_fails, texts, numbers)]
 
 
-# --- one CT ------------------------------------------------------------------------------------
+def _fails(has_index: Any, index_fails: Any, voltage_fails: Any, iec_p: Any) -> Any:
+    """Whether a case is a saturation risk (one value or a column alike). The per-unit
+    criterion decides for IEEE C/K/T; the voltage form, which also counts the winding drop,
+    decides for PX. For IEC P classes either one failing is a risk: their per-unit index leaves
+    out the CT's own winding, which dominates with 1 A secondaries, while the voltage form
+    compares with E_al, the accuracy limit e.m.f. (S10)."""
+    if isinstance(has_index, np.ndarray):
+        return np.where(has_index, index_fails | (iec_p & voltage_fails), voltage_fails)
+    return (index_fails or (iec_p and voltage_fails)) if has_index else voltage_fails
+
+
+def _saturation_missing(ct: str, case: str, missing: tuple[str, ...]) -> Finding:
+    label = CASE_LABEL.get(case, case)
+    return Finding(
+        code=fc.MISSING_DATA,
+        ct=ct,
+        message=f"{ct}: saturation check ({label}) not run: missing " + ", ".join(missing),
+        numbers={"case": case, "missing": list(missing)},
+    )
+
+
+@dataclass(frozen=True, slots=True)
+class _SaturationTexts:
+    """The figures a saturation finding quotes, as text (None where the figure is absent)."""
+
+    index: str | None
+    vx_required: str | None
+    vx_available: str | None
+    secondary_fault_a: str
+    fault_a: str
+    x_over_r: str
+    burden: str
+    time_ms: str | None
+
+
+def _saturation_risk(
+    ct: str, tap_text: str, index_fails: bool, texts: _SaturationTexts, numbers: dict[str, Any]
+) -> Finding:
+    case = numbers["case"]
+    parts = []
+    if texts.index is not None:
+        relation = ">" if index_fails else "≤"
+        parts.append(f"C37.110 index {texts.index} {relation} {numbers['limit']:g}")
+    if texts.vx_required is not None and texts.vx_available is not None:
+        parts.append(f"voltage form needs {texts.vx_required} V, has {texts.vx_available} V")
+    parts.append(f"at {tap_text}")
+    parts.append(
+        f"I_f {texts.secondary_fault_a} A secondary ({texts.fault_a} A primary), "
+        f"X/R {texts.x_over_r}, burden {texts.burden} Ω"
+    )
+    if texts.time_ms is not None:
+        parts.append(f"saturates after about {texts.time_ms} ms")
+    return Finding(
+        code=fc.SATURATION_RISK,
+        ct=ct,
+        message=f"{ct} ({CASE_LABEL.get(case, case)}): " + "; ".join(parts),
+        numbers=numbers,
+    )
+
+
+# --- CTs ---------------------------------------------------------------------------------------
 
 
 @dataclass(slots=True)
@@ -248,168 +279,220 @@ class CTRating:
     findings: list[Finding] = field(default_factory=list)
 
 
-def _float(value: Any) -> float | None:
-    """A number from the document, or None when absent or not a number (validation reports
-    the latter at import; the ratings then treat it as missing)."""
-    if value is None or value == "" or isinstance(value, bool):
-        return None
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        return None
-    return number if math.isfinite(number) else None
-
-
-@functools.lru_cache(maxsize=4096)
-def _accuracy(
-    text: str, rated_burden_va: float | None, knee_v: float | None
-) -> AccuracyClass | str:
-    """The class parsed once per distinct (class, rated burden, knee) — the CTs of a set share
-    them; the error message where it is not a class."""
-    try:
-        return parse_accuracy(text, rated_burden_va=rated_burden_va, knee_v=knee_v)
-    except ValueError as err:
-        return str(err)
-
-
 def _missing(ct: str, what: str, **numbers: Any) -> Finding:
     return Finding(code=fc.MISSING_DATA, ct=ct, message=f"{ct}: {what}", numbers=numbers)
 
 
-def evaluate_ct(
-    index: SiteIndex, ct_code: str, burdens: Mapping[str, complex | None] | None
-) -> CTRating:
-    """Tap, accuracy at the tap, both fault cases and the CT's own findings (thermal, accuracy,
-    saturation, missing data). ``burdens`` maps "ground_fault"/"phase_fault" to the external
-    burden at the CT terminals (complex ohms), None where open or unknown."""
-    ct = index.ct(ct_code)
-    burdens = burdens or {}
-    neutral = str(ct.phase or "").upper() == "N"
-    out: list[Finding] = []
-    try:
-        tap = index.tap(ct)
-    except ValueError as err:
-        out.append(_missing(ct_code, f"ratings not computed: {err}"))
-        return CTRating(ct_code, None, None, None, dict.fromkeys(CASES), out)
-
-    accuracy: AccuracyClass | None = None
-    text = ct.accuracy
-    if not text:
-        out.append(_missing(ct_code, "no accuracy class: accuracy and saturation checks not run"))
-    else:
-        parsed = _accuracy(text, _float(ct.rated_burden_va), _float(ct.knee_v))
-        if isinstance(parsed, AccuracyClass):
-            accuracy = parsed
-        else:
-            out.append(_missing(ct_code, f"accuracy class not understood: {parsed}"))
+@functools.lru_cache(maxsize=1024)
+def _class_notes(
+    has_text: bool, accuracy: AccuracyClass | None, error: str | None, secondary_a: float
+) -> tuple[str, ...]:
+    """What a CT's accuracy class leaves unassessed, as missing-data messages."""
+    notes = []
+    if not has_text:
+        notes.append("no accuracy class: accuracy and saturation checks not run")
+    elif error is not None:
+        notes.append(f"accuracy class not understood: {error}")
     if accuracy is not None and accuracy.standard == IEC_PX and accuracy.knee_v is None:
-        out.append(_missing(ct_code, f"class {accuracy.text} without knee_v"))
+        notes.append(f"class {accuracy.text} without knee_v")
     if (
         accuracy is not None
         and accuracy.standard in (IEC_PROTECTION, IEC_METERING)
-        and accuracy.rated_burden_ohm(tap.secondary_a) is None
+        and accuracy.rated_burden_ohm(secondary_a) is None
     ):
-        out.append(_missing(ct_code, f"class {accuracy.text} without rated_burden_va"))
+        notes.append(f"class {accuracy.text} without rated_burden_va")
     if accuracy is not None and accuracy.standard == IEC_TRANSIENT:
-        out.append(
-            _missing(
-                ct_code,
-                f"transient class {accuracy.text}: saturation and accuracy not assessed "
-                "(needs the transient dimensioning data of IEC 61869-2)",
-            )
+        notes.append(
+            f"transient class {accuracy.text}: saturation and accuracy not assessed "
+            "(needs the transient dimensioning data of IEC 61869-2)"
         )
+    return tuple(notes)
 
-    winding_full = _float(ct.winding_ohm)
-    winding = None if winding_full is None else winding_ohm_at_tap(winding_full, tap)
 
-    eq = index.equipment_of(ct)
-    max_load_a = None if eq is None else _float(eq.max_load_a)
+def ct_findings(columns: CTColumns) -> list[list[Finding]]:
+    """Each CT's own findings (thermal, accuracy, saturation, missing data), one list per row,
+    in the order a planner reads them: what is missing about the CT, thermal, the voltage
+    form's winding, each fault case, accuracy. Checks run on the columns at once; a finding is
+    written only for the rows that have one."""
+    n = len(columns)
+    out: list[list[Finding]] = [[] for _ in range(n)]
+    codes, taps = columns.codes, columns.taps
+    has_tap = np.array([t is not None for t in taps], dtype=np.bool_)
+    neutral = np.array(columns.neutral, dtype=np.bool_)
+
+    for i, error in enumerate(columns.tap_errors):
+        if error is not None:
+            out[i].append(_missing(codes[i], f"ratings not computed: {error}"))
+    for i, tap in enumerate(taps):
+        if tap is not None:
+            notes = _class_notes(
+                bool(columns.cts[i].accuracy),
+                columns.accuracy[i],
+                columns.accuracy_errors[i],
+                tap.secondary_a,
+            )
+            for note in notes:
+                out[i].append(_missing(codes[i], note))
+
     # A neutral CT carries the unbalance of the phases, about 0 A in normal service, not the
     # equipment's load: a thermal check against the load would be a false finding, and the
     # record holds no unbalance to check it against (common practice, no source).
-    if max_load_a is None and not neutral:
-        out.append(_missing(ct_code, "thermal check not run: equipment has no max_load_a"))
-    elif max_load_a is not None and not neutral:
-        rating_factor = _float(ct.rating_factor) or 1.0
-        finding = thermal_check(
-            ct=ct_code, max_load_a=max_load_a, tap=tap, rating_factor=rating_factor
-        )
-        if finding:
-            out.append(finding)
-
-    bus = index.bus_of(ct)
-    cases: dict[str, SaturationCase | None] = {}
-    relaying = accuracy is not None and accuracy.is_relaying
-    if accuracy is not None and winding is None and relaying:
-        out.append(_missing(ct_code, "no winding_ohm: voltage form of C37.110 not computed"))
-    worst_burden: tuple[float, str, complex] | None = None
-    for case in CASES:
-        burden = burdens.get(case)
-        if case == "phase_fault" and neutral:
-            cases[case] = None  # a neutral CT carries no current in a balanced phase fault
-            continue
-        if burden is not None and (worst_burden is None or abs(burden) > worst_burden[0]):
-            worst_burden = (abs(burden), case, complex(burden))
-        fault_ka = None if bus is None else _float(getattr(bus, CASE_FAULT_KEY[case]))
-        x_over_r = None if bus is None else _float(bus.x_over_r)
-        std = vx = limit = None
-        if accuracy is not None:
-            std = accuracy.standard_burden_ohm_at_tap(tap.secondary_a, tap.turns_fraction)
-            vx = accuracy.saturation_emf_at_tap_v(tap.secondary_a, tap.turns_fraction, winding)
-            limit = accuracy.criterion_limit()
-        result = assess_case(
-            case=case,
-            fault_a=None if fault_ka is None else fault_ka * 1000.0,
-            x_over_r=x_over_r,
-            ratio_value=tap.ratio_value,
-            secondary_a=tap.secondary_a,
-            burden_ohm=burden,
-            winding_ohm=winding,
-            standard_burden_ohm=std if relaying else None,
-            vx_available_v=vx if relaying else None,
-            limit=limit if relaying else None,
-            frequency_hz=index.frequency_hz,
-        )
-        if bus is None and result.missing:
-            eq_code = None if eq is None else eq.code
-            result = _replace_missing(result, f"bus of equipment {eq_code!r}")
-        if (
-            accuracy is not None
-            and accuracy.standard == IEC_PROTECTION
-            and accuracy.alf is not None
-            and std is not None
-            and burden is not None
-        ):
-            result = replace(
-                result,
-                alf_effective=effective_alf(
-                    alf=accuracy.alf,
-                    winding_ohm=winding or 0.0,
-                    rated_burden_ohm=std,
-                    burden_ohm=abs(burden),
-                ),
+    load, factor = columns.max_load_a, columns.rating_factor
+    no_load = np.isnan(load)
+    with np.errstate(invalid="ignore"):
+        over = ~no_load & (load > columns.primary_a * factor)
+    for i in np.flatnonzero(has_tap & ~neutral & (no_load | over)).tolist():
+        if no_load[i]:
+            out[i].append(_missing(codes[i], "thermal check not run: equipment has no max_load_a"))
+        else:
+            finding = thermal_check(
+                ct=codes[i],
+                max_load_a=float(load[i]),
+                tap=taps[i],  # type: ignore[arg-type]
+                rating_factor=float(factor[i]),
             )
-        cases[case] = result
-        if relaying:
-            # Metering classes state no capability at fault current: nothing to check.
-            out.extend(saturation_findings(ct=ct_code, tap=tap, result=result))
-    if accuracy is not None and worst_burden is not None:
+            if finding:
+                out[i].append(finding)
+
+    has_class = np.array([a is not None for a in columns.accuracy], dtype=np.bool_)
+    no_winding = np.isnan(columns.winding_ohm)
+    for i in np.flatnonzero(has_class & no_winding & columns.relaying).tolist():
+        out[i].append(_missing(codes[i], "no winding_ohm: voltage form of C37.110 not computed"))
+
+    tap_texts: dict[Tap, str] = {}
+    for case in CASES:
+        c = columns.cases[case]
+        alf = columns.alf_effective[case]
+        iec_p = np.array([a is not None for a in alf], dtype=np.bool_)
+        missing = np.array([bool(m) for m in c.missing], dtype=np.bool_)
+        fails = _fails(c.has_index, c.index_fails, c.voltage_fails, iec_p)
+        in_case = columns.in_case[case] & columns.relaying
+        for i in np.flatnonzero(in_case & missing).tolist():
+            out[i].append(_saturation_missing(codes[i], case, c.missing[i]))
+        rows = np.flatnonzero(in_case & ~missing & fails)
+        if not len(rows):
+            continue
+        # The figures of the failing rows, as columns: rounded and written in one pass each.
+        has_index = c.has_index[rows]
+        has_vx = c.has_vx_required[rows] & ~np.isnan(c.vx_available_v[rows])
+        index = np.where(has_index, c.c37_110_index[rows], math.nan)
+        vx_required = np.where(c.has_vx_required[rows], c.vx_required_v[rows], math.nan)
+        texts = zip(
+            rounded_texts(index, 3),
+            rounded_texts(vx_required),
+            rounded_texts(c.vx_available_v[rows]),
+            rounded_texts(c.secondary_fault_a[rows]),
+            rounded_texts(c.fault_a[rows]),
+            rounded_texts(c.x_over_r[rows]),
+            rounded_texts(c.burden_abs_ohm[rows]),
+            rounded_texts(c.time_to_saturate_ms[rows], 2),
+            strict=True,
+        )
+        values = zip(
+            rows.tolist(),
+            _optional(index, has_index),
+            c.index_fails[rows].tolist(),
+            _optional(vx_required, c.has_vx_required[rows]),
+            _optional(c.vx_available_v[rows]),
+            _optional(c.limit[rows]),
+            _optional(c.time_to_saturate_ms[rows]),
+            has_vx.tolist(),
+            strict=True,
+        )
+        for (i, idx, idx_fails, req, avail, limit, time_ms, vx_ok), t in zip(
+            values, texts, strict=True
+        ):
+            tap = taps[i]
+            tap_text = tap_texts.get(tap)
+            if tap_text is None:
+                tap_text = tap_texts[tap] = _tap_text(tap)
+            out[i].append(
+                _saturation_risk(
+                    codes[i],
+                    tap_text,
+                    idx_fails,
+                    _SaturationTexts(
+                        index=None if idx is None else t[0],
+                        vx_required=t[1] if vx_ok else None,
+                        vx_available=t[2] if vx_ok else None,
+                        secondary_fault_a=t[3],
+                        fault_a=t[4],
+                        x_over_r=t[5],
+                        burden=t[6],
+                        time_ms=None if time_ms is None else t[7],
+                    ),
+                    {
+                        "case": case,
+                        "c37_110_index": idx,
+                        "limit": limit,
+                        "vx_required_v": req,
+                        "vx_available_v": avail,
+                        "time_to_saturate_ms": time_ms,
+                    },
+                )
+            )
+
+    # accuracy_exceeded on the larger burden of the two cases (the ground-fault one on a tie).
+    gf, pf = columns.cases["ground_fault"], columns.cases["phase_fault"]
+    gf_on = columns.in_case["ground_fault"] & gf.has_burden
+    pf_on = columns.in_case["phase_fault"] & pf.has_burden
+    take_pf = pf_on & (~gf_on | (pf.burden_abs_ohm > gf.burden_abs_ohm))
+    worst = np.where(take_pf, pf.burden_abs_ohm, gf.burden_abs_ohm)
+    std = columns.standard_burden_ohm
+    with np.errstate(invalid="ignore"):
+        exceeded = has_class & (gf_on | pf_on) & ~np.isnan(std) & ~(worst <= std)
+    for i in np.flatnonzero(exceeded).tolist():
+        c = pf if take_pf[i] else gf
         finding = accuracy_check(
-            ct=ct_code,
-            accuracy=accuracy,
-            tap=tap,
-            burden_ohm=worst_burden[2],
-            case=worst_burden[1],
-            winding_ohm=winding,
+            ct=codes[i],
+            accuracy=columns.accuracy[i],  # type: ignore[arg-type]
+            tap=taps[i],  # type: ignore[arg-type]
+            burden_ohm=complex(float(c.burden_r_ohm[i]), float(c.burden_x_ohm[i])),
+            case=c.case,
+            winding_ohm=_value(columns.winding_ohm, i),
         )
         if finding:
-            out.append(finding)
-    return CTRating(ct_code, tap, accuracy, winding, cases, out)
+            out[i].append(finding)
+    return out
 
 
-def _replace_missing(result: SaturationCase, what: str) -> SaturationCase:
-    missing = tuple(m for m in result.missing if m not in ("fault current", "X/R"))
-    return replace(result, missing=(what, *missing))
+def _value(column: np.ndarray, i: int) -> float | None:
+    v = float(column[i])
+    return None if v != v else v
+
+
+def _optional(column: np.ndarray, present: np.ndarray | None = None) -> list[float | None]:
+    """A column as Python numbers, None where absent (NaN, or not ``present``)."""
+    values: list[float] = column.tolist()
+    flags: list[bool] = (~np.isnan(column) if present is None else present).tolist()
+    return [v if f else None for v, f in zip(values, flags, strict=True)]
+
+
+def ct_rating(columns: CTColumns, i: int, findings: list[Finding]) -> CTRating:
+    """The :class:`CTRating` of row ``i`` of the columns."""
+    tap = columns.taps[i]
+    if tap is None:
+        return CTRating(columns.codes[i], None, None, None, dict.fromkeys(CASES), findings)
+    cases: dict[str, SaturationCase | None] = {}
+    for case in CASES:
+        on = bool(columns.in_case[case][i])
+        cases[case] = columns.cases[case].row(i, columns.alf_effective[case][i]) if on else None
+    return CTRating(
+        columns.codes[i],
+        tap,
+        columns.accuracy[i],
+        _value(columns.winding_ohm, i),
+        cases,
+        findings,
+    )
+
+
+def evaluate_ct(index: SiteIndex, ct_code: str, burdens: Burdens | None) -> CTRating:
+    """Tap, accuracy at the tap, both fault cases and the CT's own findings (thermal, accuracy,
+    saturation, missing data). ``burdens`` maps "ground_fault"/"phase_fault" to the external
+    burden at the CT terminals (complex ohms), None where open or unknown."""
+    columns = ct_columns(index, [ct_code], {ct_code: burdens})
+    return ct_rating(columns, 0, ct_findings(columns)[0])
 
 
 # --- devices -----------------------------------------------------------------------------------
@@ -429,67 +512,130 @@ def _settings(device: rec.Device, ct: rec.CT) -> list[str]:
     return [str(setting)]
 
 
+@functools.lru_cache(maxsize=4096)
+def _setting_verdict(settings: tuple[str, ...], tap_ratio: float) -> str | bool:
+    """True when one of the settings is the tap's ratio, False when none is, and the parse
+    error of the first setting that is no ratio."""
+    try:
+        for s in settings:
+            parse_ratio(s)
+    except ValueError as err:
+        return str(err)
+    return any(ratios_equal(s, tap_ratio) for s in settings)
+
+
+@dataclass(frozen=True, slots=True)
+class _DeviceCT:
+    """A device's findings against one CT: the missing-setting finding (a relay reports it
+    once over all its CTs) and the others."""
+
+    no_setting: Finding | None
+    others: tuple[Finding, ...]
+
+
+class _DeviceChecks:
+    """The device findings of a site, each (device, CT) pair checked once."""
+
+    __slots__ = ("_inputs", "_pairs", "index")
+
+    def __init__(self, index: SiteIndex) -> None:
+        self.index = index
+        self._pairs: dict[tuple[str, str], _DeviceCT | None] = {}
+        self._inputs: dict[str, list[tuple[str, float]]] = {}
+
+    def pair(self, device: rec.Device, ct_code: str) -> _DeviceCT | None:
+        """None when the CT is unknown or has no tap (reported on the CT itself)."""
+        key = (device.code, ct_code)
+        if key in self._pairs:
+            return self._pairs[key]
+        self._pairs[key] = hit = self._check(device, ct_code)
+        return hit
+
+    def _check(self, device: rec.Device, ct_code: str) -> _DeviceCT | None:
+        ct = self.index.cts.get(ct_code)
+        if ct is None:
+            return None
+        try:
+            tap = self.index.tap(ct)
+        except ValueError:
+            return None
+        device_code = device.code
+        no_setting = None
+        others: list[Finding] = []
+        settings = _settings(device, ct)
+        if not settings:
+            if device.kind == "relay":
+                no_setting = Finding(
+                    code=fc.MISSING_DATA,
+                    device=device_code,
+                    ct=ct_code,
+                    message=f"{device_code}: no ratio setting to check against {ct_code}",
+                )
+        else:
+            verdict = _setting_verdict(tuple(settings), tap.ratio_value)
+            if isinstance(verdict, str):
+                others.append(
+                    Finding(
+                        code=fc.MISSING_DATA,
+                        device=device_code,
+                        ct=ct_code,
+                        message=f"{device_code}: ratio setting not understood: {verdict}",
+                    )
+                )
+            elif not verdict:
+                finding = ratio_setting_check(
+                    device=device_code, setting=settings[0], ct=ct_code, tap=tap
+                )
+                if finding:
+                    if len(settings) > 1:
+                        extra = f" (settings {', '.join(settings)})"
+                        finding = replace(finding, message=finding.message + extra)
+                    others.append(finding)
+        rated = self._inputs.get(device_code)
+        if rated is None:
+            rated = self._inputs[device_code] = _rated_inputs(device.inputs)
+        finding = _input_rating_finding(device_code, rated, ct_code, tap.secondary_a)
+        if finding:
+            others.append(finding)
+        return _DeviceCT(no_setting, tuple(others))
+
+    def for_device(self, device_code: str, ct_codes: Iterable[str]) -> list[Finding]:
+        """:func:`device_static_findings`."""
+        device = self.index.devices.get(device_code)
+        if device is None:
+            return []
+        out: list[Finding] = []
+        reported_missing = False
+        for ct_code in sorted(ct_codes):
+            pair = self.pair(device, ct_code)
+            if pair is None:
+                continue
+            if pair.no_setting is not None and not reported_missing:
+                out.append(pair.no_setting)
+                reported_missing = True
+            out.extend(pair.others)
+        return out
+
+    def for_ct(self, ct_code: str, devices: Iterable[str]) -> list[Finding]:
+        """The findings of each device (sorted) against one CT, as the CT report lists them."""
+        out: list[Finding] = []
+        for device_code in sorted(set(devices)):
+            device = self.index.devices.get(device_code)
+            pair = None if device is None else self.pair(device, ct_code)
+            if pair is not None:
+                if pair.no_setting is not None:
+                    out.append(pair.no_setting)
+                out.extend(pair.others)
+        return out
+
+
 def device_static_findings(
     index: SiteIndex, device_code: str, ct_codes: Iterable[str]
 ) -> list[Finding]:
     """``ratio_setting_mismatch`` and ``input_rating_mismatch`` for one device against each CT
-    whose current reaches it; ``missing_data`` for a relay with no ratio setting or a setting
-    that is not a ratio."""
-    device = index.devices.get(device_code)
-    if device is None:
-        return []
-    out: list[Finding] = []
-    inputs = device.inputs
-    reported_missing = False
-    for ct_code in sorted(ct_codes):
-        ct = index.cts.get(ct_code)
-        if ct is None:
-            continue
-        try:
-            tap = index.tap(ct)
-        except ValueError:
-            continue  # reported on the CT itself
-        settings = _settings(device, ct)
-        if not settings:
-            if device.kind == "relay" and not reported_missing:
-                out.append(
-                    Finding(
-                        code=fc.MISSING_DATA,
-                        device=device_code,
-                        ct=ct_code,
-                        message=f"{device_code}: no ratio setting to check against {ct_code}",
-                    )
-                )
-                reported_missing = True
-        else:
-            try:
-                for s in settings:
-                    parse_ratio(s)
-            except ValueError as err:
-                out.append(
-                    Finding(
-                        code=fc.MISSING_DATA,
-                        device=device_code,
-                        ct=ct_code,
-                        message=f"{device_code}: ratio setting not understood: {err}",
-                    )
-                )
-            else:
-                if not any(ratios_equal(s, tap.ratio_value) for s in settings):
-                    finding = ratio_setting_check(
-                        device=device_code, setting=settings[0], ct=ct_code, tap=tap
-                    )
-                    if finding:
-                        if len(settings) > 1:
-                            extra = f" (settings {', '.join(settings)})"
-                            finding = replace(finding, message=finding.message + extra)
-                        out.append(finding)
-        finding = input_rating_check(
-            device=device_code, inputs=inputs, ct=ct_code, secondary_a=tap.secondary_a
-        )
-        if finding:
-            out.append(finding)
-    return out
+    whose current reaches it; ``missing_data`` for a relay with no ratio setting (once) or a
+    setting that is not a ratio."""
+    return _DeviceChecks(index).for_device(device_code, ct_codes)
 
 
 def site_static_findings(
@@ -508,8 +654,9 @@ def site_static_findings(
     """
     index = SiteIndex(record)
     out: list[Finding] = []
-    for ct_code in index.cts:
-        out.extend(evaluate_ct(index, ct_code, burdens.get(ct_code)).findings)
+    for own in ct_findings(ct_columns(index, index.cts, burdens)):
+        out.extend(own)
+    devices = _DeviceChecks(index)
     for device_code in index.devices:
-        out.extend(device_static_findings(index, device_code, feeds.get(device_code, ())))
+        out.extend(devices.for_device(device_code, feeds.get(device_code, ())))
     return out

@@ -11,9 +11,17 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
+import numpy as np
+
 import record as rec
 from analysis.engine.findings import Finding
-from analysis.engine.ratings.checks import CASES, CTRating, device_static_findings, evaluate_ct
+from analysis.engine.ratings.checks import (
+    CASES,
+    _DeviceChecks,
+    ct_findings,
+    evaluate_ct,
+)
+from analysis.engine.ratings.columns import CTColumns, ct_columns
 from analysis.engine.ratings.excitation import (
     ExcitationCurve,
     KneePoint,
@@ -23,25 +31,19 @@ from analysis.engine.ratings.excitation import (
     knee_point_ieee,
     scale_to_tap,
 )
-from analysis.engine.ratings.saturation import SaturationCase
+from analysis.engine.ratings.rounding import rounded_columns
+from analysis.engine.ratings.saturation import Floats
 from analysis.engine.ratings.site import SiteIndex
+from analysis.engine.ratings.taps import Tap
 
 SIGNIFICANT_DIGITS = 4
 
 
-def _r(x: float | None, digits: int = SIGNIFICANT_DIGITS) -> float | int | None:
-    """Round to significant digits for people; integral values become integers."""
-    if x is None or not math.isfinite(x):
-        return None
-    value = float(f"{x:.{digits}g}")
-    return int(value) if value.is_integer() else value
-
-
-def _curve_at_tap(ct: rec.CT, rating: CTRating) -> ExcitationCurve | None:
+def _curve_at_tap(ct: rec.CT, tap: Tap | None) -> ExcitationCurve | None:
     points = ct.excitation
-    if not points or rating.tap is None:
+    if not points or tap is None:
         return None
-    return _scaled_curve(points, rating.tap.turns_fraction)
+    return _scaled_curve(points, tap.turns_fraction)
 
 
 @functools.lru_cache(maxsize=4096)
@@ -56,33 +58,131 @@ def _scaled_curve(
         return None
 
 
-def _case_json(result: SaturationCase | None) -> dict[str, Any]:
-    if result is None:
-        return {
-            "burden_ohm": None,
-            "fault_a": None,
-            "secondary_fault_a": None,
-            "x_over_r": None,
-            "vx_required_v": None,
-            "vx_available_v": None,
-            "c37_110_index": None,
-            "time_to_saturate_ms": None,
-        }
-    z = result.burden_ohm
-    if z is not None:
-        # Solver round-off (1e-16 Ω of reactance in a resistive loop) is not a value to show.
-        eps = 1e-9 * max(abs(z), 1e-3)
-        z = complex(0.0 if abs(z.real) < eps else z.real, 0.0 if abs(z.imag) < eps else z.imag)
+def _knee_voltages(columns: CTColumns) -> tuple[Floats, Floats]:
+    """IEEE and IEC knee-point e.m.f. of each CT's curve at its tap (NaN without one), each
+    distinct curve worked out once."""
+    ieee = np.full(len(columns), math.nan)
+    iec = np.full(len(columns), math.nan)
+    for i, ct in enumerate(columns.cts):
+        if not ct.excitation:
+            continue
+        curve = _curve_at_tap(ct, columns.taps[i])
+        if curve is None:
+            continue
+        k_ieee, k_iec = knee_point_ieee(curve), knee_point_iec(curve)
+        if k_ieee is not None:
+            ieee[i] = k_ieee.voltage_v
+        if k_iec is not None:
+            iec[i] = k_iec.voltage_v
+    return ieee, iec
+
+
+def _no_case() -> dict[str, Any]:
     return {
-        "burden_ohm": None if z is None else {"r": _r(z.real), "x": _r(z.imag), "z": _r(abs(z))},
-        "fault_a": _r(result.fault_a, 6),
-        "secondary_fault_a": _r(result.secondary_fault_a),
-        "x_over_r": _r(result.x_over_r),
-        "vx_required_v": _r(result.vx_required_v),
-        "vx_available_v": _r(result.vx_available_v),
-        "c37_110_index": _r(result.c37_110_index),
-        "time_to_saturate_ms": _r(result.time_to_saturate_ms, 3),
+        "burden_ohm": None,
+        "fault_a": None,
+        "secondary_fault_a": None,
+        "x_over_r": None,
+        "vx_required_v": None,
+        "vx_available_v": None,
+        "c37_110_index": None,
+        "time_to_saturate_ms": None,
     }
+
+
+def _case_rows(columns: CTColumns, case: str) -> list[dict[str, Any] | None]:
+    """The case JSON of each row (None where the CT has no such case), values rounded for
+    people."""
+    c = columns.cases[case]
+    nan = math.nan
+    # Solver round-off (1e-16 Ω of reactance in a resistive loop) is not a value to show.
+    eps = 1e-9 * np.maximum(c.burden_abs_ohm, 1e-3)
+    r = np.where(np.abs(c.burden_r_ohm) < eps, 0.0, c.burden_r_ohm)
+    x = np.where(np.abs(c.burden_x_ohm) < eps, 0.0, c.burden_x_ohm)
+    r_, x_, z_, sf, xr, req, avail, index = rounded_columns(
+        [
+            r,
+            x,
+            np.hypot(r, x),
+            c.secondary_fault_a,
+            c.x_over_r,
+            np.where(c.has_vx_required, c.vx_required_v, nan),
+            c.vx_available_v,
+            np.where(c.has_index, c.c37_110_index, nan),
+        ],
+        SIGNIFICANT_DIGITS,
+    )
+    (fault,) = rounded_columns([c.fault_a], 6)
+    (time,) = rounded_columns([c.time_to_saturate_ms], 3)
+    out: list[dict[str, Any] | None] = []
+    for i, (on, has_burden) in enumerate(
+        zip(columns.in_case[case].tolist(), c.has_burden.tolist(), strict=True)
+    ):
+        if not on:
+            out.append(None)
+            continue
+        out.append(
+            {
+                "burden_ohm": {"r": r_[i], "x": x_[i], "z": z_[i]} if has_burden else None,
+                "fault_a": fault[i],
+                "secondary_fault_a": sf[i],
+                "x_over_r": xr[i],
+                "vx_required_v": req[i],
+                "vx_available_v": avail[i],
+                "c37_110_index": index[i],
+                "time_to_saturate_ms": time[i],
+            }
+        )
+    return out
+
+
+def reports_json(columns: CTColumns, findings: list[list[Finding]]) -> list[dict[str, Any]]:
+    """design.md's CT report JSON of each row, with that row's findings; the figures rounded
+    to significant digits for people, column by column."""
+    site = columns.index.code
+    ieee, iec = _knee_voltages(columns)
+    has_class = np.array([a is not None for a in columns.accuracy], dtype=np.bool_)
+    winding, volts, std, k_ieee, k_iec = rounded_columns(
+        [
+            columns.winding_ohm,
+            np.where(has_class, columns.voltage_at_tap_v, math.nan),
+            np.where(has_class, columns.standard_burden_ohm, math.nan),
+            ieee,
+            iec,
+        ],
+        SIGNIFICANT_DIGITS,
+    )
+    (turns,) = rounded_columns([columns.turns], 6)
+    cases = {case: _case_rows(columns, case) for case in CASES}
+    ratios: dict[Tap, str] = {}
+    out: list[dict[str, Any]] = []
+    for i, code in enumerate(columns.codes):
+        tap = columns.taps[i]
+        acc = columns.accuracy[i]
+        ratio = None
+        if tap is not None:
+            ratio = ratios.get(tap)
+            if ratio is None:
+                ratio = ratios[tap] = tap.ratio
+        out.append(
+            {
+                "site": site,
+                "ct": code,
+                "tap": None if tap is None else list(tap.terminals),
+                "ratio": ratio,
+                "turns": turns[i],
+                "winding_ohm_at_tap": winding[i],
+                "accuracy": {
+                    "class": None if acc is None else acc.text,
+                    "voltage_at_tap_v": volts[i],
+                    "standard_burden_ohm_at_tap": std[i],
+                },
+                "knee_point_v": {"ieee": k_ieee[i], "iec": k_iec[i]},
+                "cases": {case: rows[i] or _no_case() for case, rows in cases.items()},
+                "findings": [f.to_json() for f in findings[i]],
+            }
+        )
+    return out
 
 
 def build_ct_report(
@@ -104,50 +204,10 @@ def build_ct_report(
     one site; :func:`site_ratings` does that for a whole site.
     """
     index = site_index if site_index is not None else SiteIndex(record)
-    rating = evaluate_ct(index, ct_code, burdens)
-    findings = list(rating.findings)
-    for device in sorted(set(devices_fed)):
-        findings.extend(device_static_findings(index, device, [ct_code]))
-    return _report_json(index, rating, findings)
-
-
-def _report_json(index: SiteIndex, rating: CTRating, findings: list[Finding]) -> dict[str, Any]:
-    ct_code = rating.code
-    ct = index.ct(ct_code)
-    tap = rating.tap
-    acc = rating.accuracy
-    curve = _curve_at_tap(ct, rating)
-    ieee = iec = None
-    if curve is not None:
-        ieee, iec = knee_point_ieee(curve), knee_point_iec(curve)
-
-    accuracy_json: dict[str, Any] = {
-        "class": None if acc is None else acc.text,
-        "voltage_at_tap_v": None,
-        "standard_burden_ohm_at_tap": None,
-    }
-    if acc is not None and tap is not None:
-        accuracy_json["voltage_at_tap_v"] = _r(
-            acc.voltage_at_tap_v(tap.secondary_a, tap.turns_fraction)
-        )
-        accuracy_json["standard_burden_ohm_at_tap"] = _r(
-            acc.standard_burden_ohm_at_tap(tap.secondary_a, tap.turns_fraction)
-        )
-    return {
-        "site": index.code,
-        "ct": ct_code,
-        "tap": None if tap is None else list(tap.terminals),
-        "ratio": None if tap is None else tap.ratio,
-        "turns": None if tap is None else _r(tap.turns, 6),
-        "winding_ohm_at_tap": _r(rating.winding_ohm_at_tap),
-        "accuracy": accuracy_json,
-        "knee_point_v": {
-            "ieee": None if ieee is None else _r(ieee.voltage_v),
-            "iec": None if iec is None else _r(iec.voltage_v),
-        },
-        "cases": {case: _case_json(rating.cases.get(case)) for case in CASES},
-        "findings": [f.to_json() for f in findings],
-    }
+    columns = ct_columns(index, [ct_code], {ct_code: burdens})
+    findings = ct_findings(columns)[0]
+    findings.extend(_DeviceChecks(index).for_ct(ct_code, devices_fed))
+    return reports_json(columns, [findings])[0]
 
 
 @dataclass(frozen=True, slots=True)
@@ -164,26 +224,27 @@ def site_ratings(
     burdens: Mapping[str, Mapping[str, complex | None]],
     feeds: Mapping[str, set[str]],
 ) -> SiteRatings:
-    """All CT reports and :func:`site_static_findings` of one site in one pass (each CT is
-    evaluated once). ``reports[ct]`` equals ``build_ct_report(record, ct, burdens=burdens[ct],
-    devices_fed=<devices whose feeds hold ct>)``; ``findings`` equals
+    """All CT reports and :func:`site_static_findings` of one site in one pass: the CTs rated
+    as columns (:func:`analysis.engine.ratings.columns.ct_columns`), each device checked once
+    against each CT it is fed by. ``reports[ct]`` equals ``build_ct_report(record, ct,
+    burdens=burdens[ct], devices_fed=<devices whose feeds hold ct>)``; ``findings`` equals
     ``site_static_findings(record, burdens=burdens, feeds=feeds)``."""
     index = SiteIndex(record)
+    columns = ct_columns(index, index.cts, burdens)
+    own = ct_findings(columns)
     fed: dict[str, list[str]] = {}
     for device, cts in feeds.items():
         for ct in cts:
             fed.setdefault(ct, []).append(device)
-    reports: dict[str, dict[str, Any]] = {}
-    findings: list[Finding] = []
-    for ct_code in index.cts:
-        rating = evaluate_ct(index, ct_code, burdens.get(ct_code))
-        findings.extend(rating.findings)
-        own = list(rating.findings)
-        for device in sorted(set(fed.get(ct_code, ()))):
-            own.extend(device_static_findings(index, device, [ct_code]))
-        reports[ct_code] = _report_json(index, rating, own)
+    devices = _DeviceChecks(index)
+    findings: list[Finding] = [f for row in own for f in row]
+    rows = [
+        [*row, *devices.for_ct(code, fed[code])] if code in fed else row
+        for code, row in zip(columns.codes, own, strict=True)
+    ]
+    reports = dict(zip(columns.codes, reports_json(columns, rows), strict=True))
     for device_code in index.devices:
-        findings.extend(device_static_findings(index, device_code, feeds.get(device_code, ())))
+        findings.extend(devices.for_device(device_code, feeds.get(device_code, ())))
     return SiteRatings(reports=reports, findings=findings)
 
 
@@ -224,7 +285,7 @@ def excitation_plot_inputs(
     """Inputs of the excitation plot of one CT; None when the CT has no usable curve."""
     index = SiteIndex(record)
     rating = evaluate_ct(index, ct_code, burdens)
-    curve = _curve_at_tap(index.ct(ct_code), rating)
+    curve = _curve_at_tap(index.ct(ct_code), rating.tap)
     if curve is None or rating.tap is None:
         return None
     points = []

@@ -1,0 +1,299 @@
+"""The ratings of a site's CTs as columns: one row per CT, computed over all rows at once.
+
+:func:`ct_columns` reads each CT's record once (its tap, class, winding, equipment and bus,
+the CTs of a set sharing what they share), then computes with numpy over every CT: tap ratio,
+turns, winding resistance at the tap, the class at the tap, secondary fault currents, the
+C37.110 index and voltage form and the time to saturate for both fault cases
+(:func:`analysis.engine.ratings.saturation.assess_cases`). The findings
+(:mod:`analysis.engine.ratings.checks`) and the CT report JSON
+(:mod:`analysis.engine.ratings.report`) are both read from these columns, so one CT and a
+whole site are rated by the same code.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+import record as rec
+from analysis.engine.ratings.saturation import (
+    CaseColumns,
+    Flags,
+    Floats,
+    assess_cases,
+)
+from analysis.engine.ratings.site import SiteIndex
+from analysis.engine.ratings.taps import Tap
+from trade.accuracy import IEC_PROTECTION, AccuracyClass, effective_alf, parse_accuracy
+
+CASES = ("ground_fault", "phase_fault")
+CASE_FAULT_KEY = {"ground_fault": "ground_fault_ka", "phase_fault": "three_phase_fault_ka"}
+
+Burdens = Mapping[str, complex | None]
+
+
+def as_float(value: Any) -> float | None:
+    """A number from the document, or None when absent or not a number (validation reports
+    the latter at import; the ratings then treat it as missing)."""
+    if value is None or value == "" or isinstance(value, bool):
+        return None
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return None
+    return number if math.isfinite(number) else None
+
+
+def parsed_accuracy(
+    text: str, rated_burden_va: float | None, knee_v: float | None
+) -> AccuracyClass | str:
+    """The class, or the error message where the text is not a class."""
+    try:
+        return parse_accuracy(text, rated_burden_va=rated_burden_va, knee_v=knee_v)
+    except ValueError as err:
+        return str(err)
+
+
+@dataclass(frozen=True, slots=True)
+class _Winding:
+    """What the CTs of one winding, tap, class and winding resistance share."""
+
+    tap: Tap | None
+    tap_error: str | None
+    accuracy: AccuracyClass | None
+    accuracy_error: str | None  # the parse error of a class text that is not a class
+    winding_ohm: float | None  # at the tap
+    standard_burden_ohm: float | None  # at the tap
+    vx_available_v: float | None  # at the tap, with the winding
+    limit: float | None
+    voltage_at_tap_v: float | None
+
+
+def _winding(index: SiteIndex, ct: rec.CT) -> _Winding:
+    try:
+        tap = index.tap(ct)
+    except ValueError as err:
+        return _Winding(None, str(err), None, None, None, None, None, None, None)
+    accuracy: AccuracyClass | None = None
+    error = None
+    if ct.accuracy:
+        parsed = parsed_accuracy(ct.accuracy, as_float(ct.rated_burden_va), as_float(ct.knee_v))
+        if isinstance(parsed, AccuracyClass):
+            accuracy = parsed
+        else:
+            error = parsed
+    full = as_float(ct.winding_ohm)
+    winding = None if full is None else full * tap.turns_fraction
+    std = vx = limit = volts = None
+    if accuracy is not None:
+        sec, tf = tap.secondary_a, tap.turns_fraction
+        std = accuracy.standard_burden_ohm_at_tap(sec, tf)
+        vx = accuracy.saturation_emf_at_tap_v(sec, tf, winding)
+        limit = accuracy.criterion_limit()
+        volts = accuracy.voltage_at_tap_v(sec, tf)
+    return _Winding(tap, None, accuracy, error, winding, std, vx, limit, volts)
+
+
+@dataclass(frozen=True, slots=True)
+class _Place:
+    """What the CTs of one equipment share: its load and its bus's fault level."""
+
+    equipment: str | None
+    has_bus: bool
+    max_load_a: float | None
+    fault_a: tuple[float | None, ...]  # per case, primary A
+    x_over_r: float | None
+
+
+def _place(index: SiteIndex, ct: rec.CT) -> _Place:
+    eq = index.equipment_of(ct)
+    bus = index.bus_of(ct)
+    max_load_a = None if eq is None else as_float(eq.max_load_a)
+    faults = []
+    for case in CASES:
+        fault_ka = None if bus is None else as_float(getattr(bus, CASE_FAULT_KEY[case]))
+        faults.append(None if fault_ka is None else fault_ka * 1000.0)
+    x_over_r = None if bus is None else as_float(bus.x_over_r)
+    return _Place(
+        None if eq is None else eq.code, bus is not None, max_load_a, tuple(faults), x_over_r
+    )
+
+
+def _nan(values: Iterable[float | None]) -> Floats:
+    return np.array([math.nan if v is None else v for v in values], dtype=np.float64)
+
+
+@dataclass(frozen=True, slots=True)
+class CTColumns:
+    """The ratings of CTs of one site, one row per CT (in the order asked for).
+
+    Rows whose tap is unknown (``taps[i] is None``) carry NaN and count in no case; a case a
+    CT does not have (the phase-fault case of a neutral CT) is flagged off in ``in_case``.
+    """
+
+    index: SiteIndex
+    codes: list[str]
+    cts: list[rec.CT]
+    taps: list[Tap | None]
+    tap_errors: list[str | None]
+    accuracy: list[AccuracyClass | None]
+    accuracy_errors: list[str | None]
+    neutral: list[bool]
+    relaying: Flags
+    winding_ohm: Floats  # at the tap
+    standard_burden_ohm: Floats  # at the tap
+    voltage_at_tap_v: Floats
+    turns: Floats
+    primary_a: Floats
+    max_load_a: Floats
+    rating_factor: Floats
+    equipment: list[str | None]
+    has_bus: list[bool]
+    cases: dict[str, CaseColumns]
+    in_case: dict[str, Flags]
+    alf_effective: dict[str, list[float | None]]
+
+    def __len__(self) -> int:
+        return len(self.codes)
+
+
+def ct_columns(
+    index: SiteIndex, codes: Iterable[str], burdens: Mapping[str, Burdens | None]
+) -> CTColumns:
+    """The rating columns of the CTs ``codes`` (each known to ``index``; ``KeyError``
+    otherwise). ``burdens`` maps a CT code to its external burdens by case (complex Ω at the
+    CT terminals, None where open or unknown); a CT absent from it has none."""
+    cts = [index.ct(code) for code in codes]
+    windings: dict[tuple[Any, ...], _Winding] = {}
+    places: dict[str | None, _Place] = {}
+    rows_w: list[_Winding] = []
+    rows_p: list[_Place] = []
+    for ct in cts:
+        key = (
+            ct.terminals,
+            ct.in_use,
+            ct.secondary_a,
+            ct.accuracy,
+            ct.rated_burden_va,
+            ct.knee_v,
+            ct.winding_ohm,
+        )
+        w = windings.get(key)
+        if w is None:
+            w = windings[key] = _winding(index, ct)
+        elif w.tap_error is not None:
+            w = _winding(index, ct)  # the message names the CT
+        rows_w.append(w)
+        p = places.get(ct.equipment)
+        if p is None:
+            p = places[ct.equipment] = _place(index, ct)
+        rows_p.append(p)
+    n = len(cts)
+    taps = [w.tap for w in rows_w]
+    has_tap = np.array([t is not None for t in taps], dtype=np.bool_)
+    secondary_a = _nan(None if t is None else t.secondary_a for t in taps)
+    primary_a = _nan(None if t is None else t.primary_a for t in taps)
+    turns = primary_a / secondary_a
+    ratio_value = turns  # primary A / secondary A, as Tap.ratio_value
+    accuracy = [w.accuracy for w in rows_w]
+    relaying = np.array([a is not None and a.is_relaying for a in accuracy], dtype=np.bool_)
+    winding = _nan(w.winding_ohm for w in rows_w)
+    std = _nan(w.standard_burden_ohm for w in rows_w)
+    no_std = np.full(n, math.nan)
+    neutral = [str(ct.phase or "").upper() == "N" for ct in cts]
+    cases: dict[str, CaseColumns] = {}
+    in_case: dict[str, Flags] = {}
+    alf: dict[str, list[float | None]] = {}
+    vx = np.where(relaying, _nan(w.vx_available_v for w in rows_w), math.nan)
+    limit = np.where(relaying, _nan(w.limit for w in rows_w), math.nan)
+    for k, case in enumerate(CASES):
+        on = has_tap.copy()
+        if case == "phase_fault":
+            on &= ~np.array(neutral, dtype=np.bool_)
+        r, x, has = [], [], []
+        for ct in cts:
+            b = (burdens.get(ct.code) or {}).get(case)
+            if b is None:
+                r.append(0.0)
+                x.append(0.0)
+                has.append(False)
+            else:
+                z = complex(b)
+                r.append(z.real)
+                x.append(z.imag)
+                has.append(True)
+        has_burden = np.array(has, dtype=np.bool_)
+        columns = assess_cases(
+            case=case,
+            fault_a=_nan(p.fault_a[k] for p in rows_p),
+            x_over_r=_nan(p.x_over_r for p in rows_p),
+            ratio_value=ratio_value,
+            secondary_a=secondary_a,
+            burden_r_ohm=np.array(r, dtype=np.float64),
+            burden_x_ohm=np.array(x, dtype=np.float64),
+            has_burden=has_burden,
+            winding_ohm=winding,
+            standard_burden_ohm=np.where(relaying, std, no_std),
+            vx_available_v=vx,
+            limit=limit,
+            frequency_hz=index.frequency_hz,
+        )
+        missing = columns.missing
+        for i, p in enumerate(rows_p):
+            if not p.has_bus and missing[i]:
+                kept = tuple(m for m in missing[i] if m not in ("fault current", "X/R"))
+                missing[i] = (f"bus of equipment {p.equipment!r}", *kept)
+        cases[case] = columns
+        in_case[case] = on
+        alf[case] = _alf_effective(accuracy, rows_w, columns, on)
+    return CTColumns(
+        index=index,
+        codes=[ct.code for ct in cts],
+        cts=cts,
+        taps=taps,
+        tap_errors=[w.tap_error for w in rows_w],
+        accuracy=accuracy,
+        accuracy_errors=[w.accuracy_error for w in rows_w],
+        neutral=neutral,
+        relaying=relaying,
+        winding_ohm=winding,
+        standard_burden_ohm=std,
+        voltage_at_tap_v=_nan(w.voltage_at_tap_v for w in rows_w),
+        turns=turns,
+        primary_a=primary_a,
+        max_load_a=_nan(p.max_load_a for p in rows_p),
+        rating_factor=np.array([as_float(ct.rating_factor) or 1.0 for ct in cts]),
+        equipment=[p.equipment for p in rows_p],
+        has_bus=[p.has_bus for p in rows_p],
+        cases=cases,
+        in_case=in_case,
+        alf_effective=alf,
+    )
+
+
+def _alf_effective(
+    accuracy: list[AccuracyClass | None],
+    rows: list[_Winding],
+    columns: CaseColumns,
+    on: Flags,
+) -> list[float | None]:
+    """ALF' of the IEC P classes for the case's burden (S10), None elsewhere."""
+    out: list[float | None] = [None] * len(rows)
+    has_burden = columns.has_burden
+    for i, acc in enumerate(accuracy):
+        if acc is None or acc.standard != IEC_PROTECTION or acc.alf is None:
+            continue
+        std = rows[i].standard_burden_ohm
+        if std is None or not has_burden[i] or not on[i]:
+            continue
+        out[i] = effective_alf(
+            alf=acc.alf,
+            winding_ohm=rows[i].winding_ohm or 0.0,
+            rated_burden_ohm=std,
+            burden_ohm=float(columns.burden_abs_ohm[i]),
+        )
+    return out
