@@ -22,7 +22,7 @@ from analysis.engine.findings import Finding
 from analysis.engine.ratings.columns import CASES as CASES
 from analysis.engine.ratings.columns import Burdens, CTColumns, ct_columns
 from analysis.engine.ratings.rounding import rounded_text as _g
-from analysis.engine.ratings.rounding import rounded_texts
+from analysis.engine.ratings.rounding import text_columns
 from analysis.engine.ratings.saturation import SaturationCase
 from analysis.engine.ratings.site import SiteIndex
 from analysis.engine.ratings.taps import Tap
@@ -183,15 +183,15 @@ def saturation_findings(*, ct: str, tap: Tap, result: SaturationCase) -> list[Fi
         return []
     vx_required, vx_available = result.vx_required_v, result.vx_available_v
     time_ms = result.time_to_saturate_ms
-    texts = _SaturationTexts(
-        index=None if index is None else _g(index, 3),
-        vx_required=None if vx_required is None else _g(vx_required),
-        vx_available=None if vx_available is None else _g(vx_available),
-        secondary_fault_a=_g(result.secondary_fault_a),
-        fault_a=_g(result.fault_a),
-        x_over_r=_g(result.x_over_r),
-        burden=_g(abs(result.burden_ohm or 0)),
-        time_ms=None if time_ms is None else _g(time_ms, 2),
+    texts = (
+        None if index is None else _g(index, 3),
+        None if vx_required is None else _g(vx_required),
+        None if vx_available is None else _g(vx_available),
+        _g(result.secondary_fault_a),
+        _g(result.fault_a),
+        _g(result.x_over_r),
+        _g(abs(result.burden_ohm or 0)),
+        None if time_ms is None else _g(time_ms, 2),
     )
     numbers = {
         "case": result.case,
@@ -225,37 +225,28 @@ def _saturation_missing(ct: str, case: str, missing: tuple[str, ...]) -> Finding
     )
 
 
-@dataclass(frozen=True, slots=True)
-class _SaturationTexts:
-    """The figures a saturation finding quotes, as text (None where the figure is absent)."""
-
-    index: str | None
-    vx_required: str | None
-    vx_available: str | None
-    secondary_fault_a: str
-    fault_a: str
-    x_over_r: str
-    burden: str
-    time_ms: str | None
-
-
 def _saturation_risk(
-    ct: str, tap_text: str, index_fails: bool, texts: _SaturationTexts, numbers: dict[str, Any]
+    ct: str,
+    tap_text: str,
+    index_fails: bool,
+    texts: tuple[str | None, ...],
+    numbers: dict[str, Any],
 ) -> Finding:
+    """The ``saturation_risk`` finding; ``texts`` are the figures it quotes (index, V_x needed,
+    V_x available, I_f secondary, I_f primary, X/R, |Z_b|, time to saturate), None where
+    absent."""
+    index, vx_required, vx_available, i_sec, i_pri, x_over_r, burden, time_ms = texts
     case = numbers["case"]
     parts = []
-    if texts.index is not None:
+    if index is not None:
         relation = ">" if index_fails else "≤"
-        parts.append(f"C37.110 index {texts.index} {relation} {numbers['limit']:g}")
-    if texts.vx_required is not None and texts.vx_available is not None:
-        parts.append(f"voltage form needs {texts.vx_required} V, has {texts.vx_available} V")
+        parts.append(f"C37.110 index {index} {relation} {numbers['limit']:g}")
+    if vx_required is not None and vx_available is not None:
+        parts.append(f"voltage form needs {vx_required} V, has {vx_available} V")
     parts.append(f"at {tap_text}")
-    parts.append(
-        f"I_f {texts.secondary_fault_a} A secondary ({texts.fault_a} A primary), "
-        f"X/R {texts.x_over_r}, burden {texts.burden} Ω"
-    )
-    if texts.time_ms is not None:
-        parts.append(f"saturates after about {texts.time_ms} ms")
+    parts.append(f"I_f {i_sec} A secondary ({i_pri} A primary), X/R {x_over_r}, burden {burden} Ω")
+    if time_ms is not None:
+        parts.append(f"saturates after about {time_ms} ms")
     return Finding(
         code=fc.SATURATION_RISK,
         ct=ct,
@@ -283,7 +274,6 @@ def _missing(ct: str, what: str, **numbers: Any) -> Finding:
     return Finding(code=fc.MISSING_DATA, ct=ct, message=f"{ct}: {what}", numbers=numbers)
 
 
-@functools.lru_cache(maxsize=1024)
 def _class_notes(
     has_text: bool, accuracy: AccuracyClass | None, error: str | None, secondary_a: float
 ) -> tuple[str, ...]:
@@ -323,16 +313,18 @@ def ct_findings(columns: CTColumns) -> list[list[Finding]]:
     for i, error in enumerate(columns.tap_errors):
         if error is not None:
             out[i].append(_missing(codes[i], f"ratings not computed: {error}"))
-    for i, tap in enumerate(taps):
-        if tap is not None:
-            notes = _class_notes(
-                bool(columns.cts[i].accuracy),
-                columns.accuracy[i],
-                columns.accuracy_errors[i],
-                tap.secondary_a,
-            )
-            for note in notes:
-                out[i].append(_missing(codes[i], note))
+    notes_of: dict[tuple[Any, ...], tuple[str, ...]] = {}  # the CTs of a set share them
+    for i, (ct, tap, acc, error) in enumerate(
+        zip(columns.cts, taps, columns.accuracy, columns.accuracy_errors, strict=True)
+    ):
+        if tap is None:
+            continue
+        key = (bool(ct.accuracy), id(acc), error, tap.secondary_a)
+        notes = notes_of.get(key)
+        if notes is None:
+            notes = notes_of[key] = _class_notes(key[0], acc, error, tap.secondary_a)
+        for note in notes:
+            out[i].append(_missing(codes[i], note))
 
     # A neutral CT carries the unbalance of the phases, about 0 A in normal service, not the
     # equipment's load: a thermal check against the load would be a false finding, and the
@@ -359,49 +351,47 @@ def ct_findings(columns: CTColumns) -> list[list[Finding]]:
     for i in np.flatnonzero(has_class & no_winding & columns.relaying).tolist():
         out[i].append(_missing(codes[i], "no winding_ohm: voltage form of C37.110 not computed"))
 
-    tap_texts: dict[Tap, str] = {}
+    failing: list[tuple[str, np.ndarray, np.ndarray]] = []
+    figures: list[tuple[np.ndarray, int]] = []
     for case in CASES:
         c = columns.cases[case]
-        alf = columns.alf_effective[case]
-        iec_p = np.array([a is not None for a in alf], dtype=np.bool_)
+        iec_p = np.array([a is not None for a in columns.alf_effective[case]], dtype=np.bool_)
         missing = np.array([bool(m) for m in c.missing], dtype=np.bool_)
         fails = _fails(c.has_index, c.index_fails, c.voltage_fails, iec_p)
         in_case = columns.in_case[case] & columns.relaying
-        for i in np.flatnonzero(in_case & missing).tolist():
-            out[i].append(_saturation_missing(codes[i], case, c.missing[i]))
         rows = np.flatnonzero(in_case & ~missing & fails)
-        if not len(rows):
-            continue
-        # The figures of the failing rows, as columns: rounded and written in one pass each.
-        has_index = c.has_index[rows]
+        failing.append((case, np.flatnonzero(in_case & missing), rows))
+        figures += [
+            (np.where(c.has_index[rows], c.c37_110_index[rows], math.nan), 3),
+            (np.where(c.has_vx_required[rows], c.vx_required_v[rows], math.nan), 4),
+            (c.vx_available_v[rows], 4),
+            (c.secondary_fault_a[rows], 4),
+            (c.fault_a[rows], 4),
+            (c.x_over_r[rows], 4),
+            (c.burden_abs_ohm[rows], 4),
+            (c.time_to_saturate_ms[rows], 2),
+        ]
+    # The figures the failing rows quote, rounded and written in one pass.
+    texts = text_columns(figures)
+    tap_texts: dict[Tap, str] = {}
+    for n, (case, missing_rows, rows) in enumerate(failing):
+        c = columns.cases[case]
+        for i in missing_rows.tolist():
+            out[i].append(_saturation_missing(codes[i], case, c.missing[i]))
         has_vx = c.has_vx_required[rows] & ~np.isnan(c.vx_available_v[rows])
-        index = np.where(has_index, c.c37_110_index[rows], math.nan)
-        vx_required = np.where(c.has_vx_required[rows], c.vx_required_v[rows], math.nan)
-        texts = zip(
-            rounded_texts(index, 3),
-            rounded_texts(vx_required),
-            rounded_texts(c.vx_available_v[rows]),
-            rounded_texts(c.secondary_fault_a[rows]),
-            rounded_texts(c.fault_a[rows]),
-            rounded_texts(c.x_over_r[rows]),
-            rounded_texts(c.burden_abs_ohm[rows]),
-            rounded_texts(c.time_to_saturate_ms[rows], 2),
-            strict=True,
-        )
         values = zip(
             rows.tolist(),
-            _optional(index, has_index),
+            _optional(c.c37_110_index[rows], c.has_index[rows]),
             c.index_fails[rows].tolist(),
-            _optional(vx_required, c.has_vx_required[rows]),
+            _optional(c.vx_required_v[rows], c.has_vx_required[rows]),
             _optional(c.vx_available_v[rows]),
             _optional(c.limit[rows]),
             _optional(c.time_to_saturate_ms[rows]),
             has_vx.tolist(),
+            *texts[8 * n : 8 * n + 8],
             strict=True,
         )
-        for (i, idx, idx_fails, req, avail, limit, time_ms, vx_ok), t in zip(
-            values, texts, strict=True
-        ):
+        for i, idx, idx_fails, req, avail, limit, time_ms, vx_ok, *t in values:
             tap = taps[i]
             tap_text = tap_texts.get(tap)
             if tap_text is None:
@@ -411,15 +401,15 @@ def ct_findings(columns: CTColumns) -> list[list[Finding]]:
                     codes[i],
                     tap_text,
                     idx_fails,
-                    _SaturationTexts(
-                        index=None if idx is None else t[0],
-                        vx_required=t[1] if vx_ok else None,
-                        vx_available=t[2] if vx_ok else None,
-                        secondary_fault_a=t[3],
-                        fault_a=t[4],
-                        x_over_r=t[5],
-                        burden=t[6],
-                        time_ms=None if time_ms is None else t[7],
+                    (
+                        None if idx is None else t[0],
+                        t[1] if vx_ok else None,
+                        t[2] if vx_ok else None,
+                        t[3],
+                        t[4],
+                        t[5],
+                        t[6],
+                        None if time_ms is None else t[7],
                     ),
                     {
                         "case": case,
@@ -533,15 +523,20 @@ class _DeviceCT:
     others: tuple[Finding, ...]
 
 
+_CLEAN = _DeviceCT(None, ())
+
+
 class _DeviceChecks:
     """The device findings of a site, each (device, CT) pair checked once."""
 
-    __slots__ = ("_inputs", "_pairs", "index")
+    __slots__ = ("_inputs_ok", "_pairs", "_settings", "index")
 
     def __init__(self, index: SiteIndex) -> None:
         self.index = index
         self._pairs: dict[tuple[str, str], _DeviceCT | None] = {}
-        self._inputs: dict[str, list[tuple[str, float]]] = {}
+        # Per device: its settings when they are the same for every CT (None: by CT).
+        self._settings: dict[str, tuple[str, ...] | None] = {}
+        self._inputs_ok: dict[tuple[str, float], bool] = {}
 
     def pair(self, device: rec.Device, ct_code: str) -> _DeviceCT | None:
         """None when the CT is unknown or has no tap (reported on the CT itself)."""
@@ -550,6 +545,15 @@ class _DeviceChecks:
             return self._pairs[key]
         self._pairs[key] = hit = self._check(device, ct_code)
         return hit
+
+    def _settings_for(self, device: rec.Device, ct: rec.CT) -> tuple[str, ...]:
+        code = device.code
+        if code in self._settings:
+            shared = self._settings[code]
+        else:
+            by_ct = isinstance(device.ratio_setting, Mapping)
+            shared = self._settings[code] = None if by_ct else tuple(_settings(device, ct))
+        return tuple(_settings(device, ct)) if shared is None else shared
 
     def _check(self, device: rec.Device, ct_code: str) -> _DeviceCT | None:
         ct = self.index.cts.get(ct_code)
@@ -562,7 +566,7 @@ class _DeviceChecks:
         device_code = device.code
         no_setting = None
         others: list[Finding] = []
-        settings = _settings(device, ct)
+        settings = self._settings_for(device, ct)
         if not settings:
             if device.kind == "relay":
                 no_setting = Finding(
@@ -572,7 +576,7 @@ class _DeviceChecks:
                     message=f"{device_code}: no ratio setting to check against {ct_code}",
                 )
         else:
-            verdict = _setting_verdict(tuple(settings), tap.ratio_value)
+            verdict = _setting_verdict(settings, tap.ratio_value)
             if isinstance(verdict, str):
                 others.append(
                     Finding(
@@ -591,12 +595,21 @@ class _DeviceChecks:
                         extra = f" (settings {', '.join(settings)})"
                         finding = replace(finding, message=finding.message + extra)
                     others.append(finding)
-        rated = self._inputs.get(device_code)
-        if rated is None:
-            rated = self._inputs[device_code] = _rated_inputs(device.inputs)
-        finding = _input_rating_finding(device_code, rated, ct_code, tap.secondary_a)
-        if finding:
-            others.append(finding)
+        key = (device_code, tap.secondary_a)
+        inputs_ok = self._inputs_ok.get(key)
+        if inputs_ok is None:
+            rated = _rated_inputs(device.inputs)
+            inputs_ok = self._inputs_ok[key] = (
+                _input_rating_finding(device_code, rated, ct_code, tap.secondary_a) is None
+            )
+        if not inputs_ok:
+            finding = _input_rating_finding(
+                device_code, _rated_inputs(device.inputs), ct_code, tap.secondary_a
+            )
+            if finding:
+                others.append(finding)
+        if no_setting is None and not others:
+            return _CLEAN
         return _DeviceCT(no_setting, tuple(others))
 
     def for_device(self, device_code: str, ct_codes: Iterable[str]) -> list[Finding]:

@@ -167,6 +167,7 @@ def ct_columns(
     """The rating columns of the CTs ``codes`` (each known to ``index``; ``KeyError``
     otherwise). ``burdens`` maps a CT code to its external burdens by case (complex Ω at the
     CT terminals, None where open or unknown); a CT absent from it has none."""
+    codes = list(codes)
     cts = [index.ct(code) for code in codes]
     windings: dict[tuple[Any, ...], _Winding] = {}
     places: dict[str | None, _Place] = {}
@@ -214,27 +215,17 @@ def ct_columns(
         on = has_tap.copy()
         if case == "phase_fault":
             on &= ~np.array(neutral, dtype=np.bool_)
-        r, x, has = [], [], []
-        for ct in cts:
-            b = (burdens.get(ct.code) or {}).get(case)
-            if b is None:
-                r.append(0.0)
-                x.append(0.0)
-                has.append(False)
-            else:
-                z = complex(b)
-                r.append(z.real)
-                x.append(z.imag)
-                has.append(True)
-        has_burden = np.array(has, dtype=np.bool_)
+        given = [(burdens.get(code) or {}).get(case) for code in codes]
+        z = [0j if b is None else complex(b) for b in given]
+        has_burden = np.array([b is not None for b in given], dtype=np.bool_)
         columns = assess_cases(
             case=case,
             fault_a=_nan(p.fault_a[k] for p in rows_p),
             x_over_r=_nan(p.x_over_r for p in rows_p),
             ratio_value=ratio_value,
             secondary_a=secondary_a,
-            burden_r_ohm=np.array(r, dtype=np.float64),
-            burden_x_ohm=np.array(x, dtype=np.float64),
+            burden_r_ohm=np.array([v.real for v in z], dtype=np.float64),
+            burden_x_ohm=np.array([v.imag for v in z], dtype=np.float64),
             has_burden=has_burden,
             winding_ohm=winding,
             standard_burden_ohm=np.where(relaying, std, no_std),
@@ -252,7 +243,7 @@ def ct_columns(
         alf[case] = _alf_effective(accuracy, rows_w, columns, on)
     return CTColumns(
         index=index,
-        codes=[ct.code for ct in cts],
+        codes=codes,
         cts=cts,
         taps=taps,
         tap_errors=[w.tap_error for w in rows_w],

@@ -107,7 +107,7 @@ class Pchip:
     so they give the same bits.
     """
 
-    __slots__ = ("_a", "_b", "_c", "_d", "_h", "_m", "_x", "_y", "d", "h", "m", "x", "y")
+    __slots__ = ("_a", "_b", "_c", "_d", "_h", "_m", "_x", "_y")
 
     def __init__(self, x: np.ndarray, y: np.ndarray) -> None:
         xs: list[float] = np.asarray(x, dtype=float).tolist()
@@ -134,8 +134,26 @@ class Pchip:
         self._a = [-6 * m[k] + 3 * d[k] + 3 * d[k + 1] for k in range(n - 1)]
         self._b = [6 * m[k] - 4 * d[k] - 2 * d[k + 1] for k in range(n - 1)]
         self._c = d[:-1]
-        self.x, self.y = np.array(xs), np.array(ys)
-        self.h, self.m, self.d = np.array(h), np.array(m), np.array(d)
+
+    @property
+    def x(self) -> np.ndarray:
+        return np.array(self._x)
+
+    @property
+    def y(self) -> np.ndarray:
+        return np.array(self._y)
+
+    @property
+    def h(self) -> np.ndarray:
+        return np.array(self._h)
+
+    @property
+    def m(self) -> np.ndarray:
+        return np.array(self._m)
+
+    @property
+    def d(self) -> np.ndarray:
+        return np.array(self._d)
 
     @staticmethod
     def _edge(h0: float, h1: float, m0: float, m1: float) -> float:
@@ -163,16 +181,8 @@ class Pchip:
 
     def __call__(self, xq: np.ndarray | float) -> np.ndarray:
         xq = np.asarray(xq, dtype=float)
-        k, t, inside = self._locate(xq)
-        h, d0, d1 = self.h[k], self.d[k], self.d[k + 1]
-        t2, t3 = t * t, t * t * t
-        val = (
-            (2 * t3 - 3 * t2 + 1) * self.y[k]
-            + (t3 - 2 * t2 + t) * h * d0
-            + (-2 * t3 + 3 * t2) * self.y[k + 1]
-            + (t3 - t2) * h * d1
-        )
-        return np.where(inside, val, np.nan)
+        out: np.ndarray = _evaluate_rows([self], xq.reshape(1, -1))[0].reshape(xq.shape)
+        return out
 
     def at(self, xq: float) -> float:
         """The interpolant at one point (as :meth:`__call__`, with plain floats)."""
@@ -243,6 +253,38 @@ class Pchip:
         return xs[best]
 
 
+def _evaluate_rows(interpolants: Sequence[Pchip], xq: np.ndarray) -> np.ndarray:
+    """Row r of ``xq`` evaluated on ``interpolants[r]``: every row in the same numpy
+    operations (the interval of each point found row by row; the cubic for all at once)."""
+    sizes_list = [len(p._x) for p in interpolants]
+    sizes = np.array(sizes_list)
+    offsets_list = list(itertools.accumulate(sizes_list, initial=0))[:-1]
+    offsets = np.array(offsets_list)
+    x = np.array([v for p in interpolants for v in p._x])
+    y = np.array([v for p in interpolants for v in p._y])
+    d = np.array([v for p in interpolants for v in p._d])
+    h = np.array([v for p in interpolants for v in (*p._h, 0.0)])  # aligned with x
+    k = np.empty(xq.shape, dtype=np.intp)
+    for r, (start, size) in enumerate(zip(offsets_list, sizes_list, strict=True)):
+        k[r] = np.searchsorted(x[start : start + size], xq[r], side="right")
+    k -= 1
+    k = np.minimum(np.maximum(k, 0), (sizes - 2)[:, None]) + offsets[:, None]
+    first, last = x[offsets][:, None], x[offsets + sizes - 1][:, None]
+    outside = ~((xq >= first) & (xq <= last))
+    hk, d0, d1 = h.take(k), d.take(k), d.take(k + 1)
+    t = (xq - x.take(k)) / hk
+    t2, t3 = t * t, t * t * t
+    val: np.ndarray = (
+        (2 * t3 - 3 * t2 + 1) * y.take(k)
+        + (t3 - 2 * t2 + t) * hk * d0
+        + (-2 * t3 + 3 * t2) * y.take(k + 1)
+        + (t3 - t2) * hk * d1
+    )
+    if outside.any():
+        val[outside] = np.nan
+    return val
+
+
 def _logs(curve: ExcitationCurve) -> tuple[np.ndarray, np.ndarray]:
     return np.log(np.asarray(curve.current_a)), np.log(np.asarray(curve.voltage_v))
 
@@ -291,33 +333,97 @@ def knee_point_ieee(curve: ExcitationCurve) -> KneePoint | None:
     return None
 
 
-@functools.lru_cache(maxsize=4096)
 def knee_point_iec(curve: ExcitationCurve) -> KneePoint | None:
     """IEC knee-point e.m.f. (S10): the lowest E with I(1.1 E) = 1.5 I(E), on log-log.
 
-    None when no such e.m.f. lies inside the measured range.
+    None when no such e.m.f. lies inside the measured range. :func:`knee_points_iec` for one
+    curve.
     """
-    g = _log_i_of_log_v(curve)
+    return knee_points_iec([curve])[0]
+
+
+_IEC_KNEES: dict[ExcitationCurve, KneePoint | None] = {}
+_MEMO_SIZE = 4096
+
+
+def knee_points_iec(curves: Sequence[ExcitationCurve]) -> list[KneePoint | None]:
+    """:func:`knee_point_iec` of each curve, each distinct curve worked out once (and kept);
+    the grid searches of the curves not yet known run in one numpy batch.
+
+    The e.m.f. axis (log V) is scanned on a grid of 1000 points for the first cell where
+    h(y) = ln I(y + ln 1.1) - ln I(y) - ln 1.5 turns from negative to non-negative, and the
+    root refined inside that cell by regula falsi.
+    """
+    new = [c for c in dict.fromkeys(curves) if c not in _IEC_KNEES]
+    if new:
+        if len(_IEC_KNEES) + len(new) > _MEMO_SIZE:
+            _IEC_KNEES.clear()
+        _IEC_KNEES.update(zip(new, _iec_knees(new), strict=True))
+    return [_IEC_KNEES[c] for c in curves]
+
+
+def _iec_knees(curves: Sequence[ExcitationCurve]) -> list[KneePoint | None]:
     step = math.log(IEC_EMF_STEP)
-    y0 = math.log(curve.voltage_v[0])
-    y1 = math.log(curve.voltage_v[-1]) - step
-    if y1 <= y0:
-        return None
     target = math.log(IEC_CURRENT_STEP)
+    out: list[KneePoint | None] = [None] * len(curves)
+    rows: list[int] = []
+    ends: list[tuple[float, float]] = []
+    for j, curve in enumerate(curves):
+        y0 = math.log(curve.voltage_v[0])
+        y1 = math.log(curve.voltage_v[-1]) - step
+        if y1 > y0:
+            rows.append(j)
+            ends.append((y0, y1))
+    if not rows:
+        return out
+    interpolants = [_log_i_of_log_v(curves[j]) for j in rows]
+    first, last = (np.array(v) for v in zip(*ends, strict=True))
+    # np.linspace(y0, y1, _GRID) of every row: arange · ((y1 - y0) / (_GRID - 1)) + y0, the
+    # last point y1 (numpy's own steps; a zero step, which it treats apart, cannot occur for
+    # y1 > y0 of logarithms).
+    y = np.arange(_GRID, dtype=float)[None, :] * ((last - first) / (_GRID - 1))[:, None]
+    y += first[:, None]
+    y[:, -1] = last
+    ys = np.minimum(y, last[:, None])  # keep y + step inside the curve despite rounding
+    both = _evaluate_rows(interpolants, np.concatenate((ys + step, ys), axis=1))
+    hv = both[:, :_GRID] - both[:, _GRID:] - target
+    up = (hv[:, :-1] < 0) & (hv[:, 1:] >= 0)
+    found = up.any(axis=1)
+    cells = up.argmax(axis=1)
+    for r, j in enumerate(rows):
+        if not found[r]:
+            continue
+        k = int(cells[r])
+        out[j] = _refine_iec(
+            interpolants[r],
+            float(y[r, k]),
+            float(y[r, k + 1]),
+            float(hv[r, k]),
+            float(hv[r, k + 1]),
+            ends[r][1],
+            step,
+            target,
+        )
+    return out
+
+
+def _refine_iec(
+    g: Pchip,
+    lo: float,
+    hi: float,
+    h_lo: float,
+    h_hi: float,
+    y1: float,
+    step: float,
+    target: float,
+) -> KneePoint:
+    """The IEC knee inside one grid cell [lo, hi] where h turns non-negative."""
 
     def h(y: float) -> float:
         y = y if y <= y1 else y1  # keep y + step inside the curve despite rounding
         return g.at(y + step) - g.at(y) - target
 
-    y = np.linspace(y0, y1, _GRID)
-    ys = np.minimum(y, y1)
-    both = g(np.concatenate((ys + step, ys)))  # one evaluation for both ends of the step
-    hv = both[:_GRID] - both[_GRID:] - target
-    up = np.nonzero((hv[:-1] < 0) & (hv[1:] >= 0))[0]
-    if len(up) == 0:
-        return None
-    k = int(up[0])
-    lo, hi, h_lo, h_hi = float(y[k]), float(y[k + 1]), float(hv[k]), float(hv[k + 1])
+    mid = lo
     for _ in range(8):  # regula falsi with bisection fallback, inside one small grid cell
         mid = lo - h_lo * (hi - lo) / (h_hi - h_lo) if h_hi != h_lo else 0.5 * (lo + hi)
         if not lo < mid < hi:
@@ -330,6 +436,13 @@ def knee_point_iec(curve: ExcitationCurve) -> KneePoint | None:
         else:
             hi, h_hi = mid, h_mid
     return KneePoint(voltage_v=math.exp(mid), current_a=math.exp(g.at(mid)))
+
+
+def clear_caches() -> None:
+    """Forget the interpolants and knee points worked out so far (benchmarks, tests)."""
+    for memo in (_log_v_of_log_i, _log_i_of_log_v, knee_point_ieee):
+        memo.cache_clear()
+    _IEC_KNEES.clear()
 
 
 def operating_point(curve: ExcitationCurve, emf_v: float) -> tuple[float, float | None]:

@@ -29,9 +29,10 @@ from analysis.engine.ratings.excitation import (
     excitation_curve,
     knee_point_iec,
     knee_point_ieee,
+    knee_points_iec,
     scale_to_tap,
 )
-from analysis.engine.ratings.rounding import rounded_columns
+from analysis.engine.ratings.rounding import Column, Rounded, rounded_columns
 from analysis.engine.ratings.saturation import Floats
 from analysis.engine.ratings.site import SiteIndex
 from analysis.engine.ratings.taps import Tap
@@ -60,16 +61,19 @@ def _scaled_curve(
 
 def _knee_voltages(columns: CTColumns) -> tuple[Floats, Floats]:
     """IEEE and IEC knee-point e.m.f. of each CT's curve at its tap (NaN without one), each
-    distinct curve worked out once."""
+    distinct curve worked out once, the IEC searches of a site's curves in one batch."""
     ieee = np.full(len(columns), math.nan)
     iec = np.full(len(columns), math.nan)
+    rows: list[int] = []
+    curves: list[ExcitationCurve] = []
     for i, ct in enumerate(columns.cts):
-        if not ct.excitation:
-            continue
-        curve = _curve_at_tap(ct, columns.taps[i])
-        if curve is None:
-            continue
-        k_ieee, k_iec = knee_point_ieee(curve), knee_point_iec(curve)
+        if ct.excitation:
+            curve = _curve_at_tap(ct, columns.taps[i])
+            if curve is not None:
+                rows.append(i)
+                curves.append(curve)
+    for i, curve, k_iec in zip(rows, curves, knee_points_iec(curves), strict=True):
+        k_ieee = knee_point_ieee(curve)
         if k_ieee is not None:
             ieee[i] = k_ieee.voltage_v
         if k_iec is not None:
@@ -90,31 +94,35 @@ def _no_case() -> dict[str, Any]:
     }
 
 
-def _case_rows(columns: CTColumns, case: str) -> list[dict[str, Any] | None]:
-    """The case JSON of each row (None where the CT has no such case), values rounded for
-    people."""
+def _case_figures(columns: CTColumns, case: str) -> list[Column]:
+    """The figures of a case's JSON, each column with its significant digits."""
     c = columns.cases[case]
-    nan = math.nan
     # Solver round-off (1e-16 Ω of reactance in a resistive loop) is not a value to show.
     eps = 1e-9 * np.maximum(c.burden_abs_ohm, 1e-3)
     r = np.where(np.abs(c.burden_r_ohm) < eps, 0.0, c.burden_r_ohm)
     x = np.where(np.abs(c.burden_x_ohm) < eps, 0.0, c.burden_x_ohm)
-    r_, x_, z_, sf, xr, req, avail, index = rounded_columns(
-        [
-            r,
-            x,
-            np.hypot(r, x),
-            c.secondary_fault_a,
-            c.x_over_r,
-            np.where(c.has_vx_required, c.vx_required_v, nan),
-            c.vx_available_v,
-            np.where(c.has_index, c.c37_110_index, nan),
-        ],
-        SIGNIFICANT_DIGITS,
-    )
-    (fault,) = rounded_columns([c.fault_a], 6)
-    (time,) = rounded_columns([c.time_to_saturate_ms], 3)
+    return [
+        (r, SIGNIFICANT_DIGITS),
+        (x, SIGNIFICANT_DIGITS),
+        (np.hypot(r, x), SIGNIFICANT_DIGITS),
+        (c.fault_a, 6),
+        (c.secondary_fault_a, SIGNIFICANT_DIGITS),
+        (c.x_over_r, SIGNIFICANT_DIGITS),
+        (np.where(c.has_vx_required, c.vx_required_v, math.nan), SIGNIFICANT_DIGITS),
+        (c.vx_available_v, SIGNIFICANT_DIGITS),
+        (np.where(c.has_index, c.c37_110_index, math.nan), SIGNIFICANT_DIGITS),
+        (c.time_to_saturate_ms, 3),
+    ]
+
+
+def _case_rows(
+    columns: CTColumns, case: str, figures: list[list[Rounded]]
+) -> list[dict[str, Any] | None]:
+    """The case JSON of each row (None where the CT has no such case) from its rounded
+    figures (:func:`_case_figures`)."""
+    r, x, z, fault, sf, xr, req, avail, index, time = figures
     out: list[dict[str, Any] | None] = []
+    c = columns.cases[case]
     for i, (on, has_burden) in enumerate(
         zip(columns.in_case[case].tolist(), c.has_burden.tolist(), strict=True)
     ):
@@ -123,7 +131,7 @@ def _case_rows(columns: CTColumns, case: str) -> list[dict[str, Any] | None]:
             continue
         out.append(
             {
-                "burden_ohm": {"r": r_[i], "x": x_[i], "z": z_[i]} if has_burden else None,
+                "burden_ohm": {"r": r[i], "x": x[i], "z": z[i]} if has_burden else None,
                 "fault_a": fault[i],
                 "secondary_fault_a": sf[i],
                 "x_over_r": xr[i],
@@ -138,22 +146,25 @@ def _case_rows(columns: CTColumns, case: str) -> list[dict[str, Any] | None]:
 
 def reports_json(columns: CTColumns, findings: list[list[Finding]]) -> list[dict[str, Any]]:
     """design.md's CT report JSON of each row, with that row's findings; the figures rounded
-    to significant digits for people, column by column."""
+    to significant digits for people, all columns in one pass."""
     site = columns.index.code
     ieee, iec = _knee_voltages(columns)
     has_class = np.array([a is not None for a in columns.accuracy], dtype=np.bool_)
-    winding, volts, std, k_ieee, k_iec = rounded_columns(
-        [
-            columns.winding_ohm,
-            np.where(has_class, columns.voltage_at_tap_v, math.nan),
-            np.where(has_class, columns.standard_burden_ohm, math.nan),
-            ieee,
-            iec,
-        ],
-        SIGNIFICANT_DIGITS,
+    figures: list[Column] = [
+        (columns.turns, 6),
+        (columns.winding_ohm, SIGNIFICANT_DIGITS),
+        (np.where(has_class, columns.voltage_at_tap_v, math.nan), SIGNIFICANT_DIGITS),
+        (np.where(has_class, columns.standard_burden_ohm, math.nan), SIGNIFICANT_DIGITS),
+        (ieee, SIGNIFICANT_DIGITS),
+        (iec, SIGNIFICANT_DIGITS),
+    ]
+    for case in CASES:
+        figures += _case_figures(columns, case)
+    rounded = rounded_columns(figures)
+    turns, winding, volts, std, k_ieee, k_iec = rounded[:6]
+    ground, phase = (
+        _case_rows(columns, case, rounded[6 + 10 * n : 16 + 10 * n]) for n, case in enumerate(CASES)
     )
-    (turns,) = rounded_columns([columns.turns], 6)
-    cases = {case: _case_rows(columns, case) for case in CASES}
     ratios: dict[Tap, str] = {}
     out: list[dict[str, Any]] = []
     for i, code in enumerate(columns.codes):
@@ -178,7 +189,10 @@ def reports_json(columns: CTColumns, findings: list[list[Finding]]) -> list[dict
                     "standard_burden_ohm_at_tap": std[i],
                 },
                 "knee_point_v": {"ieee": k_ieee[i], "iec": k_iec[i]},
-                "cases": {case: rows[i] or _no_case() for case, rows in cases.items()},
+                "cases": {
+                    "ground_fault": ground[i] or _no_case(),
+                    "phase_fault": phase[i] or _no_case(),
+                },
                 "findings": [f.to_json() for f in findings[i]],
             }
         )

@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
+from typing import Any
 
 import numpy as np
 import numpy.typing as npt
@@ -54,14 +55,17 @@ def rounded_text(x: float | None, digits: int = 4) -> str:
     return f"{value:.0f}" if value.is_integer() else f"{value:g}"
 
 
-def rounded_array(values: npt.NDArray[np.float64], digits: int) -> list[Rounded]:
-    """:func:`rounded` of every element (NaN stands for None), as a list of Python numbers."""
+def rounded_array(
+    values: npt.NDArray[np.float64], digits: int | npt.NDArray[np.int64]
+) -> list[Rounded]:
+    """:func:`rounded` of every element (NaN stands for None), as a list of Python numbers;
+    ``digits`` for all elements or one per element."""
     x = np.asarray(values, dtype=np.float64)
     if not len(x):
         return []
     ax = np.abs(x)
     with np.errstate(all="ignore"):  # NaN, infinities and zeros go the one-by-one way
-        k = np.floor(np.log10(ax)) - (digits - 1)
+        k = np.floor(np.log10(ax)) - (np.asarray(digits) - 1)
         k = np.where(np.isfinite(k), k, 0.0)
         p = np.abs(k).astype(np.intp)
         exact = p <= _EXACT_POWERS
@@ -70,48 +74,73 @@ def rounded_array(values: npt.NDArray[np.float64], digits: int) -> list[Rounded]
         mantissa = np.where(up, ax / scale, ax * scale)
         m = np.rint(mantissa)
         value = np.where(up, m * scale, m / scale)
+        low = _POW10[np.asarray(digits) - 1]
         fine = (
             np.isfinite(x)
             & (ax > 0)
             & exact
-            & (mantissa >= 10.0 ** (digits - 1))
-            & (mantissa < 10.0**digits)
+            & (mantissa >= low)
+            & (mantissa < low * 10.0)
             & (np.abs(mantissa - np.floor(mantissa) - 0.5) > _TIE_BAND)
         )
     value = np.copysign(value, x)
-    integral = fine & (np.floor(value) == value) & (np.abs(value) < _INT_EXACT)
+    whole = np.floor(value) == value
+    integral = fine & whole & (np.abs(value) < _INT_EXACT)
     none = ~np.isfinite(x)
     zero = x == 0
-    slow = ~(fine | none | zero) | (fine & ~integral & (np.floor(value) == value))
+    slow = ~(fine | none | zero) | (fine & whole & ~integral)
     obj = value.astype(object)
     obj[integral] = value[integral].astype(np.int64).astype(object)
     obj[none] = None
     obj[zero] = 0
     out: list[Rounded] = obj.tolist()
     for i in np.flatnonzero(slow).tolist():
-        out[i] = rounded(float(x[i]), digits)
+        d = digits if isinstance(digits, int) else int(digits[i])
+        out[i] = rounded(float(x[i]), d)
     return out
 
 
-def rounded_columns(columns: Sequence[npt.NDArray[np.float64]], digits: int) -> list[list[Rounded]]:
-    """:func:`rounded_array` of several columns of one length in one pass."""
+Column = tuple[npt.NDArray[np.float64], int]  # values and their significant digits
+
+
+def _flat(columns: Sequence[Column]) -> tuple[npt.NDArray[np.float64], npt.NDArray[np.int64]]:
+    values = np.concatenate([c for c, _ in columns])
+    digits = np.concatenate([np.full(len(c), d, dtype=np.int64) for c, d in columns])
+    return values, digits
+
+
+def _split(flat: list[Any], columns: Sequence[Column]) -> list[list[Any]]:
+    out, start = [], 0
+    for c, _ in columns:
+        out.append(flat[start : start + len(c)])
+        start += len(c)
+    return out
+
+
+def rounded_columns(columns: Sequence[Column]) -> list[list[Rounded]]:
+    """:func:`rounded_array` of several columns (each with its digits) in one pass."""
     if not columns:
         return []
-    n = len(columns[0])
-    flat = rounded_array(np.concatenate(columns), digits)
-    return [flat[i * n : (i + 1) * n] for i in range(len(columns))]
+    values, digits = _flat(columns)
+    return _split(rounded_array(values, digits), columns)
 
 
-def rounded_texts(values: npt.NDArray[np.float64], digits: int = 4) -> list[str]:
-    """:func:`rounded_text` of every element (NaN gives ``"nan"``), the rounding done as
-    :func:`rounded_array` does it."""
-    x = np.asarray(values, dtype=np.float64)
-    out: list[str] = []
-    for v, r in zip(x.tolist(), rounded_array(x, digits), strict=True):
-        if r is None or r == 0:
-            out.append(rounded_text(v, digits))  # NaN, infinities and signed zeros
+def text_columns(columns: Sequence[Column]) -> list[list[str]]:
+    """:func:`rounded_text` of every element of several columns (each with its digits) in one
+    pass (NaN gives ``"nan"``), the rounding done as :func:`rounded_array` does it."""
+    if not columns:
+        return []
+    values, digits = _flat(columns)
+    flat: list[str] = []
+    for v, r, d in zip(
+        values.tolist(), rounded_array(values, digits), digits.tolist(), strict=True
+    ):
+        if r is None:
+            flat.append(f"{v:g}")  # NaN and infinities
+        elif r == 0:
+            flat.append(rounded_text(v, d))  # signed zeros
         elif type(r) is int:
-            out.append(str(r))
+            flat.append(str(r))
         else:
-            out.append(f"{r:g}")
-    return out
+            flat.append(f"{r:g}")
+    return _split(flat, columns)
