@@ -612,6 +612,37 @@ class _DeviceChecks:
             return _CLEAN
         return _DeviceCT(no_setting, tuple(others))
 
+    def for_site(
+        self, feeds: Mapping[str, Iterable[str]]
+    ) -> tuple[list[Finding], dict[str, list[Finding]]]:
+        """Every device's findings in one pass: the site's list (devices in record order, as
+        :meth:`for_device`) and each CT's (as :meth:`for_ct`; CTs without any left out)."""
+        site: list[Finding] = []
+        by_ct: dict[str, list[tuple[str, _DeviceCT]]] = {}
+        for device_code, device in self.index.devices.items():
+            reported_missing = False
+            seen: set[str] = set()
+            for ct_code in sorted(feeds.get(device_code, ())):
+                pair = self.pair(device, ct_code)
+                if pair is None:
+                    continue
+                if pair.no_setting is not None and not reported_missing:
+                    site.append(pair.no_setting)
+                    reported_missing = True
+                site.extend(pair.others)
+                if pair is not _CLEAN and ct_code not in seen:
+                    seen.add(ct_code)
+                    by_ct.setdefault(ct_code, []).append((device_code, pair))
+        per_ct: dict[str, list[Finding]] = {}
+        for ct_code, pairs in by_ct.items():
+            out: list[Finding] = []
+            for _, pair in sorted(pairs, key=lambda p: p[0]):
+                if pair.no_setting is not None:
+                    out.append(pair.no_setting)
+                out.extend(pair.others)
+            per_ct[ct_code] = out
+        return site, per_ct
+
     def for_device(self, device_code: str, ct_codes: Iterable[str]) -> list[Finding]:
         """:func:`device_static_findings`."""
         device = self.index.devices.get(device_code)

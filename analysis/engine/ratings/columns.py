@@ -58,7 +58,7 @@ def parsed_accuracy(
         return str(err)
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True)
 class _Winding:
     """What the CTs of one winding, tap, class and winding resistance share."""
 
@@ -98,7 +98,7 @@ def _winding(index: SiteIndex, ct: rec.CT) -> _Winding:
     return _Winding(tap, None, accuracy, error, winding, std, vx, limit, volts)
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(slots=True)
 class _Place:
     """What the CTs of one equipment share: its load and its bus's fault level."""
 
@@ -169,10 +169,14 @@ def ct_columns(
     CT terminals, None where open or unknown); a CT absent from it has none."""
     codes = list(codes)
     cts = [index.ct(code) for code in codes]
-    windings: dict[tuple[Any, ...], _Winding] = {}
-    places: dict[str | None, _Place] = {}
+    # What the CTs of a set share is looked up once: one entry per distinct winding (tap,
+    # class, resistance) and per equipment; each row points at its entries.
+    windings: dict[tuple[Any, ...], int] = {}
+    places: dict[str | None, int] = {}
     rows_w: list[_Winding] = []
     rows_p: list[_Place] = []
+    w_of: list[int] = []
+    p_of: list[int] = []
     for ct in cts:
         key = (
             ct.terminals,
@@ -184,86 +188,101 @@ def ct_columns(
             ct.winding_ohm,
         )
         w = windings.get(key)
-        if w is None:
-            w = windings[key] = _winding(index, ct)
-        elif w.tap_error is not None:
-            w = _winding(index, ct)  # the message names the CT
-        rows_w.append(w)
+        if w is None or rows_w[w].tap_error is not None:  # a tap error names its CT
+            w = windings[key] = len(rows_w)
+            rows_w.append(_winding(index, ct))
+        w_of.append(w)
         p = places.get(ct.equipment)
         if p is None:
-            p = places[ct.equipment] = _place(index, ct)
-        rows_p.append(p)
-    n = len(cts)
-    taps = [w.tap for w in rows_w]
-    has_tap = np.array([t is not None for t in taps], dtype=np.bool_)
-    secondary_a = _nan(None if t is None else t.secondary_a for t in taps)
-    primary_a = _nan(None if t is None else t.primary_a for t in taps)
+            p = places[ct.equipment] = len(rows_p)
+            rows_p.append(_place(index, ct))
+        p_of.append(p)
+    wi, pi = np.array(w_of, dtype=np.intp), np.array(p_of, dtype=np.intp)
+
+    def per_winding(values: Iterable[float | None]) -> Floats:
+        return _nan(values).take(wi)
+
+    def per_place(values: Iterable[float | None]) -> Floats:
+        return _nan(values).take(pi)
+
+    windings_of = [rows_w[w] for w in w_of]
+    taps = [w.tap for w in windings_of]
+    accuracy = [w.accuracy for w in windings_of]
+    has_tap = np.array([w.tap is not None for w in rows_w], dtype=np.bool_)[wi]
+    secondary_a = per_winding(None if w.tap is None else w.tap.secondary_a for w in rows_w)
+    primary_a = per_winding(None if w.tap is None else w.tap.primary_a for w in rows_w)
     turns = primary_a / secondary_a
     ratio_value = turns  # primary A / secondary A, as Tap.ratio_value
-    accuracy = [w.accuracy for w in rows_w]
-    relaying = np.array([a is not None and a.is_relaying for a in accuracy], dtype=np.bool_)
-    winding = _nan(w.winding_ohm for w in rows_w)
-    std = _nan(w.standard_burden_ohm for w in rows_w)
-    no_std = np.full(n, math.nan)
+    relaying = np.array(
+        [w.accuracy is not None and w.accuracy.is_relaying for w in rows_w], dtype=np.bool_
+    )[wi]
+    winding = per_winding(w.winding_ohm for w in rows_w)
+    std = per_winding(w.standard_burden_ohm for w in rows_w)
+    relaying_std = np.where(relaying, std, math.nan)
+    vx = np.where(relaying, per_winding(w.vx_available_v for w in rows_w), math.nan)
+    limit = np.where(relaying, per_winding(w.limit for w in rows_w), math.nan)
+    x_over_r = per_place(p.x_over_r for p in rows_p)
     neutral = [str(ct.phase or "").upper() == "N" for ct in cts]
+    no_bus = [i for i, p in enumerate(p_of) if not rows_p[p].has_bus]
+    given = [burdens.get(code) or _NO_BURDENS for code in codes]
     cases: dict[str, CaseColumns] = {}
     in_case: dict[str, Flags] = {}
     alf: dict[str, list[float | None]] = {}
-    vx = np.where(relaying, _nan(w.vx_available_v for w in rows_w), math.nan)
-    limit = np.where(relaying, _nan(w.limit for w in rows_w), math.nan)
     for k, case in enumerate(CASES):
         on = has_tap.copy()
         if case == "phase_fault":
             on &= ~np.array(neutral, dtype=np.bool_)
-        given = [(burdens.get(code) or {}).get(case) for code in codes]
-        z = [0j if b is None else complex(b) for b in given]
-        has_burden = np.array([b is not None for b in given], dtype=np.bool_)
+        case_burdens = [b.get(case) for b in given]
+        z = np.array([0j if b is None else b for b in case_burdens], dtype=np.complex128)
         columns = assess_cases(
             case=case,
-            fault_a=_nan(p.fault_a[k] for p in rows_p),
-            x_over_r=_nan(p.x_over_r for p in rows_p),
+            fault_a=per_place(p.fault_a[k] for p in rows_p),
+            x_over_r=x_over_r,
             ratio_value=ratio_value,
             secondary_a=secondary_a,
-            burden_r_ohm=np.array([v.real for v in z], dtype=np.float64),
-            burden_x_ohm=np.array([v.imag for v in z], dtype=np.float64),
-            has_burden=has_burden,
+            burden_r_ohm=z.real.copy(),
+            burden_x_ohm=z.imag.copy(),
+            has_burden=np.array([b is not None for b in case_burdens], dtype=np.bool_),
             winding_ohm=winding,
-            standard_burden_ohm=np.where(relaying, std, no_std),
+            standard_burden_ohm=relaying_std,
             vx_available_v=vx,
             limit=limit,
             frequency_hz=index.frequency_hz,
         )
         missing = columns.missing
-        for i, p in enumerate(rows_p):
-            if not p.has_bus and missing[i]:
+        for i in no_bus:
+            if missing[i]:
                 kept = tuple(m for m in missing[i] if m not in ("fault current", "X/R"))
-                missing[i] = (f"bus of equipment {p.equipment!r}", *kept)
+                missing[i] = (f"bus of equipment {rows_p[p_of[i]].equipment!r}", *kept)
         cases[case] = columns
         in_case[case] = on
-        alf[case] = _alf_effective(accuracy, rows_w, columns, on)
+        alf[case] = _alf_effective(accuracy, windings_of, columns, on)
     return CTColumns(
         index=index,
         codes=codes,
         cts=cts,
         taps=taps,
-        tap_errors=[w.tap_error for w in rows_w],
+        tap_errors=[w.tap_error for w in windings_of],
         accuracy=accuracy,
-        accuracy_errors=[w.accuracy_error for w in rows_w],
+        accuracy_errors=[w.accuracy_error for w in windings_of],
         neutral=neutral,
         relaying=relaying,
         winding_ohm=winding,
         standard_burden_ohm=std,
-        voltage_at_tap_v=_nan(w.voltage_at_tap_v for w in rows_w),
+        voltage_at_tap_v=per_winding(w.voltage_at_tap_v for w in rows_w),
         turns=turns,
         primary_a=primary_a,
-        max_load_a=_nan(p.max_load_a for p in rows_p),
+        max_load_a=per_place(p.max_load_a for p in rows_p),
         rating_factor=np.array([as_float(ct.rating_factor) or 1.0 for ct in cts]),
-        equipment=[p.equipment for p in rows_p],
-        has_bus=[p.has_bus for p in rows_p],
+        equipment=[rows_p[p].equipment for p in p_of],
+        has_bus=[rows_p[p].has_bus for p in p_of],
         cases=cases,
         in_case=in_case,
         alf_effective=alf,
     )
+
+
+_NO_BURDENS: Burdens = {}
 
 
 def _alf_effective(

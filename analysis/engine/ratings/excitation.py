@@ -135,26 +135,6 @@ class Pchip:
         self._b = [6 * m[k] - 4 * d[k] - 2 * d[k + 1] for k in range(n - 1)]
         self._c = d[:-1]
 
-    @property
-    def x(self) -> np.ndarray:
-        return np.array(self._x)
-
-    @property
-    def y(self) -> np.ndarray:
-        return np.array(self._y)
-
-    @property
-    def h(self) -> np.ndarray:
-        return np.array(self._h)
-
-    @property
-    def m(self) -> np.ndarray:
-        return np.array(self._m)
-
-    @property
-    def d(self) -> np.ndarray:
-        return np.array(self._d)
-
     @staticmethod
     def _edge(h0: float, h1: float, m0: float, m1: float) -> float:
         d = ((2 * h0 + h1) * m0 - h0 * m1) / (h0 + h1)
@@ -165,10 +145,11 @@ class Pchip:
         return d
 
     def _locate(self, xq: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        k = np.searchsorted(self.x, xq, side="right") - 1
-        k = np.minimum(np.maximum(k, 0), len(self.x) - 2)
-        t = (xq - self.x[k]) / self.h[k]
-        inside = (xq >= self.x[0]) & (xq <= self.x[-1])
+        x, h = np.array(self._x), np.array(self._h)
+        k = np.searchsorted(x, xq, side="right") - 1
+        k = np.minimum(np.maximum(k, 0), len(x) - 2)
+        t = (xq - x[k]) / h[k]
+        inside = (xq >= x[0]) & (xq <= x[-1])
         return k, t, inside
 
     def _interval(self, xq: float) -> tuple[int, float] | None:

@@ -120,28 +120,24 @@ def _case_rows(
 ) -> list[dict[str, Any] | None]:
     """The case JSON of each row (None where the CT has no such case) from its rounded
     figures (:func:`_case_figures`)."""
-    r, x, z, fault, sf, xr, req, avail, index, time = figures
-    out: list[dict[str, Any] | None] = []
     c = columns.cases[case]
-    for i, (on, has_burden) in enumerate(
-        zip(columns.in_case[case].tolist(), c.has_burden.tolist(), strict=True)
-    ):
-        if not on:
-            out.append(None)
-            continue
-        out.append(
-            {
-                "burden_ohm": {"r": r[i], "x": x[i], "z": z[i]} if has_burden else None,
-                "fault_a": fault[i],
-                "secondary_fault_a": sf[i],
-                "x_over_r": xr[i],
-                "vx_required_v": req[i],
-                "vx_available_v": avail[i],
-                "c37_110_index": index[i],
-                "time_to_saturate_ms": time[i],
-            }
+    return [
+        {
+            "burden_ohm": {"r": r, "x": x, "z": z} if has_burden else None,
+            "fault_a": fault,
+            "secondary_fault_a": sf,
+            "x_over_r": xr,
+            "vx_required_v": req,
+            "vx_available_v": avail,
+            "c37_110_index": index,
+            "time_to_saturate_ms": time,
+        }
+        if on
+        else None
+        for on, has_burden, r, x, z, fault, sf, xr, req, avail, index, time in zip(
+            columns.in_case[case].tolist(), c.has_burden.tolist(), *figures, strict=True
         )
-    return out
+    ]
 
 
 def reports_json(columns: CTColumns, findings: list[list[Finding]]) -> list[dict[str, Any]]:
@@ -161,42 +157,41 @@ def reports_json(columns: CTColumns, findings: list[list[Finding]]) -> list[dict
     for case in CASES:
         figures += _case_figures(columns, case)
     rounded = rounded_columns(figures)
-    turns, winding, volts, std, k_ieee, k_iec = rounded[:6]
     ground, phase = (
         _case_rows(columns, case, rounded[6 + 10 * n : 16 + 10 * n]) for n, case in enumerate(CASES)
     )
-    ratios: dict[Tap, str] = {}
-    out: list[dict[str, Any]] = []
-    for i, code in enumerate(columns.codes):
-        tap = columns.taps[i]
-        acc = columns.accuracy[i]
-        ratio = None
-        if tap is not None:
-            ratio = ratios.get(tap)
-            if ratio is None:
-                ratio = ratios[tap] = tap.ratio
-        out.append(
-            {
-                "site": site,
-                "ct": code,
-                "tap": None if tap is None else list(tap.terminals),
-                "ratio": ratio,
-                "turns": turns[i],
-                "winding_ohm_at_tap": winding[i],
-                "accuracy": {
-                    "class": None if acc is None else acc.text,
-                    "voltage_at_tap_v": volts[i],
-                    "standard_burden_ohm_at_tap": std[i],
-                },
-                "knee_point_v": {"ieee": k_ieee[i], "iec": k_iec[i]},
-                "cases": {
-                    "ground_fault": ground[i] or _no_case(),
-                    "phase_fault": phase[i] or _no_case(),
-                },
-                "findings": [f.to_json() for f in findings[i]],
-            }
+    ratios: dict[int, str] = {}  # by tap (the CTs of a set share the Tap)
+    for tap in columns.taps:
+        if tap is not None and id(tap) not in ratios:
+            ratios[id(tap)] = tap.ratio
+    return [
+        {
+            "site": site,
+            "ct": code,
+            "tap": None if tap is None else list(tap.terminals),
+            "ratio": None if tap is None else ratios[id(tap)],
+            "turns": turns,
+            "winding_ohm_at_tap": winding,
+            "accuracy": {
+                "class": None if acc is None else acc.text,
+                "voltage_at_tap_v": volts,
+                "standard_burden_ohm_at_tap": std,
+            },
+            "knee_point_v": {"ieee": k_ieee, "iec": k_iec},
+            "cases": {"ground_fault": gf or _no_case(), "phase_fault": pf or _no_case()},
+            "findings": [f.to_json() for f in own],
+        }
+        for code, tap, acc, turns, winding, volts, std, k_ieee, k_iec, gf, pf, own in zip(
+            columns.codes,
+            columns.taps,
+            columns.accuracy,
+            *rounded[:6],
+            ground,
+            phase,
+            findings,
+            strict=True,
         )
-    return out
+    ]
 
 
 def build_ct_report(
@@ -246,19 +241,14 @@ def site_ratings(
     index = SiteIndex(record)
     columns = ct_columns(index, index.cts, burdens)
     own = ct_findings(columns)
-    fed: dict[str, list[str]] = {}
-    for device, cts in feeds.items():
-        for ct in cts:
-            fed.setdefault(ct, []).append(device)
-    devices = _DeviceChecks(index)
+    device_findings, fed = _DeviceChecks(index).for_site(feeds)
     findings: list[Finding] = [f for row in own for f in row]
+    findings += device_findings
     rows = [
-        [*row, *devices.for_ct(code, fed[code])] if code in fed else row
+        [*row, *fed[code]] if code in fed else row
         for code, row in zip(columns.codes, own, strict=True)
     ]
     reports = dict(zip(columns.codes, reports_json(columns, rows), strict=True))
-    for device_code in index.devices:
-        findings.extend(devices.for_device(device_code, feeds.get(device_code, ())))
     return SiteRatings(reports=reports, findings=findings)
 
 

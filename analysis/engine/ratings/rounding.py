@@ -127,20 +127,30 @@ def rounded_columns(columns: Sequence[Column]) -> list[list[Rounded]]:
 
 def text_columns(columns: Sequence[Column]) -> list[list[str]]:
     """:func:`rounded_text` of every element of several columns (each with its digits) in one
-    pass (NaN gives ``"nan"``), the rounding done as :func:`rounded_array` does it."""
+    pass (NaN gives ``"nan"``), the rounding done as :func:`rounded_array` does it; each
+    distinct figure written once."""
     if not columns:
         return []
     values, digits = _flat(columns)
-    flat: list[str] = []
-    for v, r, d in zip(
-        values.tolist(), rounded_array(values, digits), digits.tolist(), strict=True
-    ):
+    texts = np.empty(len(values), dtype=object)
+    zero = values == 0
+    for d in np.unique(digits[~zero]).tolist():
+        rows = np.flatnonzero((digits == d) & ~zero)
+        distinct, where = np.unique(values[rows], return_inverse=True)
+        written = np.array(_texts(distinct, d), dtype=object)
+        texts[rows] = written[where]
+    for i in np.flatnonzero(zero).tolist():
+        texts[i] = rounded_text(float(values[i]), int(digits[i]))  # keeps the sign of -0
+    return _split(texts.tolist(), columns)
+
+
+def _texts(values: npt.NDArray[np.float64], digits: int) -> list[str]:
+    out: list[str] = []
+    for v, r in zip(values.tolist(), rounded_array(values, digits), strict=True):
         if r is None:
-            flat.append(f"{v:g}")  # NaN and infinities
-        elif r == 0:
-            flat.append(rounded_text(v, d))  # signed zeros
+            out.append(f"{v:g}")  # NaN and infinities
         elif type(r) is int:
-            flat.append(str(r))
+            out.append(str(r))
         else:
-            flat.append(f"{r:g}")
-    return _split(flat, columns)
+            out.append(f"{r:g}")
+    return out

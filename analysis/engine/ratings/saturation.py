@@ -205,17 +205,13 @@ def _opt(value: float, present: bool) -> float | None:
     return value if present else None
 
 
-_MISSING: dict[tuple[bool, bool, bool, bool], tuple[str, ...]] = {}
-
-
-def _missing(fault: bool, x_over_r: bool, burden: bool, winding: bool) -> tuple[str, ...]:
-    """What a case misses, in the order the findings name it (shared tuples)."""
-    key = (fault, x_over_r, burden, winding)
-    hit = _MISSING.get(key)
-    if hit is None:
-        names = ("fault current", "X/R", "burden", "winding resistance")
-        hit = _MISSING[key] = tuple(n for n, m in zip(names, key, strict=True) if m)
-    return hit
+_MISSING_NAMES = ("fault current", "X/R", "burden", "winding resistance")
+# What a case misses, by a 4-bit code (fault current 8, X/R 4, burden 2, winding 1), in the
+# order the findings name it; the rows share the tuples.
+_MISSING = [
+    tuple(n for b, n in zip((8, 4, 2, 1), _MISSING_NAMES, strict=True) if code & b)
+    for code in range(16)
+]
 
 
 @dataclass(frozen=True, slots=True)
@@ -332,17 +328,13 @@ def assess_cases(
     has_limit = ~np.isnan(limit)
     with np.errstate(invalid="ignore"):
         index_fails = has_index & has_limit & ~(index <= limit)
-    missing = [
-        _missing(not f, not x, not b, d and not w)
-        for f, x, b, d, w in zip(
-            has_fault.tolist(),
-            has_x_over_r.tolist(),
-            has_burden.tolist(),
-            data.tolist(),
-            has_winding.tolist(),
-            strict=True,
-        )
-    ]
+    code = (
+        np.where(has_fault, 0, 8)
+        + np.where(has_x_over_r, 0, 4)
+        + np.where(has_burden, 0, 2)
+        + np.where(data & ~has_winding, 1, 0)
+    )
+    missing = [_MISSING[c] for c in code.tolist()]
     return CaseColumns(
         case=case,
         fault_a=fault_a,
