@@ -529,7 +529,7 @@ _CLEAN = _DeviceCT(None, ())
 class _DeviceChecks:
     """The device findings of a site, each (device, CT) pair checked once."""
 
-    __slots__ = ("_inputs_ok", "_pairs", "_settings", "index")
+    __slots__ = ("_clean", "_inputs_ok", "_pairs", "_settings", "index")
 
     def __init__(self, index: SiteIndex) -> None:
         self.index = index
@@ -537,6 +537,7 @@ class _DeviceChecks:
         # Per device: its settings when they are the same for every CT (None: by CT).
         self._settings: dict[str, tuple[str, ...] | None] = {}
         self._inputs_ok: dict[tuple[str, float], bool] = {}
+        self._clean: set[tuple[str, int] | None] = set()
 
     def pair(self, device: rec.Device, ct_code: str) -> _DeviceCT | None:
         """None when the CT is unknown or has no tap (reported on the CT itself)."""
@@ -564,9 +565,14 @@ class _DeviceChecks:
         except ValueError:
             return None
         device_code = device.code
+        settings = self._settings_for(device, ct)
+        # A device whose settings are the same for every CT finds nothing against one CT of a
+        # tap exactly when it found nothing against another of that tap (a set's CTs).
+        clean_key = (device_code, id(tap)) if self._settings[device_code] is not None else None
+        if clean_key in self._clean:
+            return _CLEAN
         no_setting = None
         others: list[Finding] = []
-        settings = self._settings_for(device, ct)
         if not settings:
             if device.kind == "relay":
                 no_setting = Finding(
@@ -609,6 +615,8 @@ class _DeviceChecks:
             if finding:
                 others.append(finding)
         if no_setting is None and not others:
+            if clean_key is not None:
+                self._clean.add(clean_key)
             return _CLEAN
         return _DeviceCT(no_setting, tuple(others))
 
@@ -621,18 +629,15 @@ class _DeviceChecks:
         by_ct: dict[str, list[tuple[str, _DeviceCT]]] = {}
         for device_code, device in self.index.devices.items():
             reported_missing = False
-            seen: set[str] = set()
-            for ct_code in sorted(feeds.get(device_code, ())):
-                pair = self.pair(device, ct_code)
-                if pair is None:
+            for ct_code in sorted(feeds.get(device_code, ())):  # a set: each CT once
+                pair = self._check(device, ct_code)
+                if pair is None or pair is _CLEAN:
                     continue
                 if pair.no_setting is not None and not reported_missing:
                     site.append(pair.no_setting)
                     reported_missing = True
                 site.extend(pair.others)
-                if pair is not _CLEAN and ct_code not in seen:
-                    seen.add(ct_code)
-                    by_ct.setdefault(ct_code, []).append((device_code, pair))
+                by_ct.setdefault(ct_code, []).append((device_code, pair))
         per_ct: dict[str, list[Finding]] = {}
         for ct_code, pairs in by_ct.items():
             out: list[Finding] = []
