@@ -7,7 +7,10 @@ That account is for the embedded SQLite demo database on a DEBUG machine only:
 - :class:`DemoAwareBackend` refuses it whenever DEBUG is off, wherever it came from;
 - the production entry points (``config.wsgi``, ``config.asgi``) refuse to start while it
   exists (:func:`refuse_unsafe_start`), as ``config.settings.production`` refuses a placeholder
-  or short ``SECRET_KEY``.
+  or short ``SECRET_KEY``;
+- ``manage.py check --deploy`` reports it as the error ``loopkeep.E001``
+  (:func:`check_demo_account`, registered by ``InventoryConfig.ready``), so a release script
+  stops before the service is started at all.
 """
 
 from __future__ import annotations
@@ -17,6 +20,7 @@ from typing import Any
 from django.conf import settings
 from django.contrib.auth import get_user_model
 from django.contrib.auth.backends import ModelBackend
+from django.core import checks
 from django.core.exceptions import ImproperlyConfigured
 from django.db import DatabaseError, connection
 
@@ -38,20 +42,44 @@ class DemoAwareBackend(ModelBackend):
         return super().user_can_authenticate(user)
 
 
+_DELETE_HINT = (
+    f'manage.py shell -c "from django.contrib.auth import get_user_model; '
+    f"get_user_model().objects.filter(username='{DEMO_USERNAME}').delete()\""
+)
+
+
+def _demo_account_unsafe() -> bool:
+    """Whether the demo account exists while DEBUG is off. A database that cannot be read yet
+    (not migrated, not reachable) is left to the service's own errors: False."""
+    if settings.DEBUG:
+        return False
+    try:
+        return get_user_model().objects.filter(username=DEMO_USERNAME).exists()
+    except DatabaseError:
+        return False
+
+
 def refuse_unsafe_start() -> None:
     """Raise ``ImproperlyConfigured`` when the service is about to serve with the demo
-    account present (DEBUG off). Called by the WSGI and ASGI entry points after setup; a
-    database that cannot be read yet (not migrated) is left to the service's own errors."""
-    if settings.DEBUG:
-        return
-    try:
-        present = get_user_model().objects.filter(username=DEMO_USERNAME).exists()
-    except DatabaseError:
-        return
-    if present:
+    account present (DEBUG off). Called by the WSGI and ASGI entry points after setup."""
+    if _demo_account_unsafe():
         raise ImproperlyConfigured(
             f"the demo account {DEMO_USERNAME!r} exists in this database; delete it "
-            f'(manage.py shell -c "from django.contrib.auth import get_user_model; '
-            f"get_user_model().objects.filter(username='{DEMO_USERNAME}').delete()\") "
-            "before serving with DEBUG off"
+            f"({_DELETE_HINT}) before serving with DEBUG off"
         )
+
+
+def check_demo_account(app_configs: Any = None, **kwargs: Any) -> list[checks.CheckMessage]:
+    """The deploy system check (``check --deploy``, tag ``security``): an error while the demo
+    account exists with DEBUG off, the state in which the entry points refuse to serve."""
+    if not _demo_account_unsafe():
+        return []
+    return [
+        checks.Error(
+            f"the demo account {DEMO_USERNAME!r} exists in this database "
+            "and DEBUG is off; the web entry points refuse to serve while it exists",
+            hint=f"delete it: {_DELETE_HINT}",
+            obj=DEMO_USERNAME,
+            id="loopkeep.E001",
+        )
+    ]

@@ -1,11 +1,13 @@
 """Issue 11, item 7: the demo account exists only in the embedded SQLite demo database and
 cannot log in unless DEBUG is on; production refuses to start with it present or with a
-placeholder or short secret key; login attempts are throttled (django-axes)."""
+placeholder or short secret key, and ``check --deploy`` reports it; login attempts are
+throttled (django-axes)."""
 
 from __future__ import annotations
 
 import pytest
 from django.contrib.auth import authenticate, get_user_model
+from django.core import checks
 from django.core.exceptions import ImproperlyConfigured
 from django.core.management import call_command
 from django.db import connection
@@ -115,3 +117,25 @@ def test_login_attempts_are_throttled(client):
     )
     assert response.status_code == 429
     assert "_auth_user_id" not in client.session
+
+
+@pytest.mark.django_db
+def test_check_deploy_reports_the_demo_account_with_debug_off():
+    """Common practice, no source: a shared default login must not reach production. Django's
+    system-check framework runs deploy-tagged checks only under ``check --deploy``."""
+
+    def demo_errors(**kwargs):
+        found = checks.run_checks(include_deployment_checks=True, **kwargs)
+        return [m for m in found if m.id == "loopkeep.E001"]
+
+    with override_settings(DEBUG=False):
+        assert demo_errors() == []  # no demo account
+        get_user_model().objects.create_user(DEMO_USERNAME, "d@example.invalid", "demo")
+        (error,) = demo_errors()
+        assert error.level == checks.ERROR and error.is_serious()
+        assert "demo account 'demo'" in error.msg and "DEBUG is off" in error.msg
+        assert "delete()" in error.hint
+        # Deploy-only: a plain `check` (and every command's startup check) leaves it alone.
+        assert [m for m in checks.run_checks() if m.id == "loopkeep.E001"] == []
+    with override_settings(DEBUG=True):
+        assert demo_errors() == []  # the demo machine
