@@ -4,17 +4,33 @@
 transaction commits (in-process with no broker, the embedded default); ``import_job_run`` is
 the task's body: it claims the job, runs the same import as the command line, reports progress
 through a connection of its own (the import's transaction keeps its writes invisible until the
-end) and checks the cancel flag between chunks of sites; a cancelled job rolls back.
+end) and checks the cancel flag between chunks of sites; a cancelled job rolls back. The job's
+end (done, with its result) commits in the import's transaction, so a job still ``running`` has
+written nothing.
+
+A worker killed mid-import leaves its job ``running`` (a redelivered message finds it claimed
+and does nothing). While a job runs, a thread of its worker stamps ``heartbeat_at`` every
+``LOOPKEEP_CHUNK_HEARTBEAT_S`` on its own connection (as a recompute chunk's heartbeat,
+``analysis.services.runs``); ``import_jobs_sweep`` (beat task ``inventory.sweep_import_jobs``)
+marks failed a running job silent for ``LOOPKEEP_IMPORT_STALL_S``. ``import_jobs_prune`` (beat
+task ``inventory.prune_import_jobs``, daily) deletes finished jobs older than
+``LOOPKEEP_IMPORT_KEEP_DAYS``.
 """
 
 from __future__ import annotations
 
-from collections.abc import Callable
+import contextlib
+import datetime as dt
+import logging
+from collections.abc import Callable, Iterator
 from typing import Any
 
+from django.conf import settings
 from django.db import DEFAULT_DB_ALIAS, connection, connections, transaction
+from django.db.models import Q
 from django.utils import timezone
 
+from config.beating import beating
 from inventory.models import ImportJob
 from inventory.sheets import (
     ImportCancelled,
@@ -27,6 +43,9 @@ from inventory.sheets import (
 from inventory.sitefile.importer import SiteImportError
 
 SITE_FILE_SUFFIXES = (".json", ".yaml", ".yml")
+FINISHED = (ImportJob.Status.DONE, ImportJob.Status.FAILED, ImportJob.Status.CANCELLED)
+
+log = logging.getLogger(__name__)
 
 
 class ImportFailed(ValueError):
@@ -177,10 +196,41 @@ def _progress_writer(job_id: int) -> tuple[Callable[[int, int], None], Callable[
     return write, own.close
 
 
+def _beats() -> bool:
+    """Whether a running job stamps a heartbeat: not on SQLite, which allows one writer at a
+    time (there the import runs inside the request, the embedded default)."""
+    return connection.vendor != "sqlite"
+
+
+def import_heartbeat_every_s() -> float:
+    """Seconds between two heartbeats of a running job (the workers' one period)."""
+    return float(getattr(settings, "LOOPKEEP_CHUNK_HEARTBEAT_S", 5.0))
+
+
+@contextlib.contextmanager
+def _job_heartbeat(job_id: int) -> Iterator[None]:
+    """While the block runs, a thread of this process stamps the job's ``heartbeat_at``
+    (``config.beating``: its own connection, beating through the import's open transaction).
+    It stops with the process: a killed worker stops beating and the sweep marks the job
+    failed."""
+    if not _beats():
+        yield
+        return
+
+    def stamp() -> None:
+        ImportJob.objects.filter(pk=job_id, status=ImportJob.Status.RUNNING).update(
+            heartbeat_at=timezone.now()
+        )
+
+    with beating(stamp, every_s=import_heartbeat_every_s(), label=f"import job {job_id}"):
+        yield
+
+
 def import_job_run(*, job_id: int) -> None:
     """Run a queued job (safe to call twice: only the call that claims it runs it)."""
+    now = timezone.now()
     claimed = ImportJob.objects.filter(pk=job_id, status=ImportJob.Status.QUEUED).update(
-        status=ImportJob.Status.RUNNING, started_at=timezone.now()
+        status=ImportJob.Status.RUNNING, started_at=now, heartbeat_at=now if _beats() else None
     )
     if not claimed:
         return
@@ -192,17 +242,28 @@ def import_job_run(*, job_id: int) -> None:
 
     fields: dict[str, Any] = {"data": b"", "finished_at": timezone.now()}
     try:
-        result = run_import(
-            data=bytes(job.data),
-            filename=job.filename,
-            kind=job.kind or None,
-            sheet=job.sheet or None,
-            mapping=job.mapping,
-            dry_run=job.dry_run,
-            user=job.created_by,
-            progress=progress,
-            cancelled=cancelled,
-        )
+        with _job_heartbeat(job_id), transaction.atomic():
+            result = run_import(
+                data=bytes(job.data),
+                filename=job.filename,
+                kind=job.kind or None,
+                sheet=job.sheet or None,
+                mapping=job.mapping,
+                dry_run=job.dry_run,
+                user=job.created_by,
+                progress=progress,
+                cancelled=cancelled,
+            )
+            # The end commits with the import's writes: a job left running wrote nothing.
+            ImportJob.objects.filter(pk=job_id).update(
+                data=b"",
+                status=ImportJob.Status.DONE,
+                percent=100,
+                result=result,
+                kind=result.get("kind", job.kind),
+                message=result.get("summary", ""),
+                finished_at=timezone.now(),
+            )
     except ImportCancelled:
         fields.update(status=ImportJob.Status.CANCELLED, message="cancelled; nothing was written")
     except ImportFailed as exc:
@@ -216,14 +277,59 @@ def import_job_run(*, job_id: int) -> None:
         close()
         raise
     else:
-        fields.update(
-            status=ImportJob.Status.DONE,
-            percent=100,
-            result=result,
-            kind=result.get("kind", job.kind),
-            message=result.get("summary", ""),
-        )
+        return
     finally:
         close()
     fields["finished_at"] = timezone.now()
     ImportJob.objects.filter(pk=job_id).update(**fields)
+
+
+def import_stall_s() -> float:
+    """Seconds without a heartbeat after which a running job is taken for dead."""
+    return float(getattr(settings, "LOOPKEEP_IMPORT_STALL_S", 60.0))
+
+
+def _no_heartbeat_limit_s() -> float:
+    """A running job with no heartbeat at all (started where none is stamped, SQLite) is dead
+    once the task's hard time limit has passed: Celery has killed it by then."""
+    return float(getattr(settings, "CELERY_TASK_TIME_LIMIT", 30 * 60)) + import_stall_s()
+
+
+def import_jobs_sweep(*, stall_s: float | None = None, now: dt.datetime | None = None) -> int:
+    """Mark failed each running job whose worker stopped: no heartbeat for ``stall_s``
+    (``LOOPKEEP_IMPORT_STALL_S``), or none at all past the task's hard time limit. One
+    conditional UPDATE: a job that beats or ends meanwhile is left alone. Its import had not
+    committed (a job's end commits with its writes), so nothing was written. Returns how many
+    jobs were marked."""
+    now = now or timezone.now()
+    bound = import_stall_s() if stall_s is None else stall_s
+    silent = now - dt.timedelta(seconds=bound)
+    never = now - dt.timedelta(seconds=max(bound, _no_heartbeat_limit_s()))
+    stalled = Q(status=ImportJob.Status.RUNNING) & (
+        Q(heartbeat_at__lte=silent) | Q(heartbeat_at__isnull=True, started_at__lte=never)
+    )
+    ids = list(ImportJob.objects.filter(stalled).values_list("pk", flat=True))
+    if not ids:
+        return 0
+    marked = ImportJob.objects.filter(stalled, pk__in=ids).update(
+        status=ImportJob.Status.FAILED,
+        data=b"",
+        finished_at=now,
+        message=(
+            f"the import stopped: its worker gave no sign of life for over {bound:g} s (it "
+            "was stopped or killed); the import did not commit, so nothing was written; send "
+            "the file again"
+        ),
+    )
+    log.warning("import jobs %s: no heartbeat for %g s, marked failed", ids, bound)
+    return marked
+
+
+def import_jobs_prune(*, keep_days: int, now: dt.datetime | None = None) -> int:
+    """Delete finished jobs (done, failed, cancelled) that ended more than ``keep_days`` ago;
+    queued and running jobs stay whatever their age (the sweep still acts on them). Returns
+    how many were deleted."""
+    if keep_days < 1:
+        raise ValueError("keep_days must be at least 1 (today's jobs are never pruned)")
+    cutoff = (now or timezone.now()) - dt.timedelta(days=keep_days)
+    return ImportJob.objects.filter(status__in=FINISHED, finished_at__lt=cutoff).delete()[0]

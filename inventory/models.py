@@ -825,6 +825,12 @@ class ImportJob(models.Model):
     )
     created_at = models.DateTimeField("created at", auto_now_add=True)
     started_at = models.DateTimeField("started at", null=True, blank=True)
+    heartbeat_at = models.DateTimeField(
+        "heartbeat at",
+        null=True,
+        blank=True,
+        help_text="stamped every few seconds while a worker runs the job (not on SQLite)",
+    )
     finished_at = models.DateTimeField("finished at", null=True, blank=True)
 
     class Meta:

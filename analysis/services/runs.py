@@ -7,15 +7,14 @@ from __future__ import annotations
 
 import contextlib
 import logging
-import threading
 import time
 from collections.abc import Iterable, Iterator, Mapping
 from dataclasses import dataclass, field
 from typing import Any
 
 from django.conf import settings
-from django.db import connections, transaction
 from django.db import models as djm
+from django.db import transaction
 from django.db.models import Case, F, Value, When
 from django.db.models.functions import Concat
 from django.utils import timezone
@@ -24,6 +23,7 @@ from analysis import models
 from analysis.models import RunKind, RunStatus
 from analysis.selectors import chunk_inputs
 from analysis.services.results import TRANSIENT_DB_ERRORS, results_replace
+from config.beating import beating
 from inventory.models import Site
 from record import SiteRecord
 
@@ -244,31 +244,18 @@ def heartbeat_every_s() -> float:
 @contextlib.contextmanager
 def chunk_heartbeat(*, run_id: int, index: int) -> Iterator[None]:
     """While the block runs, a thread of this process stamps the chunk's ``heartbeat_at`` every
-    ``LOOPKEEP_CHUNK_HEARTBEAT_S`` (on its own database connection, so it beats through long
-    computations and open write transactions alike). It stops with the process: a worker
-    killed with ``kill -9`` stops beating, and the stall sweep sends the chunk again."""
-    every = heartbeat_every_s()
-    stop = threading.Event()
+    ``LOOPKEEP_CHUNK_HEARTBEAT_S`` (``config.beating``: on its own database connection, so it
+    beats through long computations and open write transactions alike). It stops with the
+    process: a worker killed with ``kill -9`` stops beating, and the stall sweep sends the
+    chunk again."""
 
-    def beat() -> None:
-        try:
-            while not stop.wait(every):
-                try:
-                    models.RunChunk.objects.filter(
-                        run_id=run_id, index=index, done_at__isnull=True
-                    ).update(heartbeat_at=timezone.now())
-                except Exception as exc:  # the database away for a moment: beat again later
-                    log.warning("heartbeat of run %s chunk %s: %s", run_id, index, exc)
-        finally:
-            connections.close_all()  # this thread's connections only
+    def stamp() -> None:
+        models.RunChunk.objects.filter(run_id=run_id, index=index, done_at__isnull=True).update(
+            heartbeat_at=timezone.now()
+        )
 
-    thread = threading.Thread(target=beat, name=f"heartbeat-{run_id}-{index}", daemon=True)
-    thread.start()
-    try:
+    with beating(stamp, every_s=heartbeat_every_s(), label=f"run {run_id} chunk {index}"):
         yield
-    finally:
-        stop.set()
-        thread.join(every + 10)
 
 
 def _chunk_work(run_id: int | None, index: int, site_ids: list[int], force: bool) -> ChunkOutcome:

@@ -248,6 +248,10 @@ CELERY_TASK_ROUTES = {
     "analysis.recompute_chunk": {"queue": "fleet", "priority": CHUNK_PRIORITY},
     "analysis.prune_results": {"queue": "default"},
     "analysis.*": {"queue": "recompute"},
+    # The sweep of import jobs runs where the recompute sweeps do: not behind a long import on
+    # the imports queue, nor waiting for a dead imports worker to come back.
+    "inventory.sweep_import_jobs": {"queue": "recompute"},
+    "inventory.prune_import_jobs": {"queue": "default"},
     "inventory.*": {"queue": "imports"},
 }
 # Several installations (or a test run beside a live one) may share one Redis: a prefix keeps
@@ -268,6 +272,11 @@ LOOPKEEP_CHUNK_STALL_S = float(os.environ.get("LOOPKEEP_CHUNK_STALL_S", "45"))
 LOOPKEEP_OUTBOX_SEND_AFTER_S = float(os.environ.get("LOOPKEEP_OUTBOX_SEND_AFTER_S", "5"))
 LOOPKEEP_RUN_LOST_S = float(os.environ.get("LOOPKEEP_RUN_LOST_S", "600"))
 LOOPKEEP_SWEEP_EVERY_S = float(os.environ.get("LOOPKEEP_SWEEP_EVERY_S", "10"))
+# Import jobs (inventory.imports): a running job stamps a heartbeat every
+# LOOPKEEP_CHUNK_HEARTBEAT_S; the sweep, every LOOPKEEP_IMPORT_SWEEP_EVERY_S, marks failed a job
+# silent for LOOPKEEP_IMPORT_STALL_S (its worker died; the import had not committed).
+LOOPKEEP_IMPORT_STALL_S = float(os.environ.get("LOOPKEEP_IMPORT_STALL_S", "60"))
+LOOPKEEP_IMPORT_SWEEP_EVERY_S = float(os.environ.get("LOOPKEEP_IMPORT_SWEEP_EVERY_S", "30"))
 CELERY_BEAT_SCHEDULE = {
     "send-pending-recompute-requests": {
         "task": "analysis.sweep_requests",
@@ -282,9 +291,22 @@ CELERY_BEAT_SCHEDULE = {
         "task": "analysis.prune_results",
         "schedule": crontab(hour=3, minute=40),
     },
+    "sweep-import-jobs": {
+        "task": "inventory.sweep_import_jobs",
+        "schedule": LOOPKEEP_IMPORT_SWEEP_EVERY_S,
+        "options": {"expires": LOOPKEEP_IMPORT_SWEEP_EVERY_S},
+    },
+    "prune-import-jobs-daily": {
+        "task": "inventory.prune_import_jobs",
+        "schedule": crontab(hour=3, minute=50),
+    },
 }
 # prune_results: finished runs (and their chunks) and done outbox rows older than this go.
 LOOPKEEP_PRUNE_KEEP_DAYS = int(os.environ.get("LOOPKEEP_PRUNE_KEEP_DAYS", "30"))
+# prune_import_jobs: finished import jobs (their results and errors) older than this go.
+LOOPKEEP_IMPORT_KEEP_DAYS = int(
+    os.environ.get("LOOPKEEP_IMPORT_KEEP_DAYS", str(LOOPKEEP_PRUNE_KEEP_DAYS))
+)
 # /ready/: a worker of each of these queues must have sent a heartbeat within
 # READY_WORKER_HEARTBEAT_S, and no recompute request may be pending longer than
 # READY_MAX_PENDING_AGE_S (the sweep sends lost ones again after a minute).

@@ -378,12 +378,15 @@ def test_sweep_gives_up_after_the_bound(django_capture_on_commit_callbacks):
 
 def test_beat_schedule_names_registered_tasks(settings):
     import analysis.tasks  # noqa: F401  (registers the tasks)
+    import inventory.tasks  # noqa: F401
 
     names = {entry["task"] for entry in settings.CELERY_BEAT_SCHEDULE.values()}
     assert names == {
         "analysis.sweep_requests",
         "analysis.recompute_fleet",
         "analysis.prune_results",
+        "inventory.sweep_import_jobs",
+        "inventory.prune_import_jobs",
     }
     assert names <= set(app.tasks)
     sweep = next(e for e in settings.CELERY_BEAT_SCHEDULE.values() if "sweep" in e["task"])

@@ -20,6 +20,9 @@ from config.celery import app
         ("analysis.recompute_fleet", "recompute", None),
         ("analysis.prune_results", "default", None),
         ("inventory.tasks.import_site_file", "imports", None),
+        ("inventory.run_import_job", "imports", None),
+        ("inventory.sweep_import_jobs", "recompute", None),
+        ("inventory.prune_import_jobs", "default", None),
         ("celery.ping", "default", None),
     ],
 )
