@@ -29,6 +29,11 @@ urlpatterns = [
     ),
     path(f"{site}builder/", builder.builder_new, name="builder"),
     path(f"{site}procedures/<str:code>/", procedures.procedure_page, name="procedure"),
+    path(
+        f"{site}procedures/<str:code>/steps/<int:step>/drawing/",
+        procedures.procedure_step_drawing,
+        name="procedure-step-drawing",
+    ),
     path(f"{site}procedures/<str:code>/builder/", builder.builder_edit, name="builder-edit"),
     path(
         f"{site}procedures/<str:code>/worksheet.pdf",

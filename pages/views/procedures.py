@@ -1,18 +1,23 @@
-"""The procedure page: the verdict computed now, step by step, beside the drawing."""
+"""The procedure page: the verdict computed now, step by step, beside the drawing of the
+step shown (each step's drawing fetched when the walk reaches it)."""
 
 from __future__ import annotations
 
 from typing import Any
+from urllib.parse import urlencode
 
 from django.http import Http404, HttpRequest, HttpResponse
 from django.shortcuts import render
+from django.urls import reverse
+from django.utils.cache import patch_vary_headers
+from django.utils.html import format_html
 
 from analysis import actions, selectors
 from analysis.engine import ProcedureError
 from inventory import selectors as records
 from pages.access import viewer_required
 from pages.views import drawing
-from pages.views.common import get_site, site_input
+from pages.views.common import get_site, is_htmx, site_input
 
 
 def first_danger_finding(verdict: dict[str, Any]) -> dict[str, Any] | None:
@@ -46,21 +51,43 @@ def step_rows(verdict: dict[str, Any]) -> list[dict[str, Any]]:
     )
 
 
-def procedure_context(site: Any, proc: Any) -> dict[str, Any]:
-    doc, netlist = site_input(site)
+def _verdict(site: Any, proc: Any) -> tuple[dict[str, Any] | None, str | None]:
+    """The verdict of the stored procedure at the site's current revision (computed now, or
+    kept from an earlier request at the same revision: ``actions.procedure_check_at``, as the
+    API), or the error that stops the check."""
     try:
-        verdict = actions.procedure_check(doc, proc.code, netlist=netlist)
-        error = None
+        return actions.procedure_check_at(
+            site.record_version, proc.code, lambda: records.site_document(site)
+        ), None
     except ProcedureError as exc:
-        verdict, error = None, str(exc)
-    svgs = (
-        drawing.procedure_drawings(netlist, verdict, devices=list(proc.devices or ()))
-        if verdict is not None
-        else []
-    )
+        return None, str(exc)
+
+
+def procedure_context(site: Any, proc: Any) -> dict[str, Any]:
+    """The page's context. Of the step drawings (about 35 KB each) only the step the walk
+    starts at (the first danger, else the normal state) is drawn into the page; each other
+    step's drawing is fetched when the walk reaches it (``procedure_step_drawing``)."""
+    _doc, netlist = site_input(site)
+    verdict, error = _verdict(site, proc)
     steps = step_rows(verdict) if verdict else []
-    for step, svg in zip(steps, svgs, strict=False):
-        step["svg"] = svg
+    danger = first_danger_finding(verdict) if verdict else None
+    start = danger["step"] if danger else 0
+    devices = list(proc.devices or ())
+    first = (
+        drawing.procedure_step_drawing(netlist, verdict, step=start, devices=devices)
+        if verdict is not None
+        else None
+    )
+    if first is not None:
+        at = urlencode({"at": site.record_version})
+        for step in steps:
+            if step["step"] == start:
+                step["svg"] = first
+            else:
+                url = reverse(
+                    "pages:procedure-step-drawing", args=[site.code, proc.code, step["step"]]
+                )
+                step["drawing_url"] = f"{url}?{at}"
     row = selectors.procedure_verdict_rows(site_id=site.pk).get(proc.code)
     return {
         "site": site,
@@ -68,17 +95,63 @@ def procedure_context(site: Any, proc: Any) -> dict[str, Any]:
         "verdict": verdict,
         "error": error,
         "steps": steps,
-        "danger": first_danger_finding(verdict) if verdict else None,
-        "with_drawings": bool(svgs),
+        "danger": danger,
+        "with_drawings": first is not None,
         "stored": row,
     }
+
+
+def _procedure(site: Any, code: str) -> Any:
+    proc = records.procedures_queryset(site_id=site.pk).filter(code=code).first()
+    if proc is None:
+        raise Http404(f"no procedure {code!r} at {site.code}")
+    return proc
 
 
 @viewer_required
 def procedure_page(request: HttpRequest, site: str, code: str) -> HttpResponse:
     """A stored procedure checked now (every transition included), its steps to walk."""
     obj = get_site(site)
-    proc = records.procedures_queryset(site_id=obj.pk).filter(code=code).first()
-    if proc is None:
-        raise Http404(f"no procedure {code!r} at {site}")
-    return render(request, "pages/procedure.html", procedure_context(obj, proc))
+    return render(request, "pages/procedure.html", procedure_context(obj, _procedure(obj, code)))
+
+
+STALE_DRAWING = (
+    "The record of this site has changed since this page was loaded; reload the page to see "
+    "the verdict and the drawings of the record as it is now."
+)
+
+
+@viewer_required
+def procedure_step_drawing(request: HttpRequest, site: str, code: str, step: int) -> HttpResponse:
+    """The drawing of one step of the procedure page's verdict (an SVG; htmx puts it into the
+    page when the walk reaches the step). ``at`` is the record version the page was computed
+    at: a drawing of another record would not match the verdict beside it, so a changed record
+    answers with a note to reload instead (200 for htmx so it is shown, else 409)."""
+    obj = get_site(site)
+    proc = _procedure(obj, code)
+    htmx = is_htmx(request)
+    if request.GET.get("at") != obj.record_version:
+        if htmx:
+            response = HttpResponse(
+                format_html('<p class="banner stale" role="alert">{}</p>', STALE_DRAWING)
+            )
+        else:
+            response = HttpResponse(STALE_DRAWING, status=409, content_type="text/plain")
+        patch_vary_headers(response, ["HX-Request"])
+        return response
+    _doc, netlist = site_input(obj)
+    verdict, _error = _verdict(obj, proc)
+    svg = (
+        drawing.procedure_step_drawing(
+            netlist, verdict, step=step, devices=list(proc.devices or ())
+        )
+        if verdict is not None
+        else None
+    )
+    if svg is None:
+        raise Http404(f"no drawing of step {step} of {code} at {site}")
+    response = HttpResponse(svg, content_type="text/html" if htmx else "image/svg+xml")
+    # The drawing of a record version never changes: the browser may keep it.
+    response["Cache-Control"] = "private, max-age=3600"
+    patch_vary_headers(response, ["HX-Request"])
+    return response

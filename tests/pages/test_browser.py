@@ -1,9 +1,10 @@
 """The planner pages in a real browser (Playwright driving Debian's chromium at
 /usr/bin/chromium; `.ci/run` installs it, nothing is downloaded by Playwright): a planner
 logs in and clicks through home → site → CT → procedure (walks the steps with the keys and
-the slider) → builder (adds steps, sees the verdict change) → device plan → work sheet (the
-PDF's text is read back). Each page is saved as a screenshot that is checked for size and
-content. Marked ``browser``: CI runs these in its SQLite pass only (.ci/run)."""
+the slider, each step's drawing fetched as it is shown) → builder (adds steps, sees the
+verdict change) → device plan → work sheet (the PDF's text is read back). Each page is saved
+as a screenshot that is checked for size and content. Marked ``browser``: CI runs these in
+its SQLite pass only (.ci/run)."""
 
 from __future__ import annotations
 
@@ -156,12 +157,16 @@ def test_a_planner_clicks_through_the_pages(chromium, live_server, quillfen, sho
     page.locator("body").press("ArrowLeft")
     expect(walker).to_have_attribute("data-current-step", "2")
     expect(page.locator("tr#step-2")).to_have_class(re.compile("current"))
+    # only step 3 was drawn into the page; step 2's drawing is fetched (htmx) when shown
+    expect(page.locator("[data-step-detail='2'] svg")).to_be_visible()
+    expect(page.locator("[data-step-detail='2'] svg")).to_contain_text("TS-133")
     page.locator("body").press("Home")
     expect(walker).to_have_attribute("data-current-step", "0")
     expect(page.locator("[data-step-detail='0'] svg")).to_be_visible()
     page.locator("body").press("End")
     last = page.locator("[data-step-slider]").get_attribute("max")
     expect(walker).to_have_attribute("data-current-step", last)
+    expect(page.locator(f"[data-step-detail='{last}'] svg")).to_be_visible()
     page.locator("[data-step-slider]").fill("1")
     expect(walker).to_have_attribute("data-current-step", "1")
     page.get_by_role("button", name="next step").click()

@@ -7,6 +7,7 @@ from __future__ import annotations
 import json
 import re
 from html import unescape
+from urllib.parse import urlencode
 
 import pytest
 from django.db import connection
@@ -130,6 +131,48 @@ def test_procedure_page_shows_the_api_verdict_first_danger_at_the_top(demo, view
     assert html.count("data-step-row=") == len(api["steps"])
     assert html.count("data-step-drawing=") == len(api["steps"])
     assert "OPEN SECONDARY" in html  # drawn on the step that opens the CTs
+
+
+def test_the_procedure_page_draws_its_first_step_and_fetches_the_others(demo, viewer):
+    """Only the step the walk opens at (the first danger) is drawn into the page; each other
+    step's drawing comes from its own URL, the same bytes as drawing every step at once (one
+    layout for the whole walk) and the same record version as the verdict beside it."""
+    from analysis import actions
+    from pages.views.drawing import procedure_drawings
+
+    site = inv.Site.objects.get(code="QFN")
+    url = "/sites/QFN/procedures/P-R133-OUT-DRAFT/"
+    html = viewer.get(url).content.decode()
+    assert html.count("<svg") == 1
+    assert re.search(r'data-step-drawing="3">\s*<svg', html)  # the first danger, drawn
+    lazy = dict(re.findall(r'data-step-drawing="(\d+)" data-drawing-url="([^"]+)"', html))
+    doc, netlist = actions.site_netlist(site.record_version, lambda: None)
+    verdict = actions.procedure_check(doc, "P-R133-OUT-DRAFT", netlist=netlist)
+    every = procedure_drawings(netlist, verdict, devices=["R-133", "R-133N"])
+    assert sorted(map(int, lazy)) == [n for n in range(len(every)) if n != 3]
+    at = "?" + urlencode({"at": site.record_version})
+    for step, link in lazy.items():
+        assert unescape(link) == f"{url}steps/{step}/drawing/{at}"
+        fetched = viewer.get(unescape(link), HTTP_HX_REQUEST="true")
+        assert fetched.status_code == 200 and fetched["Content-Type"].startswith("text/html")
+        assert fetched.content.decode() == every[int(step)]
+    plain = viewer.get(f"{url}steps/0/drawing/{at}")  # the no-script link: an SVG document
+    assert plain["Content-Type"] == "image/svg+xml" and plain.content.decode() == every[0]
+    assert "HX-Request" in plain["Vary"]
+    assert viewer.get(f"{url}steps/{len(every)}/drawing/{at}").status_code == 404
+
+    # the record changed since the page was loaded: no drawing of another record
+    stale = viewer.get(f"{url}steps/0/drawing/?at=1:0:0", HTTP_HX_REQUEST="true")
+    assert stale.status_code == 200 and "<svg" not in stale.content.decode()
+    assert "reload the page" in stale.content.decode()
+    assert viewer.get(f"{url}steps/0/drawing/?at=1:0:0").status_code == 409
+
+
+def test_step_drawings_need_a_role(demo, no_role, client):
+    site = inv.Site.objects.get(code="QFN")
+    link = f"/sites/QFN/procedures/P-R133-OUT-DRAFT/steps/0/drawing/?at={site.record_version}"
+    assert client.get(link).status_code == 302  # to the login page
+    assert no_role.get(link).status_code == 403
 
 
 def test_a_safe_procedure_says_so_and_keeps_the_cautions(demo, viewer):

@@ -1,10 +1,33 @@
 // Walk the steps of a procedure or plan: a slider, buttons and the arrow keys (or j/k) move
-// the current step; the row, the step's details and its drawing follow. Without JavaScript
-// every step's details and drawing stay visible, one after another. The builder's verdict is
-// swapped in by htmx, so walkers are set up again after each swap.
+// the current step; the row, the step's details and its drawing follow. A drawing not in the
+// page (data-drawing-url: the procedure page draws only the step it opens at) is fetched with
+// htmx when its step is shown, and those of the steps either side with it, so the next key
+// press finds its drawing there. Without JavaScript every step's details stay visible, one
+// after another, each drawing not in the page behind a link. The builder's verdict is swapped
+// in by htmx, so walkers are set up again after each swap.
 (function () {
   "use strict";
   var active = null;
+  function fetchDrawing(root, n) {
+    var el = root.querySelector("[data-step-detail='" + n + "'] [data-drawing-url]");
+    if (!el || el.getAttribute("data-drawing-state")) return;
+    if (!window.htmx || document.readyState === "loading") {
+      // htmx loads deferred and starts on DOMContentLoaded: fetch once it has started
+      if (!el.getAttribute("data-drawing-wait")) {
+        el.setAttribute("data-drawing-wait", "1");
+        document.addEventListener("DOMContentLoaded", function () {
+          setTimeout(function () { fetchDrawing(root, n); }, 0);
+        });
+      }
+      return;
+    }
+    el.setAttribute("data-drawing-state", "loading");
+    function retry() { el.removeAttribute("data-drawing-state"); }  // next time it is shown
+    try {
+      window.htmx.ajax("GET", el.getAttribute("data-drawing-url"), {target: el, swap: "innerHTML"})
+        .then(function () { el.setAttribute("data-drawing-state", "loaded"); el.removeAttribute("aria-busy"); }, retry);
+    } catch (e) { retry(); }
+  }
   function setup(root) {
     if (root.getAttribute("data-walker-ready")) return;
     root.setAttribute("data-walker-ready", "1");
@@ -23,6 +46,9 @@
       root.querySelectorAll("[data-step-detail]").forEach(function (d) {
         d.hidden = d.getAttribute("data-step-detail") !== String(n);
       });
+      fetchDrawing(root, n);
+      if (n < max) fetchDrawing(root, n + 1);
+      if (n > 0) fetchDrawing(root, n - 1);
       var label = root.querySelector("[data-step-label]");
       if (label) label.textContent = label.getAttribute("data-template").replace("N", n).replace("M", max);
       root.setAttribute("data-current-step", String(n));
