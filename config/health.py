@@ -5,10 +5,14 @@ authentication, for load balancers, systemd/docker health checks and operators.
   outage does not make the process manager restart healthy web processes.
 - ``/ready/``: can this installation do its work now? The database (and the replica, when
   configured), the broker, a heartbeat from a worker of every required queue within
-  ``READY_WORKER_HEARTBEAT_S``, and the age of the oldest pending recompute request (outbox row)
-  within ``READY_MAX_PENDING_AGE_S``. The number of sites whose stored results are stale is
-  reported too, as information: right after an edit it is normal for a few seconds. Every check
-  has ``ok`` and its figures; the status is 200 when all pass, else 503.
+  ``READY_WORKER_HEARTBEAT_S``, a heartbeat from Celery beat within ``READY_BEAT_HEARTBEAT_S``
+  (beat sends the sweeps that re-send lost recomputes, so without it a lost message stays
+  lost), and the age of the oldest pending recompute request (outbox row) within
+  ``READY_MAX_PENDING_AGE_S``. The number of sites whose stored results are stale is reported
+  too, as information: right after an edit it is normal for a few seconds. Every check has
+  ``ok`` and its figures; the status is 200 when all pass, else 503. In the embedded mode (no
+  broker: jobs in the web process) no beat runs, so nothing sends the periodic sweeps: the
+  ``beat`` check passes as ``degraded`` and the body lists it under ``degraded`` (200).
 
 Why not django-health-check (4.8.0 checked: it supports Django 5.2): its JSON body is one
 string per check ("OK" or the error), while readiness here is mostly figures an operator reads
@@ -85,6 +89,20 @@ def _workers() -> dict[str, Any]:
     }
 
 
+def _beat() -> dict[str, Any]:
+    bound = float(settings.READY_BEAT_HEARTBEAT_S)
+    last = heartbeat.beat_last(settings.CELERY_BROKER_URL)
+    age = None if last is None else last["age_s"]
+    out: dict[str, Any] = {
+        "ok": age is not None and age <= bound,
+        "heartbeat_age_s": age,
+        "max_heartbeat_age_s": bound,
+    }
+    if last is None:
+        out["error"] = "no heartbeat from celery beat: the periodic sweeps are not being sent"
+    return out
+
+
 def _requests() -> dict[str, Any]:
     from analysis.selectors import pending_requests
 
@@ -115,13 +133,20 @@ def ready(request: HttpRequest) -> JsonResponse:
         skipped = {"ok": True, "skipped": "no broker: jobs run in the web process"}
         checks["broker"] = dict(skipped)
         checks["workers"] = dict(skipped)
+        checks["beat"] = {
+            "ok": True,
+            "degraded": True,
+            "skipped": "no broker: no beat runs, so the periodic sweeps, the nightly "
+            "recompute and the daily prunes do not run (edits are computed in-process)",
+        }
     else:
         checks["broker"] = _timed(_broker)
-        checks["workers"] = (
-            _timed(_workers)
-            if checks["broker"]["ok"]
-            else {"ok": False, "error": "broker unreachable"}
-        )
+        for name, check in (("workers", _workers), ("beat", _beat)):
+            checks[name] = (
+                _timed(check)
+                if checks["broker"]["ok"]
+                else {"ok": False, "error": "broker unreachable"}
+            )
     if checks["database"]["ok"]:
         checks["recompute_requests"] = _timed(_requests)
         checks["results"] = _timed(_results)
@@ -130,5 +155,6 @@ def ready(request: HttpRequest) -> JsonResponse:
         "status": "ready" if ok else "not ready",
         "time": timezone.now().isoformat(),
         "checks": checks,
+        "degraded": sorted(name for name, c in checks.items() if c.get("degraded")),
     }
     return JsonResponse(body, status=200 if ok else 503)

@@ -1,4 +1,4 @@
-"""Worker heartbeats in the broker's Redis, for ``/ready/``.
+"""Worker and beat heartbeats in the broker's Redis, for ``/ready/``.
 
 Every Celery worker sends itself a heartbeat every few seconds (Celery's ``heartbeat_sent``
 signal, on unless the worker runs ``--without-heartbeat``); ``config.celery`` writes it here as
@@ -6,6 +6,10 @@ one key per worker, ``loopkeep:worker:<hostname>`` (after ``CELERY_BROKER_KEY_PR
 holding the queues it consumes and the time, expiring after ``KEY_TTL_S``. A key is also
 written when the worker is ready and removed when it shuts down. Readers compare the time
 with their own bound (``READY_WORKER_HEARTBEAT_S``).
+
+Celery beat writes its own key, ``loopkeep:beat``, from its scheduler loop
+(``config.beat.HeartbeatScheduler``), so ``/ready/`` knows the periodic sweeps are being sent
+(``READY_BEAT_HEARTBEAT_S``).
 """
 
 from __future__ import annotations
@@ -18,14 +22,25 @@ from typing import Any
 import redis
 
 PREFIX = "loopkeep:worker:"
+BEAT_KEY = "loopkeep:beat"
 
 
-def key_prefix() -> str:
-    """The keys' prefix: the broker's key prefix (one Redis shared by installations) first."""
+def _installation() -> str:
+    """The broker's key prefix (one Redis shared by installations), or ""."""
     from django.conf import settings
 
     options = getattr(settings, "CELERY_BROKER_TRANSPORT_OPTIONS", {}) or {}
-    return str(options.get("global_keyprefix", "")) + PREFIX
+    return str(options.get("global_keyprefix", ""))
+
+
+def key_prefix() -> str:
+    """The worker keys' prefix: the broker's key prefix first."""
+    return _installation() + PREFIX
+
+
+def beat_key() -> str:
+    """The beat's key: the broker's key prefix first."""
+    return _installation() + BEAT_KEY
 
 
 KEY_TTL_S = 300
@@ -68,3 +83,19 @@ def workers(url: str) -> list[dict[str, Any]]:
         entry["age_s"] = round(max(0.0, now - float(entry["at"])), 1)
         out.append(entry)
     return out
+
+
+def beat_alive(url: str, *, hostname: str) -> None:
+    """Celery beat is alive (written from its scheduler loop)."""
+    value = json.dumps({"hostname": hostname, "at": time.time(), "pid": os.getpid()})
+    client(url).set(beat_key(), value, ex=KEY_TTL_S)
+
+
+def beat_last(url: str) -> dict[str, Any] | None:
+    """The beat's last heartbeat with ``age_s``, or None when none in the last ``KEY_TTL_S``."""
+    raw = client(url).get(beat_key())
+    if raw is None:
+        return None
+    entry: dict[str, Any] = json.loads(raw)  # type: ignore[arg-type]  # bytes from redis
+    entry["age_s"] = round(max(0.0, time.time() - float(entry["at"])), 1)
+    return entry

@@ -301,6 +301,10 @@ CELERY_BEAT_SCHEDULE = {
         "schedule": crontab(hour=3, minute=50),
     },
 }
+# Beat writes a heartbeat for /ready/ from its own loop (config.beat), which passes at least
+# this often (seconds) whatever the schedule.
+CELERY_BEAT_SCHEDULER = "config.beat:HeartbeatScheduler"
+CELERY_BEAT_MAX_LOOP_INTERVAL = 15
 # prune_results: finished runs (and their chunks) and done outbox rows older than this go.
 LOOPKEEP_PRUNE_KEEP_DAYS = int(os.environ.get("LOOPKEEP_PRUNE_KEEP_DAYS", "30"))
 # prune_import_jobs: finished import jobs (their results and errors) older than this go.
@@ -313,6 +317,8 @@ LOOPKEEP_IMPORT_KEEP_DAYS = int(
 READY_QUEUES = env_list("READY_QUEUES", "recompute,fleet,imports")
 READY_WORKER_HEARTBEAT_S = float(os.environ.get("READY_WORKER_HEARTBEAT_S", "30"))
 READY_MAX_PENDING_AGE_S = float(os.environ.get("READY_MAX_PENDING_AGE_S", "600"))
+# /ready/: beat must have written its heartbeat within this (it writes every 5-15 s).
+READY_BEAT_HEARTBEAT_S = float(os.environ.get("READY_BEAT_HEARTBEAT_S", "60"))
 # One BLAS/OpenMP thread per process: the engine solves many small systems, and with a pool of
 # worker processes per core, library threads only fight over the cores (measured: 2 workers on
 # 2 cores computed 1.7x slower with the default threads). Must be set before numpy loads.

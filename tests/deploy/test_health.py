@@ -39,6 +39,10 @@ def test_ready_in_process_mode_checks_the_database_and_the_requests(settings):
     assert body["status"] == "ready", body
     assert checks["database"]["ok"] is True
     assert checks["broker"]["skipped"] and checks["workers"]["skipped"]
+    # no beat in this mode: reported, degraded, not a failure
+    assert checks["beat"]["ok"] is True and checks["beat"]["degraded"] is True
+    assert "periodic sweeps" in checks["beat"]["skipped"]
+    assert body["degraded"] == ["beat"]
     assert checks["recompute_requests"]["pending"] == 1  # the import's, not sent (deferred)
     assert checks["results"]["stale_sites"] == 1  # never computed
     assert "replica" not in checks
@@ -73,15 +77,18 @@ def broker_mode(settings):
     r = heartbeat.client(settings.CELERY_BROKER_URL)
     for key in r.scan_iter(match=heartbeat.key_prefix() + "*"):
         r.delete(key)
+    r.delete(heartbeat.beat_key())
     yield settings.CELERY_BROKER_URL
     for key in r.scan_iter(match=heartbeat.key_prefix() + "*"):
         r.delete(key)
+    r.delete(heartbeat.beat_key())
 
 
 @pytest.mark.broker
 @pytest.mark.django_db
 def test_ready_needs_a_recent_worker_heartbeat_on_every_queue(broker_mode):
     url = broker_mode
+    heartbeat.beat_alive(url, hostname="beat-host")  # beat is up (its own test below)
     response = Client().get("/ready/")
     assert response.status_code == 503
     workers = response.json()["checks"]["workers"]
@@ -106,6 +113,56 @@ def test_ready_needs_a_recent_worker_heartbeat_on_every_queue(broker_mode):
     }
 
 
+@pytest.mark.broker
+@pytest.mark.django_db
+def test_ready_needs_a_recent_heartbeat_from_beat(broker_mode, tmp_path):
+    """Beat's scheduler loop writes the heartbeat (config.beat); /ready/ fails without a recent
+    one, with the figures. Bounds: this project's own (deploy/README.md)."""
+    from celery import Celery
+
+    from config.beat import HeartbeatScheduler
+
+    url = broker_mode
+    for queue in ("recompute", "imports"):
+        heartbeat.beat(url, hostname=f"{queue}@a", queues=[queue])
+    response = Client().get("/ready/")
+    assert response.status_code == 503
+    beat = response.json()["checks"]["beat"]
+    assert beat["ok"] is False and beat["heartbeat_age_s"] is None
+    assert "no heartbeat from celery beat" in beat["error"]
+
+    # A scheduler pass as `celery beat` makes it (an app with nothing scheduled: nothing sent).
+    quiet = Celery("beat-test", broker=url, set_as_current=False)
+    quiet.conf.beat_schedule = {}
+    scheduler = HeartbeatScheduler(app=quiet, schedule_filename=str(tmp_path / "schedule"))
+    try:
+        assert scheduler.tick() > 0
+    finally:
+        scheduler.close()
+    response = Client().get("/ready/")
+    assert response.status_code == 200, response.json()
+    beat = response.json()["checks"]["beat"]
+    assert beat["ok"] is True and beat["heartbeat_age_s"] < 5
+    assert response.json()["degraded"] == []
+
+    stale = {"hostname": "beat-host", "at": time.time() - 120, "pid": 1}
+    heartbeat.client(url).set(heartbeat.beat_key(), json.dumps(stale))
+    response = Client().get("/ready/")
+    assert response.status_code == 503
+    beat = response.json()["checks"]["beat"]
+    assert beat["ok"] is False and beat["heartbeat_age_s"] == pytest.approx(120, abs=5)
+
+
+def test_celery_beat_runs_the_heartbeat_scheduler():
+    from celery.utils.imports import symbol_by_name
+
+    from config.beat import HeartbeatScheduler
+    from config.celery import app
+
+    assert symbol_by_name(app.conf.beat_scheduler) is HeartbeatScheduler
+    assert app.conf.beat_max_loop_interval <= 15  # a pass, and so a heartbeat, every 15 s
+
+
 @pytest.mark.django_db
 def test_ready_reports_an_unreachable_broker(settings):
     settings.CELERY_TASK_ALWAYS_EAGER = False
@@ -115,4 +172,5 @@ def test_ready_reports_an_unreachable_broker(settings):
     checks = response.json()["checks"]
     assert checks["broker"]["ok"] is False and "ConnectionError" in checks["broker"]["error"]
     assert checks["workers"] == {"ok": False, "error": "broker unreachable"}
+    assert checks["beat"] == {"ok": False, "error": "broker unreachable"}
     assert checks["database"]["ok"] is True
