@@ -44,6 +44,18 @@ def _require_services(request: pytest.FixtureRequest) -> None:
             _missing(f"needs a reachable Celery broker (CELERY_BROKER_URL={url!r})")
 
 
+@pytest.fixture
+def eager():
+    """Jobs in-process (the embedded default), even when the suite runs with a broker
+    configured. Directories whose every test needs it use it from an autouse fixture."""
+    from config.celery import app
+
+    before = app.conf.task_always_eager
+    app.conf.task_always_eager = True
+    yield
+    app.conf.task_always_eager = before
+
+
 @pytest.fixture(autouse=True)
 def _fresh_answer_caches() -> None:
     """Answers are kept by (site id, revision), which a rolled-back test database hands out

@@ -31,12 +31,8 @@ pytestmark = pytest.mark.django_db
 
 
 @pytest.fixture(autouse=True)
-def eager():
-    """The embedded default, even when the suite runs with a broker configured."""
-    before = app.conf.task_always_eager
-    app.conf.task_always_eager = True
-    yield
-    app.conf.task_always_eager = before
+def _jobs_in_process(eager) -> None:
+    """Every test here runs its jobs in-process (tests/conftest.py: ``eager``)."""
 
 
 def _import(doc: dict, capture) -> inv.Site:

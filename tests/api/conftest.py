@@ -12,7 +12,6 @@ from django.contrib.auth.models import Group
 from rest_framework.authtoken.models import Token
 from rest_framework.test import APIClient
 
-from config.celery import app
 from inventory.services import site_import
 
 DEMO = Path(__file__).resolve().parents[2] / "fixtures" / "demo"
@@ -23,12 +22,8 @@ def demo_doc(name: str = "quillfen") -> dict:
 
 
 @pytest.fixture(autouse=True)
-def eager():
-    """Jobs in-process, even when the suite runs with a broker configured."""
-    before = app.conf.task_always_eager
-    app.conf.task_always_eager = True
-    yield
-    app.conf.task_always_eager = before
+def _jobs_in_process(eager) -> None:
+    """Every test here runs its jobs in-process (tests/conftest.py: ``eager``)."""
 
 
 @pytest.fixture

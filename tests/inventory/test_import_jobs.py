@@ -138,15 +138,6 @@ def test_beat_runs_the_sweep_and_the_prune(settings):
     assert {tasks.sweep_import_jobs.name, tasks.prune_import_jobs.name} <= set(app.tasks)
 
 
-@pytest.fixture
-def eager():
-    """The import's recompute in-process, even when the suite runs with a broker configured."""
-    before = app.conf.task_always_eager
-    app.conf.task_always_eager = True
-    yield
-    app.conf.task_always_eager = before
-
-
 @pytest.mark.postgres
 @pytest.mark.django_db(transaction=True)
 def test_heartbeat_beats_while_the_job_runs(settings, monkeypatch, eager):

@@ -12,7 +12,6 @@ from django.contrib.auth.models import Group
 from django.test import Client
 
 from analysis import actions
-from config.celery import app
 from inventory.services import site_import
 
 DEMO = Path(__file__).resolve().parents[2] / "fixtures" / "demo"
@@ -33,12 +32,8 @@ def fresh_netlists():
 
 
 @pytest.fixture(autouse=True)
-def eager():
-    """Jobs in-process, even when the suite runs with a broker configured."""
-    before = app.conf.task_always_eager
-    app.conf.task_always_eager = True
-    yield
-    app.conf.task_always_eager = before
+def _jobs_in_process(eager) -> None:
+    """Every test here runs its jobs in-process (tests/conftest.py: ``eager``)."""
 
 
 def load(capture, *names: str) -> None:

@@ -123,17 +123,6 @@ def test_a_stored_procedure_the_engine_cannot_check_is_a_danger_finding():
     )
 
 
-@pytest.fixture
-def eager():
-    """Jobs in-process (the embedded default), even when the suite runs with a broker."""
-    from config.celery import app
-
-    before = app.conf.task_always_eager
-    app.conf.task_always_eager = True
-    yield
-    app.conf.task_always_eager = before
-
-
 def test_severity_means_that_or_worse(db, eager, django_capture_on_commit_callbacks):
     with django_capture_on_commit_callbacks(execute=True):
         site_import(doc=load_site_file(QUILLFEN))
