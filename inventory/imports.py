@@ -295,12 +295,53 @@ def _no_heartbeat_limit_s() -> float:
     return float(getattr(settings, "CELERY_TASK_TIME_LIMIT", 30 * 60)) + import_stall_s()
 
 
+def import_lost_s() -> float:
+    """Seconds a job may stay queued, since it was last sent, before its message counts as lost
+    and it is sent again (``LOOPKEEP_IMPORT_LOST_S``, that of ``LOOPKEEP_RUN_LOST_S`` unless
+    set). A long queue looks the same as a lost message: sending again is harmless, since only
+    the delivery that claims the job runs it (``import_job_run``)."""
+    return float(getattr(settings, "LOOPKEEP_IMPORT_LOST_S", 600.0))
+
+
+def import_jobs_resend(*, lost_s: float | None = None, now: dt.datetime | None = None) -> int:
+    """Send again each job still queued ``lost_s`` after it was last sent (its message was lost:
+    the broker restarted without it, or the process died between the commit and the send).
+    ``heartbeat_at`` of a queued job is when it was last sent again: one conditional UPDATE
+    stamps it, so two sweeps at once send a job once, and a job claimed meanwhile is left
+    alone. The messages go when the stamp commits. Returns how many jobs were sent."""
+    from inventory.tasks import run_import_job
+
+    now = now or timezone.now()
+    bound = import_lost_s() if lost_s is None else lost_s
+    before = now - dt.timedelta(seconds=bound)
+    lost = Q(status=ImportJob.Status.QUEUED, cancel_requested=False) & (
+        Q(heartbeat_at__lte=before) | Q(heartbeat_at__isnull=True, created_at__lte=before)
+    )
+    with transaction.atomic():
+        ids = list(
+            ImportJob.objects.select_for_update(skip_locked=True)
+            .filter(lost)
+            .values_list("pk", flat=True)
+        )
+        if not ids:
+            return 0
+        ImportJob.objects.filter(pk__in=ids).update(heartbeat_at=now)
+
+        def send_again() -> None:
+            for job_id in ids:
+                run_import_job.delay(job_id)
+
+        transaction.on_commit(send_again)
+    log.warning("import jobs %s: queued for over %g s, sent again", ids, bound)
+    return len(ids)
+
+
 def import_jobs_sweep(*, stall_s: float | None = None, now: dt.datetime | None = None) -> int:
     """Mark failed each running job whose worker stopped: no heartbeat for ``stall_s``
     (``LOOPKEEP_IMPORT_STALL_S``), or none at all past the task's hard time limit. One
     conditional UPDATE: a job that beats or ends meanwhile is left alone. Its import had not
     committed (a job's end commits with its writes), so nothing was written. Returns how many
-    jobs were marked."""
+    jobs were marked. (Queued jobs whose message was lost: ``import_jobs_resend``.)"""
     now = now or timezone.now()
     bound = import_stall_s() if stall_s is None else stall_s
     silent = now - dt.timedelta(seconds=bound)

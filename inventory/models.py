@@ -829,7 +829,10 @@ class ImportJob(models.Model):
         "heartbeat at",
         null=True,
         blank=True,
-        help_text="stamped every few seconds while a worker runs the job (not on SQLite)",
+        help_text=(
+            "stamped every few seconds while a worker runs the job (not on SQLite); while it is "
+            "queued, when it was last sent again"
+        ),
     )
     finished_at = models.DateTimeField("finished at", null=True, blank=True)
 

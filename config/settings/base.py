@@ -277,6 +277,9 @@ LOOPKEEP_SWEEP_EVERY_S = float(os.environ.get("LOOPKEEP_SWEEP_EVERY_S", "10"))
 # silent for LOOPKEEP_IMPORT_STALL_S (its worker died; the import had not committed).
 LOOPKEEP_IMPORT_STALL_S = float(os.environ.get("LOOPKEEP_IMPORT_STALL_S", "60"))
 LOOPKEEP_IMPORT_SWEEP_EVERY_S = float(os.environ.get("LOOPKEEP_IMPORT_SWEEP_EVERY_S", "30"))
+# The same sweep sends again a job still queued LOOPKEEP_IMPORT_LOST_S after it was last sent (its
+# message was lost; a long queue looks the same, and a second message is harmless).
+LOOPKEEP_IMPORT_LOST_S = float(os.environ.get("LOOPKEEP_IMPORT_LOST_S", str(LOOPKEEP_RUN_LOST_S)))
 CELERY_BEAT_SCHEDULE = {
     "send-pending-recompute-requests": {
         "task": "analysis.sweep_requests",

@@ -1,10 +1,14 @@
-"""Import jobs whose worker died, and old jobs (inventory.imports): the sweep marks failed a
-running job silent past its bound and leaves a live one alone; a job's end commits with its
-import, so a job left running wrote nothing; the prune deletes finished jobs past the kept days
-and keeps queued and running ones. The clock is moved by editing the stamps.
+"""Import jobs whose worker died, whose message was lost, and old jobs (inventory.imports): the
+sweep marks failed a running job silent past its bound and leaves a live one alone; a job still
+queued past its bound is sent again, once per bound, and runs once however many messages
+arrive; a job's end commits with its import, so a job left running wrote nothing; the prune
+deletes finished jobs past the kept days and keeps queued and running ones. The clock is moved
+by editing the stamps.
 
 Bounds and retention are this project's own (deploy/README.md, "Housekeeping"); marking a job
-whose worker stopped as failed, rather than leaving it running, is common practice, no source.
+whose worker stopped as failed, rather than leaving it running, and sending again a message taken
+for lost to a task that claims its work first (at-least-once delivery), are common practice, no
+source.
 The heartbeat thread needs a second database connection: PostgreSQL only.
 """
 
@@ -24,6 +28,7 @@ from inventory.imports import (
     import_job_create,
     import_job_run,
     import_jobs_prune,
+    import_jobs_resend,
     import_jobs_sweep,
 )
 from inventory.models import ImportJob, Site
@@ -107,6 +112,43 @@ def test_a_finished_job_ends_with_its_import(django_capture_on_commit_callbacks)
     assert (job.status, job.percent, bytes(job.data)) == (DONE, 100, b"")
     assert job.result["created"]["sites"] == 1 and Site.objects.filter(code="JOB").exists()
     assert job.finished_at is not None
+
+
+@pytest.mark.django_db
+def test_a_job_queued_past_the_bound_is_sent_again_once_and_runs_once(
+    settings, monkeypatch, django_capture_on_commit_callbacks
+):
+    settings.LOOPKEEP_IMPORT_LOST_S = 600
+    lost = _site_job(django_capture_on_commit_callbacks, code="LOST")  # its message never went
+    fresh = _job(ImportJob.Status.QUEUED)
+    resent_lately = _job(ImportJob.Status.QUEUED, heartbeat_at=_ago(60))
+    cancelled = _job(ImportJob.Status.QUEUED, cancel_requested=True)
+    running = _job(RUNNING, started_at=_ago(900), heartbeat_at=_ago(5))
+    ImportJob.objects.filter(pk__in=[lost.pk, fresh.pk, resent_lately.pk, cancelled.pk]).update(
+        created_at=_ago(900)
+    )
+    ImportJob.objects.filter(pk=fresh.pk).update(created_at=_ago(30))
+    sent: list[int] = []
+    monkeypatch.setattr("inventory.tasks.run_import_job.delay", sent.append)
+
+    with django_capture_on_commit_callbacks(execute=True):
+        assert import_jobs_resend() == 1
+    assert sent == [lost.pk]
+    lost.refresh_from_db()
+    assert lost.status == ImportJob.Status.QUEUED and lost.heartbeat_at > _ago(5)
+    with django_capture_on_commit_callbacks(execute=True):
+        assert import_jobs_resend() == 0  # stamped: not again before the bound
+    assert sent == [lost.pk]
+    assert ImportJob.objects.get(pk=running.pk).status == RUNNING
+
+    # The resent message and the original one (arriving late) both reach a worker: one import.
+    import_job_run(job_id=lost.pk)
+    import_job_run(job_id=lost.pk)
+    lost.refresh_from_db()
+    assert lost.status == DONE and Site.objects.filter(code="LOST").count() == 1
+    with django_capture_on_commit_callbacks(execute=True):
+        assert import_jobs_resend(now=timezone.now() + dt.timedelta(hours=1)) == 2
+    assert sorted(sent[1:]) == sorted([fresh.pk, resent_lately.pk])  # never the done one
 
 
 @pytest.mark.django_db
