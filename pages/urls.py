@@ -23,6 +23,11 @@ urlpatterns = [
     path(f"{site}devices/<str:code>/", devices.device_page, name="device"),
     path(f"{site}devices/<str:code>/save-plan/", devices.device_save_plan, name="device-save"),
     path(
+        f"{site}devices/<str:code>/plan/steps/<int:step>/drawing/",
+        devices.device_plan_step_drawing,
+        name="device-plan-step-drawing",
+    ),
+    path(
         f"{site}devices/<str:code>/worksheet.pdf",
         worksheets.device_worksheet,
         name="device-worksheet",

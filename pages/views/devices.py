@@ -71,13 +71,23 @@ def plan_operations(plan: dict[str, Any]) -> list[dict[str, Any]]:
 
 
 def _context(site: inv.Site, code: str, **extra: Any) -> dict[str, Any]:
+    """The page's context. Of the plan's step drawings only the step the walk opens at is
+    drawn into the page; each other step's drawing is fetched when the walk reaches it
+    (``device_plan_step_drawing``)."""
     device = _device(site, code)
     doc, netlist = site_input(site)
     plan = actions.isolation_plan(doc, code, netlist=netlist)
     steps = plan_steps(plan) if plan["possible"] else []
-    svgs = drawing.procedure_drawings(netlist, plan["verdict"], devices=[code]) if steps else []
-    for step, svg in zip(steps, svgs, strict=False):
-        step["svg"] = svg
+    danger = first_danger_finding(plan["verdict"]) if plan.get("verdict") else None
+    drawn = drawing.walk_drawings(
+        steps,
+        netlist,
+        plan.get("verdict"),
+        start=danger["step"] if danger else 0,
+        devices=[code],
+        url_of=lambda n: reverse("pages:device-plan-step-drawing", args=[site.code, code, n]),
+        record_version=site.record_version,
+    )
     return {
         "site": site,
         "device": device,
@@ -85,13 +95,13 @@ def _context(site: inv.Site, code: str, **extra: Any) -> dict[str, Any]:
         "steps": steps,
         "n_isolate": len(plan["isolate"]),
         "n_restore": len(plan["restore"]),
-        "with_drawings": bool(svgs),
-        "danger": first_danger_finding(plan["verdict"]) if plan.get("verdict") else None,
+        "with_drawings": drawn,
+        "danger": danger,
         "feeding": sorted(
             {m.code for m in selectors.cts_feeding_device(site_id=site.pk, device=code)}
         ),
         "findings": selectors.findings_queryset(site=site.code).filter(device=code),
-        "svg": None if svgs else drawing.devices_drawing(netlist, [code]),
+        "svg": None if drawn else drawing.devices_drawing(netlist, [code]),
         "save_code": f"P-{code}-PLAN",
         "save_title": f"Isolate {code} (from its plan)",
         **extra,
@@ -101,6 +111,30 @@ def _context(site: inv.Site, code: str, **extra: Any) -> dict[str, Any]:
 @viewer_required
 def device_page(request: HttpRequest, site: str, code: str) -> HttpResponse:
     return render(request, "pages/device.html", _context(get_site(site), code))
+
+
+@viewer_required
+def device_plan_step_drawing(request: HttpRequest, site: str, code: str, step: int) -> HttpResponse:
+    """The drawing of one step of the device page's plan (planned again at the same record
+    version: the same plan and the same bytes as drawing every step at once), fetched when the
+    walk reaches it (``drawing.step_drawing_response``: a changed record answers with a note
+    to reload)."""
+    obj = get_site(site)
+    _device(obj, code)
+
+    def draw() -> str | None:
+        doc, netlist = site_input(obj)
+        plan = actions.isolation_plan(doc, code, netlist=netlist)
+        if not plan["possible"]:
+            return None
+        return drawing.procedure_step_drawing(netlist, plan["verdict"], step=step, devices=[code])
+
+    return drawing.step_drawing_response(
+        request,
+        record_version=obj.record_version,
+        draw=draw,
+        what=f"step {step} of the plan of {code} at {site}",
+    )
 
 
 @editor_required

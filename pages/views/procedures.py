@@ -4,20 +4,17 @@ step shown (each step's drawing fetched when the walk reaches it)."""
 from __future__ import annotations
 
 from typing import Any
-from urllib.parse import urlencode
 
 from django.http import Http404, HttpRequest, HttpResponse
 from django.shortcuts import render
 from django.urls import reverse
-from django.utils.cache import patch_vary_headers
-from django.utils.html import format_html
 
 from analysis import actions, selectors
 from analysis.engine import ProcedureError
 from inventory import selectors as records
 from pages.access import viewer_required
 from pages.views import drawing
-from pages.views.common import get_site, is_htmx, site_input
+from pages.views.common import get_site, site_input
 
 
 def first_danger_finding(verdict: dict[str, Any]) -> dict[str, Any] | None:
@@ -71,23 +68,15 @@ def procedure_context(site: Any, proc: Any) -> dict[str, Any]:
     verdict, error = _verdict(site, proc)
     steps = step_rows(verdict) if verdict else []
     danger = first_danger_finding(verdict) if verdict else None
-    start = danger["step"] if danger else 0
-    devices = list(proc.devices or ())
-    first = (
-        drawing.procedure_step_drawing(netlist, verdict, step=start, devices=devices)
-        if verdict is not None
-        else None
+    drawn = drawing.walk_drawings(
+        steps,
+        netlist,
+        verdict,
+        start=danger["step"] if danger else 0,
+        devices=list(proc.devices or ()),
+        url_of=lambda n: reverse("pages:procedure-step-drawing", args=[site.code, proc.code, n]),
+        record_version=site.record_version,
     )
-    if first is not None:
-        at = urlencode({"at": site.record_version})
-        for step in steps:
-            if step["step"] == start:
-                step["svg"] = first
-            else:
-                url = reverse(
-                    "pages:procedure-step-drawing", args=[site.code, proc.code, step["step"]]
-                )
-                step["drawing_url"] = f"{url}?{at}"
     row = selectors.procedure_verdict_rows(site_id=site.pk).get(proc.code)
     return {
         "site": site,
@@ -96,7 +85,7 @@ def procedure_context(site: Any, proc: Any) -> dict[str, Any]:
         "error": error,
         "steps": steps,
         "danger": danger,
-        "with_drawings": first is not None,
+        "with_drawings": drawn,
         "stored": row,
     }
 
@@ -115,43 +104,25 @@ def procedure_page(request: HttpRequest, site: str, code: str) -> HttpResponse:
     return render(request, "pages/procedure.html", procedure_context(obj, _procedure(obj, code)))
 
 
-STALE_DRAWING = (
-    "The record of this site has changed since this page was loaded; reload the page to see "
-    "the verdict and the drawings of the record as it is now."
-)
-
-
 @viewer_required
 def procedure_step_drawing(request: HttpRequest, site: str, code: str, step: int) -> HttpResponse:
-    """The drawing of one step of the procedure page's verdict (an SVG; htmx puts it into the
-    page when the walk reaches the step). ``at`` is the record version the page was computed
-    at: a drawing of another record would not match the verdict beside it, so a changed record
-    answers with a note to reload instead (200 for htmx so it is shown, else 409)."""
+    """The drawing of one step of the procedure page's verdict, fetched when the walk reaches
+    it (``drawing.step_drawing_response``: a changed record answers with a note to reload)."""
     obj = get_site(site)
     proc = _procedure(obj, code)
-    htmx = is_htmx(request)
-    if request.GET.get("at") != obj.record_version:
-        if htmx:
-            response = HttpResponse(
-                format_html('<p class="banner stale" role="alert">{}</p>', STALE_DRAWING)
-            )
-        else:
-            response = HttpResponse(STALE_DRAWING, status=409, content_type="text/plain")
-        patch_vary_headers(response, ["HX-Request"])
-        return response
-    _doc, netlist = site_input(obj)
-    verdict, _error = _verdict(obj, proc)
-    svg = (
-        drawing.procedure_step_drawing(
+
+    def draw() -> str | None:
+        _doc, netlist = site_input(obj)
+        verdict, _error = _verdict(obj, proc)
+        if verdict is None:
+            return None
+        return drawing.procedure_step_drawing(
             netlist, verdict, step=step, devices=list(proc.devices or ())
         )
-        if verdict is not None
-        else None
+
+    return drawing.step_drawing_response(
+        request,
+        record_version=obj.record_version,
+        draw=draw,
+        what=f"step {step} of {code} at {site}",
     )
-    if svg is None:
-        raise Http404(f"no drawing of step {step} of {code} at {site}")
-    response = HttpResponse(svg, content_type="text/html" if htmx else "image/svg+xml")
-    # The drawing of a record version never changes: the browser may keep it.
-    response["Cache-Control"] = "private, max-age=3600"
-    patch_vary_headers(response, ["HX-Request"])
-    return response

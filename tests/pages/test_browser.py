@@ -215,6 +215,9 @@ def test_a_planner_clicks_through_the_pages(chromium, live_server, quillfen, sho
     expect(page.locator("main")).to_contain_text("PLAN FOUND")
     expect(page.locator("tr#step-1")).to_contain_text("before any CT circuit is touched")
     expect(page.locator("#collateral + table")).to_contain_text("XD-132")
+    # the plan's step 1 drawing is fetched (htmx) when the walk reaches it
+    page.locator("body").press("ArrowRight")
+    expect(page.locator("[data-step-detail='1'] svg")).to_be_visible()
     shot("07-device-plan")
 
     # work sheet: the PDF behind the link, read back

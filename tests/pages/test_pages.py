@@ -138,7 +138,7 @@ def test_the_procedure_page_draws_its_first_step_and_fetches_the_others(demo, vi
     step's drawing comes from its own URL, the same bytes as drawing every step at once (one
     layout for the whole walk) and the same record version as the verdict beside it."""
     from analysis import actions
-    from pages.views.drawing import procedure_drawings
+    from analysis.drawing import procedure_svgs
 
     site = inv.Site.objects.get(code="QFN")
     url = "/sites/QFN/procedures/P-R133-OUT-DRAFT/"
@@ -148,7 +148,9 @@ def test_the_procedure_page_draws_its_first_step_and_fetches_the_others(demo, vi
     lazy = dict(re.findall(r'data-step-drawing="(\d+)" data-drawing-url="([^"]+)"', html))
     doc, netlist = actions.site_netlist(site.record_version, lambda: None)
     verdict = actions.procedure_check(doc, "P-R133-OUT-DRAFT", netlist=netlist)
-    every = procedure_drawings(netlist, verdict, devices=["R-133", "R-133N"])
+    every = procedure_svgs(
+        netlist, verdict, devices=("R-133", "R-133N"), highlight=("R-133", "R-133N")
+    )
     assert sorted(map(int, lazy)) == [n for n in range(len(every)) if n != 3]
     at = "?" + urlencode({"at": site.record_version})
     for step, link in lazy.items():
@@ -170,9 +172,12 @@ def test_the_procedure_page_draws_its_first_step_and_fetches_the_others(demo, vi
 
 def test_step_drawings_need_a_role(demo, no_role, client):
     site = inv.Site.objects.get(code="QFN")
-    link = f"/sites/QFN/procedures/P-R133-OUT-DRAFT/steps/0/drawing/?at={site.record_version}"
-    assert client.get(link).status_code == 302  # to the login page
-    assert no_role.get(link).status_code == 403
+    for link in (
+        f"/sites/QFN/procedures/P-R133-OUT-DRAFT/steps/0/drawing/?at={site.record_version}",
+        f"/sites/QFN/devices/R-132/plan/steps/1/drawing/?at={site.record_version}",
+    ):
+        assert client.get(link).status_code == 302  # to the login page
+        assert no_role.get(link).status_code == 403
 
 
 def test_a_safe_procedure_says_so_and_keeps_the_cautions(demo, viewer):
@@ -290,6 +295,39 @@ def test_device_page_shows_the_plan_with_why_readings_and_collateral(demo, viewe
     assert "R-132:IA1–R-132:IA2 1.58 A" in page
     assert "SCADA amps phase B" in page  # XD-132 is collateral (fixtures/demo/README.md)
     assert_cautions(page)
+
+
+def test_the_device_page_draws_the_plan_s_first_step_and_fetches_the_others(demo, viewer):
+    """As on the procedure page: only the step the walk opens at (the normal state of a safe
+    plan) is drawn into the page; each other step's drawing comes from its own URL, planned
+    again at the same record version, the same bytes as drawing the whole plan at once."""
+    from analysis import actions
+    from analysis.drawing import procedure_svgs
+
+    site = inv.Site.objects.get(code="QFN")
+    html = viewer.get("/sites/QFN/devices/R-132/").content.decode()
+    assert html.count("<svg") == 1
+    assert re.search(r'data-step-drawing="0">\s*<svg', html)
+    lazy = dict(re.findall(r'data-step-drawing="(\d+)" data-drawing-url="([^"]+)"', html))
+    doc, netlist = actions.site_netlist(site.record_version, lambda: None)
+    plan = actions.isolation_plan(doc, "R-132", netlist=netlist)
+    every = procedure_svgs(netlist, plan["verdict"], devices=("R-132",), highlight=("R-132",))
+    n_steps = 1 + len(plan["isolate"]) + len(plan["restore"])
+    assert len(every) == n_steps and sorted(map(int, lazy)) == list(range(1, n_steps))
+    url = "/sites/QFN/devices/R-132/plan/steps/"
+    at = "?" + urlencode({"at": site.record_version})
+    for step, link in lazy.items():
+        assert unescape(link) == f"{url}{step}/drawing/{at}"
+        fetched = viewer.get(unescape(link), HTTP_HX_REQUEST="true")
+        assert fetched.status_code == 200 and fetched.content.decode() == every[int(step)]
+    plain = viewer.get(f"{url}0/drawing/{at}")
+    assert plain["Content-Type"] == "image/svg+xml" and plain.content.decode() == every[0]
+    assert viewer.get(f"{url}{n_steps}/drawing/{at}").status_code == 404
+    stale = viewer.get(f"{url}1/drawing/?at=1:0:0", HTTP_HX_REQUEST="true")
+    assert "<svg" not in stale.content.decode() and "reload the page" in stale.content.decode()
+    assert viewer.get(f"{url}1/drawing/?at=1:0:0").status_code == 409
+    # a device no plan can isolate has no plan drawings to fetch
+    assert viewer.get(f"/sites/QFN/devices/86B/plan/steps/0/drawing/{at}").status_code == 404
 
 
 def test_a_device_no_plan_can_isolate_says_why(demo, viewer):
