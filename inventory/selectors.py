@@ -10,11 +10,13 @@ from __future__ import annotations
 import json
 from collections import defaultdict
 from collections.abc import Callable, Iterable, Sequence
+from itertools import groupby
+from operator import itemgetter
 from typing import Any
 
 from django.db import connection
-from django.db.models import Model, OuterRef, Prefetch, QuerySet, Subquery
-from django.db.models.functions import Abs
+from django.db.models import CharField, Model, OuterRef, Prefetch, QuerySet, Subquery, Value
+from django.db.models.functions import Abs, Concat
 
 import record as rec
 from inventory import models
@@ -48,52 +50,92 @@ _SQL_CACHE_MAX = 512
 
 def _by_ids(name: str, build: Callable[[list[int]], QuerySet], ids: list[int]) -> list[Any]:
     """The rows of ``build(ids)`` (a ``values_list`` filtered by ``ids``, which are distinct)
-    read like :func:`_rows`, with the SQL compiled once per query and number of ids: a chunk
-    of the fleet recompute reads 18 tables, and Django's compilation of 18 querysets costs
-    more than a small chunk's rows. The SQL is compiled for two sets of placeholder ids; the
-    parameters that differ are where the ids go (anything else, say a constant, is kept)."""
-    key = (connection.vendor, name, len(ids))
+    read like :func:`_rows`, with the SQL compiled once per query: a chunk of the fleet
+    recompute reads 18 tables, and Django's compilation of 18 querysets costs more than a
+    small chunk's rows. The SQL is compiled for two sets of placeholder ids; the parameters
+    that differ are where the ids go (anything else, say a constant, is kept). On PostgreSQL
+    the ids go in as one array (``col = ANY(%s)``: one statement whatever their number, and
+    the planner sees the ids as one value); elsewhere as one placeholder each (compiled once
+    per number of ids)."""
+    if not ids:
+        return []
+    pg = connection.vendor == "postgresql"
+    n = 1 if pg else len(ids)
+    key = (connection.vendor, name, n)
     hit = _SQL_CACHE.get(key)
     if hit is None:
-        n = len(ids)
         sql, one = build(list(range(1, n + 1))).query.sql_with_params()
         sql_two, two = build(list(range(n + 1, 2 * n + 1))).query.sql_with_params()
         at: tuple[int, ...] = ()
         if (sql_two, len(two)) == (sql, len(one)):
             at = tuple(k for k, (p, q) in enumerate(zip(one, two, strict=True)) if p != q)
-        if [one[k] for k in at] != [*range(1, n + 1)]:
+        if [one[k] for k in at] != [*range(1, n + 1)] or (pg and sql.count(_IN_ONE) != 1):
             return _rows(build(ids))  # not a plain filter by the ids: compiled each time
+        if pg:
+            sql = sql.replace(_IN_ONE, " = ANY(%s)")
         if len(_SQL_CACHE) >= _SQL_CACHE_MAX:
             _SQL_CACHE.clear()
         hit = _SQL_CACHE[key] = (sql, tuple(one), at)
     sql, template, at = hit
+    params = list(template)
+    if pg:
+        params[at[0]] = ids
+        return _execute(sql, params)
     if len(at) == len(template):
         return _execute(sql, ids)
-    params = list(template)
     for k, value in zip(at, ids, strict=True):
         params[k] = value
     return _execute(sql, params)
 
 
+_IN_ONE = " IN (%s)"
+
+
 def _table(
-    ids: list[int],
+    ids: list[int] | tuple[list[int], list[int]],
     model: type[Model],
     fields: tuple[str, ...],
     *,
     order: tuple[str, ...] = ("id",),
-    by: str = "site_id",
+    by: str | tuple[str, str] = "site_id",
+    where: dict[str, Any] | None = None,
+    annotate: dict[str, Any] | None = None,
 ) -> list[tuple[Any, ...]]:
-    """``fields`` of the rows of ``model`` whose ``by`` is one of ``ids``, in ``order``, as
-    tuples (:func:`_by_ids`; an empty ``order`` also drops the model's default ordering)."""
+    """``fields`` of the rows of ``model`` whose ``by`` is one of ``ids`` (and that match
+    ``where``), in ``order``, as tuples (:func:`_by_ids`; an empty ``order`` also drops the
+    model's default ordering). ``fields`` may name expressions given in ``annotate``.
+
+    The rows of a part of a part (a device's inputs) are read by their parent's ids on
+    PostgreSQL (``ids`` = (parent ids, site ids), ``by`` = (parent field, site lookup)): an
+    index scan of the rows wanted, where a join on the site reads the whole table. Elsewhere
+    the site ids go in, through the join (one placeholder per id: there are fewer sites)."""
+    if isinstance(by, tuple):
+        pg = connection.vendor == "postgresql"
+        ids, by = (ids[0], by[0]) if pg else (ids[1], by[1])
+    assert isinstance(ids, list) and isinstance(by, str)
 
     def build(some: list[int]) -> QuerySet:
-        return (
-            model._default_manager.filter(**{f"{by}__in": some})
-            .order_by(*order)
-            .values_list(*fields)
-        )
+        qs = model._default_manager.filter(**{f"{by}__in": some}, **(where or {}))
+        if annotate:
+            qs = qs.annotate(**annotate)
+        return qs.order_by(*order).values_list(*fields)
 
-    return _by_ids(f"{model._meta.label}:{by}:{order}:{fields}", build, ids)
+    key = (
+        f"{model._meta.label}:{by}:{order}:{fields}:{sorted(where or ())}:{sorted(annotate or ())}"
+    )
+    return _by_ids(key, build, ids)
+
+
+class _Makers(dict[type, Callable[..., Any]]):
+    """``record.model.maker`` of each record class, made once (``_MAKERS[rec.Wire]``)."""
+
+    def __missing__(self, cls: type) -> Callable[..., Any]:
+        make = self[cls] = rec.model.maker(cls)
+        return make
+
+
+_MAKERS = _Makers()
+_first, _fifth, _sixth = itemgetter(0), itemgetter(4), itemgetter(5)
 
 
 class _Decoded(dict[Any, Any]):
@@ -149,23 +191,29 @@ def _site_records(wanted: list[int]) -> dict[int, rec.SiteRecord]:
     ids = [row[0] for row in site_rows]
     if not ids:
         return {}
+    make = _MAKERS
 
-    def per_site() -> dict[int, list[Any]]:
-        return {sid: [] for sid in ids}
+    # Every terminal: its label (made by the database) and, for a CT's, the CT, its position
+    # and tap role. Ordered by CT, a CT's terminals come together; each CT's then sorted by
+    # position, then name (the rows of the other terminals form one group, of no CT).
+    terminal_rows = _table(
+        ids,
+        models.Terminal,
+        ("ct_id", "position_a", "name", "tap_role", "id", "label"),
+        order=("ct_id",),
+        annotate={"label": Concat("owner", Value(":"), "name", output_field=CharField())},
+    )
+    labels: dict[int, str] = dict(
+        zip(map(_fifth, terminal_rows), map(_sixth, terminal_rows), strict=True)
+    )
+    ct_terminals = {
+        ct_id: sorted(own) for ct_id, own in groupby(terminal_rows, _first) if ct_id is not None
+    }
+    del terminal_rows
 
-    # Terminals in no order (a CT's own are sorted below, per CT).
-    labels: dict[int, str] = {}
-    ct_terminals: dict[int, list[tuple[float, str, str]]] = defaultdict(list)
-    for tid, owner, name, ct_id, position_a, tap_role in _table(
-        ids, models.Terminal, ("id", "owner", "name", "ct_id", "position_a", "tap_role"), order=()
-    ):
-        labels[tid] = f"{owner}:{name}"
-        if ct_id is not None:
-            ct_terminals[ct_id].append((position_a, name, tap_role))
-
-    buses = per_site()
+    buses: dict[int, list[Any]] = defaultdict(list)
     bus_codes: dict[int, str] = {}
-    Bus = rec.Bus
+    Bus = make[rec.Bus]
     for bid, site_id, code, kv, three, ground, xr in _table(
         ids,
         models.Bus,
@@ -175,9 +223,9 @@ def _site_records(wanted: list[int]) -> dict[int, rec.SiteRecord]:
         bus_codes[bid] = code
         buses[site_id].append(Bus(code, kv, three, ground, xr))
 
-    equipment = per_site()
+    equipment: dict[int, list[Any]] = defaultdict(list)
     equipment_codes: dict[int, str] = {}
-    Equipment = rec.Equipment
+    Equipment = make[rec.Equipment]
     for eid, site_id, code, kind, bus_id, in_service, max_load_a in _table(
         ids,
         models.Equipment,
@@ -188,8 +236,8 @@ def _site_records(wanted: list[int]) -> dict[int, rec.SiteRecord]:
         bus = bus_codes[bus_id] if bus_id else None
         equipment[site_id].append(Equipment(code, kind, bus, bool(in_service), max_load_a))
 
-    blocks = per_site()
-    TerminalBlock = rec.TerminalBlock
+    blocks: dict[int, list[Any]] = defaultdict(list)
+    TerminalBlock = make[rec.TerminalBlock]
     for site_id, code, description in _table(
         ids, models.TerminalBlock, ("site_id", "code", "description"), order=("code",)
     ):
@@ -206,10 +254,10 @@ def _site_records(wanted: list[int]) -> dict[int, rec.SiteRecord]:
             rec.TapChange(tuple(from_tap), tuple(to_tap), changed_at, by, reason)
         )
 
-    cts = per_site()
+    cts: dict[int, list[Any]] = defaultdict(list)
     points = _Decoded(_points)
-    CT = rec.CT
-    no_terminals: list[tuple[float, str, str]] = []
+    CT = make[rec.CT]
+    no_terminals: list[tuple[Any, ...]] = []
     for row in _table(
         ids,
         models.CurrentTransformer,
@@ -234,9 +282,8 @@ def _site_records(wanted: list[int]) -> dict[int, rec.SiteRecord]:
         (ct_id, site_id, code, eq_id, phase, set_name, secondary_a, accuracy) = row[:8]
         (rated_burden_va, knee_v, winding_ohm, rating_factor, excitation, nameplate) = row[8:]
         own = ct_terminals.get(ct_id, no_terminals)
-        own.sort()
         first = second = None
-        for _, name, role in own:
+        for _, _, name, role, _, _ in own:
             if role == "first":
                 first = name
             elif role == "second":
@@ -247,7 +294,7 @@ def _site_records(wanted: list[int]) -> dict[int, rec.SiteRecord]:
                 equipment_codes[eq_id],
                 phase,
                 float(secondary_a),
-                tuple([(name, position) for position, name, _ in own]),
+                tuple([(name, position) for _, position, name, _, _, _ in own]),
                 tuple([n for n in (first, second) if n is not None]),
                 set_name or None,
                 accuracy or None,
@@ -261,66 +308,87 @@ def _site_records(wanted: list[int]) -> dict[int, rec.SiteRecord]:
             )
         )
 
-    inputs: dict[int, list[rec.DeviceInput]] = defaultdict(list)
-    DeviceInput = rec.DeviceInput
-    for device_id, name, a, b, rated_a, burden_va, pf, r_ohm, x_ohm in _table(
-        ids,
-        models.DeviceInput,
-        (
-            "device_id",
-            "name",
-            "from_terminal_id",
-            "to_terminal_id",
-            "rated_a",
-            "burden_va",
-            "pf",
-            "burden_r_ohm",
-            "burden_x_ohm",
-        ),
-        by="device__site_id",
-    ):
-        inputs[device_id].append(
-            DeviceInput(
-                name,
-                labels[a],
-                labels[b],
-                float(rated_a),
-                burden_va,
-                pf,
-                None if burden_va is not None else (r_ohm, x_ohm),
-            )
-        )
-    outputs: dict[int, list[rec.DeviceOutput]] = defaultdict(list)
-    DeviceOutput = rec.DeviceOutput
-    for device_id, name, terminal, target in _table(
-        ids,
-        models.DeviceOutput,
-        ("device_id", "name", "terminal_id", "target_id"),
-        by="device__site_id",
-    ):
-        outputs[device_id].append(DeviceOutput(name, labels[terminal], labels[target]))
-    devices = per_site()
+    devices: dict[int, list[Any]] = defaultdict(list)
     tuple_of = _Decoded(_tuple)
-    Device = rec.Device
-    for did, site_id, code, kind, functions, ratio_setting in _table(
+    device_rows = _table(
         ids,
         models.Device,
         ("id", "site_id", "code", "kind", "functions", "ratio_setting"),
         order=("code",),
-    ):
+    )
+    device_ids = [row[0] for row in device_rows]
+    # Inputs and outputs grouped by device, in the order recorded.
+    DeviceInput = make[rec.DeviceInput]
+    inputs = {
+        device_id: tuple(
+            [
+                DeviceInput(
+                    name,
+                    labels[a],
+                    labels[b],
+                    float(rated_a),
+                    burden_va,
+                    pf,
+                    None if burden_va is not None else (r_ohm, x_ohm),
+                )
+                for _, name, a, b, rated_a, burden_va, pf, r_ohm, x_ohm in rows
+            ]
+        )
+        for device_id, rows in groupby(
+            _table(
+                (device_ids, ids),
+                models.DeviceInput,
+                (
+                    "device_id",
+                    "name",
+                    "from_terminal_id",
+                    "to_terminal_id",
+                    "rated_a",
+                    "burden_va",
+                    "pf",
+                    "burden_r_ohm",
+                    "burden_x_ohm",
+                ),
+                order=("device_id", "id"),
+                by=("device_id", "device__site_id"),
+            ),
+            _first,
+        )
+    }
+    DeviceOutput = make[rec.DeviceOutput]
+    outputs = {
+        device_id: tuple(
+            [
+                DeviceOutput(name, labels[terminal], labels[target])
+                for _, name, terminal, target in rows
+            ]
+        )
+        for device_id, rows in groupby(
+            _table(
+                (device_ids, ids),
+                models.DeviceOutput,
+                ("device_id", "name", "terminal_id", "target_id"),
+                order=("device_id", "id"),
+                by=("device_id", "device__site_id"),
+            ),
+            _first,
+        )
+    }
+    Device = make[rec.Device]
+    for did, site_id, code, kind, functions, ratio_setting in device_rows:
         devices[site_id].append(
             Device(
                 code,
                 kind,
                 () if functions is None else tuple_of[functions],
                 ratio_setting or None,
-                tuple(inputs[did]) if did in inputs else (),
-                tuple(outputs[did]) if did in outputs else (),
+                inputs.get(did, ()),
+                outputs.get(did, ()),
             )
         )
 
-    wires = per_site()
-    Wire = rec.Wire
+    wires: dict[int, list[Any]] = defaultdict(list)
+    Wire = make[rec.Wire]
     for site_id, a, b, size, material, length_m, length_ft, r_ohm in _table(
         ids,
         models.Wire,
@@ -339,72 +407,92 @@ def _site_records(wanted: list[int]) -> dict[int, rec.SiteRecord]:
             Wire(labels[a], labels[b], size, material, length_m, length_ft, r_ohm)
         )
 
-    links = per_site()
-    Link = rec.Link
+    links: dict[int, list[Any]] = defaultdict(list)
+    Link = make[rec.Link]
     for site_id, a, b in _table(ids, models.Link, ("site_id", "a_id", "b_id")):
         links[site_id].append(Link(labels[a], labels[b]))
-    grounds = per_site()
+    grounds: dict[int, list[Any]] = defaultdict(list)
     for site_id, terminal in _table(ids, models.Ground, ("site_id", "terminal_id")):
         grounds[site_id].append(labels[terminal])
 
-    # A switch's positions in order, and its normal one (the first marked normal).
-    positions: dict[int, list[str]] = defaultdict(list)
-    normals: dict[int, str] = {}
-    for switch_id, name, is_normal in _table(
-        ids,
-        models.SwitchPosition,
-        ("switch_id", "name", "is_normal"),
-        order=("switch_id", "order"),
-        by="switch__site_id",
-    ):
-        positions[switch_id].append(name)
-        if is_normal and switch_id not in normals:
-            normals[switch_id] = name
-    contacts: dict[int, list[rec.Contact]] = defaultdict(list)
-    Contact = rec.Contact
-    for switch_id, a, b, closed_in in _table(
-        ids, models.SwitchContact, ("switch_id", "a_id", "b_id", "closed_in"), by="switch__site_id"
-    ):
-        contacts[switch_id].append(
-            Contact((labels[a], labels[b]), () if closed_in is None else tuple_of[closed_in])
-        )
-    switches = per_site()
-    Switch = rec.Switch
-    for sw_id, site_id, code, kind, transition in _table(
+    switch_rows = _table(
         ids, models.Switch, ("id", "site_id", "code", "kind", "transition"), order=("code",)
+    )
+    switch_ids = [row[0] for row in switch_rows]
+    # A switch's positions in order, and its normal one (the first marked normal).
+    positions: dict[int, tuple[str, ...]] = {}
+    normals: dict[int, str] = {}
+    for switch_id, rows in groupby(
+        _table(
+            (switch_ids, ids),
+            models.SwitchPosition,
+            ("switch_id", "name", "is_normal"),
+            order=("switch_id", "order"),
+            by=("switch_id", "switch__site_id"),
+        ),
+        _first,
     ):
+        own = list(rows)
+        positions[switch_id] = tuple([name for _, name, _ in own])
+        for _, name, is_normal in own:
+            if is_normal:
+                normals[switch_id] = name
+                break
+    Contact = make[rec.Contact]
+    contacts = {
+        switch_id: tuple(
+            [
+                Contact((labels[a], labels[b]), () if closed_in is None else tuple_of[closed_in])
+                for _, a, b, closed_in in rows
+            ]
+        )
+        for switch_id, rows in groupby(
+            _table(
+                (switch_ids, ids),
+                models.SwitchContact,
+                ("switch_id", "a_id", "b_id", "closed_in"),
+                order=("switch_id", "id"),
+                by=("switch_id", "switch__site_id"),
+            ),
+            _first,
+        )
+    }
+    switches: dict[int, list[Any]] = defaultdict(list)
+    Switch = make[rec.Switch]
+    for sw_id, site_id, code, kind, transition in switch_rows:
         switches[site_id].append(
             Switch(
                 code,
                 kind,
-                tuple(positions[sw_id]) if sw_id in positions else (),
+                positions.get(sw_id, ()),
                 normals.get(sw_id),
                 transition,
-                tuple(contacts[sw_id]) if sw_id in contacts else (),
+                contacts.get(sw_id, ()),
             )
         )
 
+    procedure_rows = _table(
+        ids,
+        models.Procedure,
+        ("id", "site_id", "code", "title", "author", "devices"),
+        order=("code",),
+    )
     steps: dict[int, list[rec.Operation]] = defaultdict(list)
     operation = _Decoded(rec.operation_from_json)
     for procedure_id, order, op in _table(
-        ids,
+        ([row[0] for row in procedure_rows], ids),
         models.ProcedureStep,
         ("procedure_id", "order", "op"),
         order=("procedure_id", "order"),
-        by="procedure__site_id",
+        by=("procedure_id", "procedure__site_id"),
     ):
         try:
             steps[procedure_id].append(operation[op])
         except rec.OperationError as err:
             raise rec.RecordError(f"procedure step {order} (id {procedure_id}): {err}") from err
-    procedures = per_site()
-    Procedure = rec.Procedure
-    for pid, site_id, code, title, author, on_devices in _table(
-        ids,
-        models.Procedure,
-        ("id", "site_id", "code", "title", "author", "devices"),
-        order=("code",),
-    ):
+    procedures: dict[int, list[Any]] = defaultdict(list)
+    Procedure = make[rec.Procedure]
+    for pid, site_id, code, title, author, on_devices in procedure_rows:
         procedures[site_id].append(
             Procedure(
                 code,
@@ -415,19 +503,21 @@ def _site_records(wanted: list[int]) -> dict[int, rec.SiteRecord]:
             )
         )
 
+    empty: tuple[Any, ...] = ()
+    SiteRecord, Site = make[rec.SiteRecord], make[rec.Site]
     return {
-        sid: rec.SiteRecord(
-            rec.Site(code, name, design_temp_c, notes),
-            tuple(buses[sid]),
-            tuple(equipment[sid]),
-            tuple(blocks[sid]),
-            tuple(cts[sid]),
-            tuple(devices[sid]),
-            tuple(wires[sid]),
-            tuple(links[sid]),
-            tuple(grounds[sid]),
-            tuple(switches[sid]),
-            tuple(procedures[sid]),
+        sid: SiteRecord(
+            Site(code, name, design_temp_c, notes),
+            tuple(buses.get(sid, empty)),
+            tuple(equipment.get(sid, empty)),
+            tuple(blocks.get(sid, empty)),
+            tuple(cts.get(sid, empty)),
+            tuple(devices.get(sid, empty)),
+            tuple(wires.get(sid, empty)),
+            tuple(links.get(sid, empty)),
+            tuple(grounds.get(sid, empty)),
+            tuple(switches.get(sid, empty)),
+            tuple(procedures.get(sid, empty)),
         )
         for sid, code, name, design_temp_c, notes in site_rows
     }

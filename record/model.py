@@ -14,14 +14,18 @@ contacts in the order they were recorded).
 
 from __future__ import annotations
 
-from collections.abc import Mapping
+import dataclasses
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 from datetime import datetime
+from typing import Any, TypeVar
 
 from record.operations import Operation
 
 DEFAULT_DESIGN_TEMP_C = 75.0
 SITE_FORMAT = "loopkeep.site/1"
+
+T = TypeVar("T")
 
 # A device's ratio setting: one ratio ("400:5"), several that may match, or (for a device fed
 # by several CT sets) one per CT code or set name. The site file writes the first form.
@@ -216,3 +220,31 @@ class SiteRecord:
     @property
     def code(self) -> str:
         return self.site.code
+
+
+def maker(cls: type[T]) -> Callable[..., T]:
+    """A constructor of ``cls`` (a frozen, slotted record dataclass of this module) taking
+    every field positionally, in order, that sets each slot through its descriptor instead of
+    the frozen ``__init__``'s ``object.__setattr__(self, name, value)`` per field: the same
+    object (``maker(Wire)(*values) == Wire(*values)``, same type, same hash), built in about
+    half the time. For readers that build many records from rows holding every field, such as
+    the database reader; no defaults, no checks (the dataclasses have none either)."""
+    if not (
+        dataclasses.is_dataclass(cls)
+        and cls.__dataclass_params__.frozen  # type: ignore[attr-defined]
+        and "__slots__" in cls.__dict__
+        and not hasattr(cls, "__post_init__")
+    ):
+        raise TypeError(f"{cls.__name__} is not a frozen slotted dataclass without post-init")
+    fields = dataclasses.fields(cls)
+    names = [f.name for f in fields]
+    if tuple(names) != tuple(cls.__dict__["__slots__"]) or not all(f.init for f in fields):
+        raise TypeError(f"{cls.__name__}: every field must be an init field with its own slot")
+    namespace: dict[str, Any] = {"_new": object.__new__, "_cls": cls}
+    lines = [f"def make_{cls.__name__}({', '.join(names)}, /):", "    self = _new(_cls)"]
+    for k, name in enumerate(names):
+        namespace[f"_set{k}"] = cls.__dict__[name].__set__
+        lines.append(f"    _set{k}(self, {name})")
+    lines.append("    return self")
+    exec("\n".join(lines), namespace)  # source made of the field names only
+    return namespace[f"make_{cls.__name__}"]

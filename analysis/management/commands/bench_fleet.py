@@ -96,10 +96,30 @@ class Command(BaseCommand):
         parser.add_argument("--workers", type=int, default=2)
         parser.add_argument("--jobs", type=int, default=2, help="import processes if generating")
         parser.add_argument("--json", action="store_true", help="print the figures as JSON")
+        parser.add_argument(
+            "--only-read",
+            type=int,
+            default=0,
+            metavar="N",
+            help="measure only the typed-record read against the raw read, N times (no broker, "
+            "no workers, no compute)",
+        )
 
     def handle(self, *args, sites: int, seed: int, workers: int, jobs: int, json: bool, **kw):
         if connection.vendor != "postgresql":
             raise CommandError("bench_fleet needs PostgreSQL (DATABASE_URL)")
+        if kw["only_read"]:
+            site_ids = list(Site.objects.order_by("pk").values_list("pk", flat=True))
+            for _ in range(kw["only_read"]):
+                read = self._read(site_ids)
+                self.stdout.write(
+                    f"typed-record read {read['record_read_s']} s, "
+                    f"{read['record_read_cpu_s']} s CPU; raw read {read['b_raw_read_s']} s, "
+                    f"{read['b_raw_read_cpu_s']} s CPU; over raw: wall "
+                    f"{read['record_read_over_raw']}, CPU {read['record_read_over_raw_cpu']} "
+                    f"(target ≤ {TARGET_RECORD_OVER_RAW:g}; {len(site_ids)} sites)"
+                )
+            return
         if not settings.CELERY_BROKER_URL:
             raise CommandError("bench_fleet needs a broker (CELERY_BROKER_URL)")
         from config.celery import app
@@ -202,7 +222,9 @@ class Command(BaseCommand):
                 return
         raise CommandError("the worker did not answer a ping within a minute")
 
-    def _floor(self, site_ids: list[int], workers: int) -> dict[str, float | None]:
+    def _read(self, site_ids: list[int]) -> dict[str, Any]:
+        """The raw read of the record rows, then the typed records read as the workers read
+        them (chunk by chunk): figures, and the records (``records``, the engine's input)."""
         from inventory.selectors import site_records
 
         t0, c0 = time.perf_counter(), time.process_time()
@@ -219,6 +241,22 @@ class Command(BaseCommand):
         for chunk in chunks_of(site_ids, services.chunk_sites()):
             records.update(site_records(chunk))
         record_s, record_cpu_s = time.perf_counter() - t0, time.process_time() - c0
+
+        return {
+            "records": records,
+            "raw_read_s": read_s,
+            "b_raw_read_s": round(read_s, 2),
+            "b_raw_read_cpu_s": round(read_cpu_s, 2),
+            "b_record_rows": rows,
+            "record_read_s": round(record_s, 2),
+            "record_read_cpu_s": round(record_cpu_s, 2),
+            "record_read_over_raw": round(record_s / read_s, 2) if read_s else None,
+            "record_read_over_raw_cpu": round(record_cpu_s / read_cpu_s, 2) if read_cpu_s else None,
+        }
+
+    def _floor(self, site_ids: list[int], workers: int) -> dict[str, Any]:
+        read = self._read(site_ids)
+        records, read_s = read.pop("records"), read.pop("raw_read_s")
 
         codes = {sid: (r.site.code, 0) for sid, r in records.items()}
         t1, c1 = time.perf_counter(), time.process_time()
@@ -242,13 +280,7 @@ class Command(BaseCommand):
             transaction.set_rollback(True)
         compute_s = compute_one_s / workers
         return {
-            "b_raw_read_s": round(read_s, 2),
-            "b_raw_read_cpu_s": round(read_cpu_s, 2),
-            "b_record_rows": rows,
-            "record_read_s": round(record_s, 2),
-            "record_read_cpu_s": round(record_cpu_s, 2),
-            "record_read_over_raw": round(record_s / read_s, 2) if read_s else None,
-            "record_read_over_raw_cpu": round(record_cpu_s / read_cpu_s, 2) if read_cpu_s else None,
+            **read,
             "b_compute_one_process_s": round(compute_one_s, 2),
             "b_compute_one_process_cpu_s": round(compute_one_cpu_s, 2),
             "b_compute_s": round(compute_s, 2),
