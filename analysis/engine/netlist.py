@@ -624,6 +624,23 @@ def build_netlist(source: rec.SiteRecord | Mapping[str, Any]) -> Netlist:
     )
 
 
+def _region_owners(
+    nl: Netlist,
+) -> tuple[np.ndarray, np.ndarray, list[int], list[Device], list[Switch]]:
+    """(device number of each input, of each output, switch number of each contact, the
+    devices, the switches), devices and switches numbered in their dicts' order (cached)."""
+    hit = nl.cache.get("region_owners")
+    if hit is None:
+        dev_list = list(nl.devices.values())
+        sw_list = list(nl.switches.values())
+        dev_no = {d.code: k for k, d in enumerate(dev_list)}
+        in_dev = np.fromiter((dev_no[i.device] for i in nl.inputs), np.int64, len(nl.inputs))
+        out_dev = np.fromiter((dev_no[o.device] for o in nl.outputs), np.int64, len(nl.outputs))
+        sw_of = [k for k, sw in enumerate(sw_list) for _ in sw.contacts]
+        hit = nl.cache["region_owners"] = (in_dev, out_dev, sw_of, dev_list, sw_list)
+    return hit
+
+
 def region(nl: Netlist, mask: np.ndarray) -> Netlist:
     """The netlist of the terminals in ``mask``: a view over ``nl``'s elements, not a second
     build from the record. An element is kept as ``build_netlist`` of the record cut to the
@@ -634,6 +651,7 @@ def region(nl: Netlist, mask: np.ndarray) -> Netlist:
     (wire resistances, input impedances, CT loads) are the site's own; the region keeps the
     site's record, equipment and procedures."""
     keep = mask.tolist()
+    ar = nl.arrays
     terminals: list[str] = []
     index: dict[str, int] = {}
     new: dict[int, int] = {}
@@ -648,22 +666,34 @@ def region(nl: Netlist, mask: np.ndarray) -> Netlist:
             terminals.append(name)
         return i
 
+    def kept(first: np.ndarray) -> list[int]:
+        # the elements whose first terminal is in the region, in their order: the only ones
+        # the walk below numbers terminals for
+        out: list[int] = np.flatnonzero(mask[first]).tolist()
+        return out
+
+    in_dev, out_dev, sw_of, dev_list, sw_list = _region_owners(nl)
     cts: dict[str, CT] = {}
-    for ct in nl.ct_list:
-        if keep[ct.first]:
-            tidx = {n: term(t) for n, t in ct.terminals.items()}
-            cts[ct.code] = replace(
-                ct,
-                index=len(cts),
-                terminals=tidx,
-                first=tidx[ct.in_use[0]],
-                second=tidx[ct.in_use[1]],
-            )
+    ct_list = nl.ct_list
+    for k in kept(ar.ct_first):
+        ct = ct_list[k]
+        tidx = {n: term(t) for n, t in ct.terminals.items()}
+        cts[ct.code] = replace(
+            ct,
+            index=len(cts),
+            terminals=tidx,
+            first=tidx[ct.in_use[0]],
+            second=tidx[ct.in_use[1]],
+        )
 
     devices: dict[str, Device] = {}
     inputs: list[DeviceInput] = []
     outputs: list[DeviceOutput] = []
-    for d in nl.devices.values():
+    hit_dev = np.zeros(len(dev_list), dtype=bool)
+    hit_dev[in_dev[mask[ar.input_a]]] = True
+    hit_dev[out_dev[mask[ar.out_terminal]]] = True
+    for dn in np.flatnonzero(hit_dev).tolist():
+        d = dev_list[dn]
         dins = []
         for i in d.inputs:
             if keep[i.a]:
@@ -677,36 +707,38 @@ def region(nl: Netlist, mask: np.ndarray) -> Netlist:
                 do = DeviceOutput(len(outputs), o.device, o.name, term(o.terminal), term(o.target))
                 outputs.append(do)
                 douts.append(do)
-        if dins or douts:
-            devices[d.code] = replace(d, inputs=tuple(dins), outputs=tuple(douts))
+        devices[d.code] = replace(d, inputs=tuple(dins), outputs=tuple(douts))
 
     wires: list[Wire] = []
-    for w in nl.wires:
-        if keep[w.a]:
-            wires.append(Wire(len(wires), term(w.a), term(w.b), w.r_ohm, w.ends))
+    all_wires = nl.wires
+    for k in kept(ar.br_a[: ar.n_wires]):
+        w = all_wires[k]
+        wires.append(Wire(len(wires), term(w.a), term(w.b), w.r_ohm, w.ends))
     links: list[Link] = []
-    for k in nl.links:
-        if keep[k.a]:
-            links.append(Link(len(links), term(k.a), term(k.b), k.ends))
+    all_links = nl.links
+    for k in kept(ar.link_a):
+        lk = all_links[k]
+        links.append(Link(len(links), term(lk.a), term(lk.b), lk.ends))
     grounds = tuple(term(g) for g in nl.grounds if keep[g])
 
     switches: dict[str, Switch] = {}
-    n_contacts = 0
-    for s in nl.switches.values():
-        contacts: list[Contact] = []
-        for con in s.contacts:
-            if keep[con.a]:
-                contacts.append(Contact(n_contacts, term(con.a), term(con.b), con.closed_in))
-                n_contacts += 1
-        if contacts:
-            switches[s.code] = Switch(
-                code=s.code,
-                kind=s.kind,
-                positions=s.positions,
-                normal=s.normal,
-                transition=s.transition,
-                contacts=tuple(contacts),
-            )
+    all_contacts = nl.contacts
+    by_switch: dict[int, list[Contact]] = {}
+    for n_contacts, k in enumerate(kept(ar.contact_a)):
+        con = all_contacts[k]
+        by_switch.setdefault(sw_of[k], []).append(
+            Contact(n_contacts, term(con.a), term(con.b), con.closed_in)
+        )
+    for sn, contacts in by_switch.items():
+        s = sw_list[sn]
+        switches[s.code] = Switch(
+            code=s.code,
+            kind=s.kind,
+            positions=s.positions,
+            normal=s.normal,
+            transition=s.transition,
+            contacts=tuple(contacts),
+        )
 
     return Netlist(
         site_code=nl.site_code,

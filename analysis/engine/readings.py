@@ -59,14 +59,28 @@ def _amps(ev: Any) -> list[float]:
     return row
 
 
+def _kept_inputs(
+    nl: Netlist, removed: frozenset[str], devices: set[str] | None
+) -> list[tuple[int, str, str]]:
+    """(input index, terminal a, terminal b) of the inputs of the devices in place (of
+    ``devices`` only, when given): the same for every state with the same devices removed
+    (cached)."""
+    key = ("readings_kept", removed, None if devices is None else frozenset(devices))
+    hit = nl.cache.get(key)
+    if hit is None:
+        hit = nl.cache[key] = [
+            (k, a, b)
+            for k, dev, a, b in _input_items(nl)
+            if dev not in removed and (devices is None or dev in devices)
+        ]
+    return hit
+
+
 def input_readings(nl: Netlist, ev: Any, devices: set[str] | None = None) -> list[dict[str, Any]]:
     """The current in each input of the devices in place (``devices``: only theirs)."""
-    removed = ev.state.removed
     amps = _amps(ev)
     return [
-        {"between": [a, b], "a": amps[k]}
-        for k, dev, a, b in _input_items(nl)
-        if dev not in removed and (devices is None or dev in devices)
+        {"between": [a, b], "a": amps[k]} for k, a, b in _kept_inputs(nl, ev.state.removed, devices)
     ]
 
 
@@ -88,7 +102,7 @@ def _csc(vals: np.ndarray, rows: np.ndarray, cols: np.ndarray, n: int) -> csc_ma
     """The n × n matrix of the (row, col, value) entries, duplicates summed, in canonical CSC
     form (sorted indices): what ``csc_matrix((vals, (rows, cols)))`` gives, without the
     general constructor's conversions (which win above a few hundred entries)."""
-    if len(vals) > 400:
+    if len(vals) > 700:
         return csc_matrix((vals, (rows, cols)), shape=(n, n))
     key = cols * n + rows
     order = np.argsort(key, kind="stable")
@@ -171,8 +185,9 @@ def _batch_shorting(
     eb = np.concatenate([zb, np.asarray(gb, dtype=np.int64)])
     n_v = (int(slot_of.max()) + 1) * n_t
     lab = components(n_v, ea, eb)
-    parts = np.unique(lab[za[wanted]])
-    member = np.isin(lab, parts)
+    in_part = np.zeros(int(lab.max()) + 1, dtype=bool)
+    in_part[lab[za[wanted]]] = True
+    member = in_part[lab]
     members = np.nonzero(member)[0]
     local = np.full(n_v, -1, dtype=np.int64)
     local[members] = np.arange(len(members))
@@ -207,9 +222,12 @@ def _batch_shorting(
     keep = member[ea] & (ea != eb)
     li, lj = local[ea[keep]], local[eb[keep]]
     n = len(members)
-    _, first = np.unique(lab[members], return_index=True)
-    datum = np.zeros(n, dtype=bool)
-    datum[first] = True
+    # the datum of each part is its first terminal: labels count the parts in the order of
+    # their first terminals, so a part's first member is where the label exceeds all before
+    plab = lab[members]
+    datum = np.ones(n, dtype=bool)
+    if n > 1:
+        np.greater(plab[1:], np.maximum.accumulate(plab[:-1]), out=datum[1:])
     free_i = ~datum[li]
     free_j = ~datum[lj]
     rows_ = np.concatenate([li[free_i], lj[free_j], li[free_i & free_j], lj[free_i & free_j]])
@@ -235,7 +253,6 @@ def _batch_shorting(
     # Effective resistance of each wanted element (e_a - e_b, datum rows 0), one column each.
     # In a part whose elements form a tree every element is a bridge (exactly 1); only the
     # parts with a loop, and an element from a terminal to itself, need the solve.
-    plab = lab[members]
     n_vert = np.bincount(plab, minlength=n_v)
     n_edge = np.bincount(lab[ea[keep]], minlength=n_v)
     wlab = lab[za[wanted]]

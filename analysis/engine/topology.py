@@ -21,6 +21,7 @@ singular. Circuits are padded to a few sizes and solved as stacks with ``numpy.l
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 from scipy.sparse import coo_matrix
@@ -50,21 +51,26 @@ def components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
         return np.arange(n, dtype=np.int64)
     lab = np.arange(n, dtype=np.int64)
     rounds = MAX_ROUNDS if n <= SMALL_GRAPH else 0
+    # Each edge hooks the larger of its ends' roots onto the smaller; an edge whose ends share
+    # a root keeps sharing it (roots only merge), so each round takes only the edges that
+    # still join two roots.
+    hi, lo = np.maximum(a, b), np.minimum(a, b)
+    join = hi != lo
+    hi, lo = hi[join], lo[join]
     for _ in range(rounds):
-        ra = lab[a]
-        rb = lab[b]
-        differ = ra != rb
-        if not differ.any():
+        if not len(hi):
             roots = lab == np.arange(n)
             return (np.cumsum(roots) - 1)[lab]
-        ra = ra[differ]
-        rb = rb[differ]
-        np.minimum.at(lab, np.maximum(ra, rb), np.minimum(ra, rb))
+        np.minimum.at(lab, hi, lo)
         while True:
             nxt = lab[lab]
-            if np.array_equal(nxt, lab):
+            if (nxt == lab).all():
                 break
             lab = nxt
+        ra, rb = lab[hi], lab[lo]
+        join = ra != rb
+        ra, rb = ra[join], rb[join]
+        hi, lo = np.maximum(ra, rb), np.minimum(ra, rb)
     g = coo_matrix((np.ones(len(a), dtype=np.int8), (a, b)), shape=(n, n))
     _, labels = connected_components(g, directed=False)
     out: np.ndarray = labels.astype(np.int64, copy=False)
@@ -145,6 +151,33 @@ def _assemble(idx: np.ndarray, w: np.ndarray, size: int) -> np.ndarray:
         np.concatenate([2 * idx, 2 * idx + 1]), np.concatenate([w.real, w.imag]), 2 * size
     )
     return flat.view(np.complex128)
+
+
+def _distinct_blocks(sizes: np.ndarray, *groups: tuple[np.ndarray, ...]) -> np.ndarray | None:
+    """For a chunk of circuits of ``sizes`` nodes whose matrix and right-hand side entries are
+    listed in ``groups`` (each: the circuit of every entry, sorted, then the entry's arrays),
+    the first circuit with the very same size and entries in the same order (the same matrix
+    and right-hand side, to the last bit) of each circuit, itself if none before; None when
+    all differ. The states of a procedure repeat most of their circuits (a step on a trip
+    pole, a note, a switch set back leave a circuit as it was)."""
+    nblk = len(sizes)
+    if nblk < 2:
+        return None
+    cuts = [np.searchsorted(g[0], np.arange(nblk + 1)).tolist() for g in groups]
+    size_l = sizes.tolist()
+    seen: dict[tuple[Any, ...], int] = {}
+    block = np.empty(nblk, dtype=np.int64)
+    for c in range(nblk):
+        key = (
+            size_l[c],
+            *(
+                a[cut[c] : cut[c + 1]].tobytes()
+                for g, cut in zip(groups, cuts, strict=True)
+                for a in g[1:]
+            ),
+        )
+        block[c] = seen.setdefault(key, c)
+    return None if len(seen) == nblk else block
 
 
 @dataclass(eq=False)
@@ -240,13 +273,34 @@ def solve(
         step = max(1, CHUNK_ENTRIES // (n * n))
         for g0 in range(s0, s1, step):
             g1 = min(g0 + step, s1)
-            nblk = g1 - g0
             k = int(circ_ncols[circs[g0:g1]].max())
             b0, b1 = np.searchsorted(bg, [g0, g1])
-            base = (bg[b0:b1] - g0) * (n * n)
-            i, j, y = bi[b0:b1], bj[b0:b1], by[b0:b1]
             r0, r1 = np.searchsorted(rg, [g0, g1])
+            i0, i1 = np.searchsorted(ig, [g0, g1])
+            u0, u1 = np.searchsorted(ug, [g0, g1])
+            eb, er, ei = bg[b0:b1] - g0, rg[r0:r1] - g0, ig[i0:i1] - g0
+            i, j, y = bi[b0:b1], bj[b0:b1], by[b0:b1]
+            rl_, il_, icol_, ival_ = rl[r0:r1], il[i0:i1], icol[i0:i1], ival[i0:i1]
             sizes = csize[circs[g0:g1]]
+            # a circuit the same as one before it in the chunk (same entries in the same
+            # order: the same matrix and right-hand side, to the last bit) is not solved
+            # again: its nodes read the solution of the first
+            block = _distinct_blocks(sizes, (eb, i, j, y), (er, rl_), (ei, il_, icol_, ival_))
+            if block is not None:
+                firsts = np.flatnonzero(block == np.arange(g1 - g0))
+                renum = np.full(g1 - g0, -1, dtype=np.int64)
+                renum[firsts] = np.arange(len(firsts))
+                block = renum[block]
+                kb, kr, ki = renum[eb] >= 0, renum[er] >= 0, renum[ei] >= 0
+                eb, i, j, y = block[eb[kb]], i[kb], j[kb], y[kb]
+                er, rl_ = block[er[kr]], rl_[kr]
+                ei, il_, icol_, ival_ = block[ei[ki]], il_[ki], icol_[ki], ival_[ki]
+                sizes = sizes[firsts]
+                u_blk = block[ug[u0:u1] - g0]
+            else:
+                u_blk = ug[u0:u1] - g0
+            nblk = len(sizes)
+            base = eb * (n * n)
             padn = n - sizes
             pb = np.repeat(np.arange(nblk), padn)
             pl = np.arange(len(pb)) - np.repeat(np.cumsum(padn) - padn, padn) + sizes[pb]
@@ -256,19 +310,17 @@ def solve(
                     base + j * n + j,
                     base + i * n + j,
                     base + j * n + i,
-                    (rg[r0:r1] - g0) * (n * n) + rl[r0:r1] * (n + 1),
+                    er * (n * n) + rl_ * (n + 1),
                     pb * (n * n) + pl * (n + 1),
                 ]
             )
-            n_fix = (r1 - r0) + len(pb)
+            n_fix = len(er) + len(pb)
             w = np.concatenate([y, y, -y, -y, np.ones(n_fix, dtype=np.complex128)])
             ymat = _assemble(idx, w, nblk * n * n).reshape(nblk, n, n)
-            i0, i1 = np.searchsorted(ig, [g0, g1])
-            ridx = (ig[i0:i1] - g0) * (n * k) + il[i0:i1] * k + icol[i0:i1]
-            rhs = _assemble(ridx, ival[i0:i1], nblk * n * k)
+            ridx = ei * (n * k) + il_ * k + icol_
+            rhs = _assemble(ridx, ival_, nblk * n * k)
             volts = np.linalg.solve(ymat, rhs.reshape(nblk, n, k))
-            u0, u1 = np.searchsorted(ug, [g0, g1])
-            node_base[un[u0:u1]] = offset + (ug[u0:u1] - g0) * (n * k) + local[un[u0:u1]] * k
+            node_base[un[u0:u1]] = offset + u_blk * (n * k) + local[un[u0:u1]] * k
             parts.append(volts.ravel())
             offset += nblk * n * k
     vflat = np.concatenate(parts) if parts else np.zeros(0, dtype=np.complex128)

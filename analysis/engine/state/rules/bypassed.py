@@ -71,10 +71,14 @@ def check_bypassed(
             closed_feeders = (b.live & ~b.ct_open).astype(np.int32) @ feeders
             open_feeders = (b.live & b.ct_open).astype(np.int32) @ feeders
             lost &= (closed_feeders > 0) & (open_feeders == 0)
-        batch_hit = bb["lost"] = (b, lost, lost.any(axis=1).tolist())
-    if not batch_hit[2][ev._row]:
+        # the inputs lost in each state, as lists
+        hit_rows: list[list[int]] = [[] for _ in range(lost.shape[0])]
+        for r, k in zip(*(x.tolist() for x in np.nonzero(lost)), strict=True):
+            hit_rows[r].append(k)
+        batch_hit = bb["lost"] = (b, hit_rows)
+    hits = batch_hit[1][ev._row]
+    if not hits:
         return out
-    hits = np.flatnonzero(batch_hit[1][ev._row]).tolist()
     roles = input_roles_of(nl)
     for k in hits:
         key = bb["keys"][k]
