@@ -34,6 +34,8 @@ MAX_ROUNDS = 12
 SMALL_GRAPH = 100_000
 # Matrix entries per stacked solve: small enough to stay in cache and reuse its memory.
 CHUNK_ENTRIES = 1 << 16
+# Circuits padded to at least this many nodes are solved once per distinct matrix in a chunk.
+DEDUP_NODES = 16
 
 
 def components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -163,21 +165,18 @@ def _distinct_blocks(sizes: np.ndarray, *groups: tuple[np.ndarray, ...]) -> np.n
     nblk = len(sizes)
     if nblk < 2:
         return None
-    cuts = [np.searchsorted(g[0], np.arange(nblk + 1)).tolist() for g in groups]
+    # each array's bytes once, cut per circuit (a few numpy calls per chunk, not per circuit)
+    cols: list[tuple[list[int], bytes, int]] = []
+    for g in groups:
+        cut = np.searchsorted(g[0], np.arange(nblk + 1)).tolist()
+        cols += [(cut, a.tobytes(), a.itemsize) for a in g[1:]]
     size_l = sizes.tolist()
     seen: dict[tuple[Any, ...], int] = {}
-    block = np.empty(nblk, dtype=np.int64)
-    for c in range(nblk):
-        key = (
-            size_l[c],
-            *(
-                a[cut[c] : cut[c + 1]].tobytes()
-                for g, cut in zip(groups, cuts, strict=True)
-                for a in g[1:]
-            ),
-        )
-        block[c] = seen.setdefault(key, c)
-    return None if len(seen) == nblk else block
+    block = [
+        seen.setdefault((size_l[c], *(raw[cut[c] * w : cut[c + 1] * w] for cut, raw, w in cols)), c)
+        for c in range(nblk)
+    ]
+    return None if len(seen) == nblk else np.asarray(block, dtype=np.int64)
 
 
 @dataclass(eq=False)
@@ -284,8 +283,13 @@ def solve(
             sizes = csize[circs[g0:g1]]
             # a circuit the same as one before it in the chunk (same entries in the same
             # order: the same matrix and right-hand side, to the last bit) is not solved
-            # again: its nodes read the solution of the first
-            block = _distinct_blocks(sizes, (eb, i, j, y), (er, rl_), (ei, il_, icol_, ival_))
+            # again: its nodes read the solution of the first (only where a solve costs more
+            # than telling the circuits apart)
+            block = (
+                None
+                if n < DEDUP_NODES
+                else _distinct_blocks(sizes, (eb, i, j, y), (er, rl_), (ei, il_, icol_, ival_))
+            )
             if block is not None:
                 firsts = np.flatnonzero(block == np.arange(g1 - g0))
                 renum = np.full(g1 - g0, -1, dtype=np.int64)
