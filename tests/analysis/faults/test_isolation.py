@@ -217,3 +217,36 @@ def test_run_fail_keeps_the_first_finish_and_adds_the_error():
     services.run_fail(run_id=run.pk, error="second")
     run.refresh_from_db()
     assert (run.status, run.error, run.finished_at) == (RunStatus.FAILURE, "first\nsecond\n", first)
+
+
+@pytest.mark.postgres
+def test_binary_copy_stores_every_value_exactly(three_sites):
+    """The writer's COPY is binary: each float must come back with the same 64 bits (IEEE 754
+    binary64; ``struct.pack(">d")`` gives them), including the extremes of the format (the
+    smallest subnormal 5e-324, the largest finite 1.7976931348623157e308, negative zero), and
+    a JSON document must come back equal, nested values, null and non-ASCII text included."""
+    import datetime as dt
+    import struct
+
+    site = three_sites["AAA"]
+    at = dt.datetime(2026, 1, 2, 3, 4, 5, 678901, tzinfo=dt.UTC)
+    common = (site.pk, "AAA", 2**40, at, 2**50)
+    floats = (0.1 + 0.2, 5e-324, 1.7976931348623157e308, -0.0, 1 / 3, -2.5e-10, 12000.0)
+    rating = (*common, "CB-9-A", "ground_fault", *floats, None, 7.0, 0.25)
+    report = {"ct": "CB-9-A", "x": [0.1 + 0.2, 5e-324, None, True], "µ": "Ω", "n": {"k": 2**53}}
+    verdict = (*common, "P-9", False, None, {"safe": False, "steps": [{"ohm": 1 / 3}]})
+    models.CTRating.objects.filter(site_id=site.pk).delete()
+    results_writer._insert(models.CTRating, [rating])
+    results_writer._insert(models.CTReport, [(*common, "CB-9-A", report)])
+    results_writer._insert(models.ProcedureVerdict, [verdict])
+
+    got = models.CTRating.objects.get(site_id=site.pk, ct="CB-9-A")
+    assert (got.site_code, got.revision, got.computed_at, got.run_id) == common[1:]
+    names = ("burden_r_ohm", "burden_x_ohm", "burden_z_ohm", "fault_a", "secondary_fault_a")
+    names += ("x_over_r", "vx_required_v")
+    bits = [struct.pack(">d", getattr(got, name)) for name in names]
+    assert bits == [struct.pack(">d", value) for value in floats]
+    assert (got.vx_available_v, got.c37_110_index, got.time_to_saturate_ms) == (None, 7.0, 0.25)
+    assert models.CTReport.objects.get(site_id=site.pk, ct="CB-9-A").report == report
+    stored = models.ProcedureVerdict.objects.get(site_id=site.pk, procedure="P-9")
+    assert (stored.safe, stored.first_danger, stored.verdict) == (False, None, verdict[-1])
