@@ -66,7 +66,14 @@ class AnalysisRun(models.Model):
     created_at = models.DateTimeField(auto_now_add=True)
     started_at = models.DateTimeField(null=True, blank=True)
     finished_at = models.DateTimeField(null=True, blank=True)
-    chunk_size = models.PositiveIntegerField(default=0, help_text="sites per chunk, once planned")
+    chunk_size = models.PositiveIntegerField(
+        default=0, help_text="sites per chunk at the most, once planned"
+    )
+    chunk_starts = models.JSONField(
+        null=True,
+        blank=True,
+        help_text="where each chunk starts in site_ids, once planned (null: every chunk_size)",
+    )
     progress_at = models.DateTimeField(
         null=True, blank=True, help_text="last start or chunk written (the stall sweep's clock)"
     )

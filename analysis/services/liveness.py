@@ -24,7 +24,7 @@ from django.utils import timezone
 
 from analysis import models
 from analysis.models import RunStatus
-from analysis.services.runs import ACTIVE, chunks_of, run_finish
+from analysis.services.runs import ACTIVE, run_chunks, run_finish
 
 log = logging.getLogger(__name__)
 
@@ -78,7 +78,7 @@ def _stalled_chunks(stall: dt.datetime, now: dt.datetime) -> int:
         ).update(heartbeat_at=None, sent_at=now)
         if not claimed:
             continue
-        ids = chunks_of(run.site_ids or [], run.chunk_size or 1)
+        ids = run_chunks(run)
         if chunk.index >= len(ids):
             continue
         log.warning(
@@ -124,7 +124,7 @@ def _lost_runs(stall: dt.datetime, lost: dt.datetime, now: dt.datetime) -> int:
                 continue
             missing = [
                 (index, ids)
-                for index, ids in enumerate(chunks_of(run.site_ids or [], run.chunk_size))
+                for index, ids in enumerate(run_chunks(run))
                 if index not in chunks or chunks[index].done_at is None
             ]
             if not missing:  # every chunk written, only the closing was lost

@@ -6,6 +6,7 @@ to the results writer, counting its sites once; the stall sweep sends again what
 from __future__ import annotations
 
 import contextlib
+import itertools
 import logging
 import time
 from collections.abc import Iterable, Iterator, Mapping
@@ -15,7 +16,7 @@ from typing import Any
 from django.conf import settings
 from django.db import models as djm
 from django.db import transaction
-from django.db.models import Case, F, Value, When
+from django.db.models import Case, Count, F, Value, When
 from django.db.models.functions import Concat
 from django.utils import timezone
 
@@ -24,15 +25,20 @@ from analysis.models import RunKind, RunStatus
 from analysis.selectors import chunk_inputs
 from analysis.services.results import TRANSIENT_DB_ERRORS, results_replace
 from config.beating import beating
-from inventory.models import Site
+from inventory.models import CurrentTransformer, Site
 from record import SiteRecord
 
 log = logging.getLogger(__name__)
 
 
 def chunk_sites() -> int:
-    """Sites per fleet chunk (one Celery task each)."""
-    return int(getattr(settings, "LOOPKEEP_RECOMPUTE_CHUNK_SITES", 10))
+    """Sites per fleet chunk (one Celery task each) at the most."""
+    return int(getattr(settings, "LOOPKEEP_RECOMPUTE_CHUNK_SITES", 40))
+
+
+def chunk_cts() -> int:
+    """CTs per fleet chunk at the most (a site with more goes alone in its chunk)."""
+    return int(getattr(settings, "LOOPKEEP_RECOMPUTE_CHUNK_CTS", 4000))
 
 
 def run_create(
@@ -119,10 +125,52 @@ def run_plan(*, run_id: int) -> list[list[int]] | None:
             run.site_ids = list(Site.objects.order_by("pk").values_list("pk", flat=True))
             run.sites_total = len(run.site_ids)
         if not run.chunk_size:
-            # Fixed once, so a redelivered or re-sent run splits its sites the same way.
+            # Fixed once, so a redelivered or re-sent run splits its sites the same way (even
+            # when CTs were added since).
             run.chunk_size = chunk_sites()
-        run.save(update_fields=["site_ids", "sites_total", "chunk_size"])
-    return chunks_of(run.site_ids, run.chunk_size)
+            run.chunk_starts = chunk_starts(run.site_ids, run.chunk_size, chunk_cts())
+        run.save(update_fields=["site_ids", "sites_total", "chunk_size", "chunk_starts"])
+    return run_chunks(run)
+
+
+def chunk_starts(site_ids: list[int], max_sites: int, max_cts: int) -> list[int]:
+    """Where each chunk starts in ``site_ids``: sites are taken in order while the chunk holds
+    at most ``max_sites`` sites and ``max_cts`` CTs (a site with more CTs goes alone). The
+    worker's memory and time follow the CTs of its chunk, and the chunks even out."""
+    counts = dict(
+        CurrentTransformer.objects.filter(site_id__in=site_ids)
+        .values("site_id")
+        .annotate(n=Count("pk"))
+        .values_list("site_id", "n")
+    )
+    starts: list[int] = []
+    sites = cts = 0
+    for i, sid in enumerate(site_ids):
+        n = counts.get(sid, 0)
+        if not starts or sites >= max_sites or cts + n > max_cts:
+            starts.append(i)
+            sites = cts = 0
+        sites += 1
+        cts += n
+    return starts
+
+
+def run_chunks(run: models.AnalysisRun) -> list[list[int]]:
+    """The chunks of a planned run, as planned (runs planned before chunks were sized by CTs
+    have no ``chunk_starts``: every ``chunk_size`` sites)."""
+    ids = run.site_ids or []
+    if run.chunk_starts is None:
+        return chunks_of(ids, run.chunk_size or 1)
+    return chunks_at(ids, run.chunk_starts)
+
+
+def fleet_chunks(site_ids: list[int]) -> list[list[int]]:
+    """These sites in chunks as a run planned now would split them (the benchmarks)."""
+    return chunks_at(site_ids, chunk_starts(site_ids, chunk_sites(), chunk_cts()))
+
+
+def chunks_at(site_ids: list[int], starts: list[int]) -> list[list[int]]:
+    return [site_ids[a:b] for a, b in itertools.pairwise([*starts, len(site_ids)])]
 
 
 def chunks_of(site_ids: list[int], size: int) -> list[list[int]]:

@@ -327,7 +327,10 @@ READY_BEAT_HEARTBEAT_S = float(os.environ.get("READY_BEAT_HEARTBEAT_S", "60"))
 # 2 cores computed 1.7x slower with the default threads). Must be set before numpy loads.
 for _threads_var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
     os.environ.setdefault(_threads_var, "1")
-LOOPKEEP_RECOMPUTE_CHUNK_SITES = int(os.environ.get("LOOPKEEP_RECOMPUTE_CHUNK_SITES", "10"))
+# A fleet chunk (one task) takes sites in order while it holds at most CHUNK_CTS CTs (a larger
+# site goes alone) and CHUNK_SITES sites: its memory follows its CTs, not its sites.
+LOOPKEEP_RECOMPUTE_CHUNK_SITES = int(os.environ.get("LOOPKEEP_RECOMPUTE_CHUNK_SITES", "40"))
+LOOPKEEP_RECOMPUTE_CHUNK_CTS = int(os.environ.get("LOOPKEEP_RECOMPUTE_CHUNK_CTS", "4000"))
 
 # Logs on standard error: LOG_FORMAT=json writes one JSON object per line with the request id,
 # user, site, task and run id of the line (config/logs.py); text (default) a readable line.

@@ -433,6 +433,46 @@ def test_stalled_run_gets_its_lost_chunk_sent_again(django_capture_on_commit_cal
     assert selectors.stale_site_ids() == []
 
 
+def test_fleet_chunks_are_sized_by_cts_and_kept_as_planned(settings):
+    # Bookkeeping of this project (a chunk holds at most CHUNK_CTS CTs and CHUNK_SITES sites;
+    # a larger site goes alone), no outside source.
+    with services.recompute_deferred():
+        for code in ("AAA", "BBB", "CCC"):
+            site_import(doc=small_site(code))
+    ids = list(inv.Site.objects.order_by("pk").values_list("pk", flat=True))
+    per_site = inv.CurrentTransformer.objects.filter(site_id=ids[0]).count()
+    assert per_site > 1
+    settings.LOOPKEEP_RECOMPUTE_CHUNK_SITES = 10
+    settings.LOOPKEEP_RECOMPUTE_CHUNK_CTS = 2 * per_site  # two sites fit, the third does not
+    run = services.run_create(kind=RunKind.FLEET, force=True)
+    services.run_started(run_id=run.pk, task_id="sized")
+    assert services.run_plan(run_id=run.pk) == [ids[:2], ids[2:]]
+    # Planned once: a redelivered run splits the same way whatever the settings are now.
+    settings.LOOPKEEP_RECOMPUTE_CHUNK_CTS = per_site
+    assert services.run_plan(run_id=run.pk) == [ids[:2], ids[2:]]
+    # A site with more CTs than a chunk may hold goes alone; the site bound holds too.
+    assert services.fleet_chunks(ids) == [[i] for i in ids]
+    settings.LOOPKEEP_RECOMPUTE_CHUNK_CTS = per_site - 1
+    assert services.fleet_chunks(ids) == [[i] for i in ids]
+    settings.LOOPKEEP_RECOMPUTE_CHUNK_CTS = 100 * per_site
+    settings.LOOPKEEP_RECOMPUTE_CHUNK_SITES = 2
+    assert services.fleet_chunks(ids) == [ids[:2], ids[2:]]
+    # The chunks run as planned: every site written once, the run closes.
+    for index, chunk in enumerate([ids[:2], ids[2:]]):
+        services.chunk_recompute(run_id=run.pk, index=index, site_ids=chunk, force=True)
+    services.run_finish(run_id=run.pk)  # as each chunk task does once it succeeded
+    run.refresh_from_db()
+    assert (run.status, run.sites_done, run.chunks.count()) == (RunStatus.SUCCESS, 3, 2)
+    assert selectors.stale_site_ids() == []
+
+
+def test_a_run_planned_before_chunks_were_sized_by_cts_keeps_its_split():
+    run = models.AnalysisRun(site_ids=[5, 6, 7, 8, 9], chunk_size=2, chunk_starts=None)
+    assert services.run_chunks(run) == [[5, 6], [7, 8], [9]]
+    run.chunk_starts = [0, 3]
+    assert services.run_chunks(run) == [[5, 6, 7], [8, 9]]
+
+
 def test_run_whose_message_was_lost_is_sent_again(django_capture_on_commit_callbacks):
     with services.recompute_deferred():
         site_import(doc=small_site())

@@ -127,21 +127,19 @@ class Command(BaseCommand):
 
     def _cost(self, n: int) -> None:
         ids = list(inv.Site.objects.order_by("pk").values_list("pk", flat=True)[:n])
-        size = services.chunk_sites()
+        chunks = services.fleet_chunks(ids)
         cts = inv.CurrentTransformer.objects.filter(site_id__in=ids).count()
         connection.ensure_connection()
         backend = connection.connection.info.backend_pid  # the PostgreSQL server process
         db0, cpu0, wall0 = _cpu_s(backend), time.process_time(), time.perf_counter()
-        for start in range(0, len(ids), size):
-            services.chunk_recompute(
-                run_id=None, index=0, site_ids=ids[start : start + size], force=True
-            )
+        for chunk in chunks:
+            services.chunk_recompute(run_id=None, index=0, site_ids=chunk, force=True)
         cpu, wall = time.process_time() - cpu0, time.perf_counter() - wall0
         db1 = _cpu_s(backend)
         db = db1 - db0 if db0 is not None and db1 is not None else float("nan")
         n = len(ids)
         self.stdout.write(
-            f"recompute cost, {n} sites ({cts} CTs) in chunks of {size}, one process: "
+            f"recompute cost, {n} sites ({cts} CTs) in {len(chunks)} chunks, one process: "
             f"{cpu / n:.3f} CPU s per site in the worker, {db / n:.3f} in the PostgreSQL "
             f"server process (same host: /proc), {wall / n:.3f} wall s per site "
             f"(worker CPU {cpu:.1f} s, server CPU {db:.1f} s, wall {wall:.1f} s)"

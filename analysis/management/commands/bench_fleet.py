@@ -35,7 +35,6 @@ from django.utils import timezone
 
 from analysis import services
 from analysis.models import AnalysisRun, RunStatus
-from analysis.services.runs import chunks_of
 from inventory.models import Site
 
 STALL_S = 15.0
@@ -238,7 +237,7 @@ class Command(BaseCommand):
         # The typed records, read as the workers read them (chunk by chunk): the engine's input.
         records = {}
         t0, c0 = time.perf_counter(), time.process_time()
-        for chunk in chunks_of(site_ids, services.chunk_sites()):
+        for chunk in services.fleet_chunks(site_ids):
             records.update(site_records(chunk))
         record_s, record_cpu_s = time.perf_counter() - t0, time.process_time() - c0
 
