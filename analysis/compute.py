@@ -166,6 +166,7 @@ def _compute_site(source: Source) -> SiteResults:
                 continue  # the initial state's findings are the normal-state ones above
             for f in step["findings"]:
                 out.findings.append(_finding_row(f, procedure=code, step=step["step"]))
+    engine.release(netlist)
     return out
 
 

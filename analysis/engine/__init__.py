@@ -28,7 +28,7 @@ from analysis.engine.procedure import (
     check_operations,
     check_procedure,
 )
-from analysis.engine.site import SiteAnalysis, analyze_site, normal_findings
+from analysis.engine.site import SiteAnalysis, analyze_site, normal_findings, release
 from analysis.engine.state import ProcedureError, State, normal_state
 
 __all__ = [
@@ -54,4 +54,5 @@ __all__ = [
     "normal_findings",
     "normal_state",
     "plan_isolation",
+    "release",
 ]

@@ -7,7 +7,7 @@ from typing import Any
 
 from analysis.engine.findings import Finding
 from analysis.engine.netlist import Netlist
-from analysis.engine.nodal import Circuit, CTBurden, normal_analysis
+from analysis.engine.nodal import Circuit, CTBurden, NormalAnalysis, normal_analysis
 from analysis.engine.procedure import ProcedureVerdict, check_procedures
 from analysis.engine.state import (
     ProcedureError,
@@ -67,3 +67,17 @@ def analyze_site(netlist: Netlist) -> SiteAnalysis:
         else:
             out.verdicts[code] = verdict
     return out
+
+
+def release(netlist: Netlist) -> None:
+    """Drop what ties a netlist's derived results back to it, once they are no longer needed:
+    its cache (and the caches of the region netlists kept there) and the normal analysis's
+    burdens (each ``CTBurden`` refers to its analysis). Those cycles are by design while the
+    site is worked on; broken afterwards, reference counting frees the whole netlist at once,
+    and the garbage collector does not have to find some ten thousand objects per site."""
+    for value in netlist.cache.values():
+        if isinstance(value, Netlist):
+            release(value)
+        elif isinstance(value, NormalAnalysis):
+            value.burdens = {}
+    netlist.cache.clear()
