@@ -27,6 +27,7 @@ CASE_VALUES = (
     "c37_110_index",
     "time_to_saturate_ms",
 )
+_NO_VALUES: Mapping[str, Any] = {}
 
 
 @dataclass
@@ -129,19 +130,29 @@ def _compute_site(source: Source) -> SiteResults:
                 "ground_points": len(circuit.ground_points),
             }
         )
+    ct_reports, ct_cases = out.ct_reports, out.ct_cases
     for ct_code, report in rated.reports.items():
-        out.ct_reports.append({"ct": ct_code, "report": report})
+        ct_reports.append({"ct": ct_code, "report": report})
+        cases = report["cases"]
         for case in CASES:
-            values = report["cases"].get(case) or {}
-            burden = values.get("burden_ohm") or {}
-            out.ct_cases.append(
+            values = cases.get(case) or _NO_VALUES
+            get = values.get
+            burden = get("burden_ohm") or _NO_VALUES
+            # the keys of CASE_VALUES, written out (a row per CT and case: some 400 a site)
+            ct_cases.append(
                 {
                     "ct": ct_code,
                     "case": case,
                     "burden_r_ohm": burden.get("r"),
                     "burden_x_ohm": burden.get("x"),
                     "burden_z_ohm": burden.get("z"),
-                    **{k: values.get(k) for k in CASE_VALUES},
+                    "fault_a": get("fault_a"),
+                    "secondary_fault_a": get("secondary_fault_a"),
+                    "x_over_r": get("x_over_r"),
+                    "vx_required_v": get("vx_required_v"),
+                    "vx_available_v": get("vx_available_v"),
+                    "c37_110_index": get("c37_110_index"),
+                    "time_to_saturate_ms": get("time_to_saturate_ms"),
                 }
             )
     for f in rated.findings:

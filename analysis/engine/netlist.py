@@ -15,7 +15,7 @@ so that the topology and the nodal solve (``topology.py``, ``nodal.py``) work on
 
 from __future__ import annotations
 
-import itertools
+import functools
 import math
 from collections.abc import Mapping
 from dataclasses import dataclass, field, replace
@@ -25,7 +25,7 @@ from typing import Any
 import numpy as np
 
 import record as rec
-from trade.conductors import wire_resistance_ohm
+from trade.conductors import conductor_ohm_per_m
 
 FT_TO_M = 0.3048
 # A branch whose impedance is below this is a zero-impedance connection (merged, not solved).
@@ -323,13 +323,15 @@ class NetArrays:
         wa: list[int] = []
         wb: list[int] = []
         for ct in nl.ct_list:
-            order = sorted(ct.terminals, key=lambda n: (ct.positions[n], n))
-            for p, q in itertools.pairwise(order):
-                wa.append(ct.terminals[p])
-                wb.append(ct.terminals[q])
+            t = ct.terminals
+            order = _winding_order(tuple(ct.positions.items()), tuple(t))
             if len(order) < 2:
                 wa.append(ct.first)
                 wb.append(ct.second)
+                continue
+            ends = [t[n] for n in order]
+            wa += ends[:-1]
+            wb += ends[1:]
         return cls(
             link_a=arr([k.a for k in nl.links]),
             link_b=arr([k.b for k in nl.links]),
@@ -356,6 +358,16 @@ class NetArrays:
         )
 
 
+@functools.lru_cache(maxsize=4096)
+def _winding_order(
+    positions: tuple[tuple[str, float], ...], terminals: tuple[str, ...]
+) -> tuple[str, ...]:
+    """A CT's terminals along its winding (by position, then name), once per nameplate: the
+    CTs of a set, and like CTs across sites, share it."""
+    at = dict(positions)
+    return tuple(sorted(terminals, key=lambda n: (at[n], n)))
+
+
 def _input_z_ohm(spec: rec.DeviceInput) -> complex:
     """Device input impedance from ``burden_ohm`` (R, X) or ``burden_va`` at ``rated_a``, ``pf``.
 
@@ -380,7 +392,8 @@ def _input_z_ohm(spec: rec.DeviceInput) -> complex:
 
 def _wire_r_ohm(spec: rec.Wire, temp_c: float, k: int) -> float:
     """The resistance of wire ``k`` of the site: ``r_ohm``, or its size's conductor at
-    ``temp_c`` times its length (``trade.conductors`` caches the per-metre value)."""
+    ``temp_c`` times its length (``trade.conductors.wire_resistance_ohm``; the per-metre
+    value is cached there)."""
     if spec.r_ohm is not None:
         return float(spec.r_ohm)
     if spec.length_m is not None:
@@ -391,14 +404,11 @@ def _wire_r_ohm(spec: rec.Wire, temp_c: float, k: int) -> float:
         raise ValueError(f"/wires/{k}: wire needs r_ohm, or size with length_m or length_ft")
     if not spec.size:
         raise ValueError(f"/wires/{k}: wire has a length but no size")
-    return float(
-        wire_resistance_ohm(
-            size=spec.size,
-            length_m=length_m,
-            material=spec.material or "cu",
-            temp_c=temp_c,
-        )
-    )
+    if length_m < 0:
+        # as trade.conductors.wire_resistance_ohm says it
+        raise ValueError(f"wire length must not be negative, got {length_m} m")
+    # wire_resistance_ohm's product, without its keyword call per wire
+    return float(conductor_ohm_per_m(spec.size, spec.material or "cu", temp_c) * length_m)
 
 
 def build_netlist(source: rec.SiteRecord | Mapping[str, Any]) -> Netlist:
@@ -423,16 +433,15 @@ def build_netlist(source: rec.SiteRecord | Mapping[str, Any]) -> Netlist:
     def term(name: Any, *where: object) -> int:
         """The index of terminal ``name`` (created on first reference); the parts of
         ``where`` make the JSON pointer named when it is not of the form ``OWNER:NAME``
-        (joined only then: a site references some thousands of terminals)."""
-        i = known(name) if name.__class__ is str else None
+        (joined only then: a site references some thousands of terminals). The loops below
+        look a known terminal up themselves and call this for the others."""
+        if not isinstance(name, str) or ":" not in name:
+            pointer = "".join(map(str, where))
+            raise ValueError(f"{pointer}: terminal {name!r} is not of the form OWNER:NAME")
+        i = known(name)
         if i is None:
-            if not isinstance(name, str) or ":" not in name:
-                pointer = "".join(map(str, where))
-                raise ValueError(f"{pointer}: terminal {name!r} is not of the form OWNER:NAME")
-            i = index.get(name)
-            if i is None:
-                i = index[name] = len(terminals)
-                terminals.append(name)
+            i = index[name] = len(terminals)
+            terminals.append(name)
         return i
 
     equipment: dict[str, Equipment] = {}
@@ -498,12 +507,19 @@ def build_netlist(source: rec.SiteRecord | Mapping[str, Any]) -> Netlist:
         dins: list[DeviceInput] = []
         for m, spec in enumerate(d.inputs):
             rated = spec.rated_a
+            t0, t1 = spec.from_terminal, spec.to_terminal
+            a = known(t0) if t0.__class__ is str else None
+            if a is None:
+                a = term(t0, "/devices/", k, "/inputs/", m, "/from")
+            b = known(t1) if t1.__class__ is str else None
+            if b is None:
+                b = term(t1, "/devices/", k, "/inputs/", m, "/to")
             di = DeviceInput(
                 len(inputs),
                 code,
                 spec.name,
-                term(spec.from_terminal, "/devices/", k, "/inputs/", m, "/from"),
-                term(spec.to_terminal, "/devices/", k, "/inputs/", m, "/to"),
+                a,
+                b,
                 _input_z_ohm(spec),
                 float(rated) if rated is not None else None,
             )
@@ -511,13 +527,14 @@ def build_netlist(source: rec.SiteRecord | Mapping[str, Any]) -> Netlist:
             dins.append(di)
         douts: list[DeviceOutput] = []
         for m, out in enumerate(d.outputs):
-            do = DeviceOutput(
-                len(outputs),
-                code,
-                out.name,
-                term(out.terminal, "/devices/", k, "/outputs/", m, "/terminal"),
-                term(out.target, "/devices/", k, "/outputs/", m, "/target"),
-            )
+            t0, t1 = out.terminal, out.target
+            a = known(t0) if t0.__class__ is str else None
+            if a is None:
+                a = term(t0, "/devices/", k, "/outputs/", m, "/terminal")
+            b = known(t1) if t1.__class__ is str else None
+            if b is None:
+                b = term(t1, "/devices/", k, "/outputs/", m, "/target")
+            do = DeviceOutput(len(outputs), code, out.name, a, b)
             outputs.append(do)
             douts.append(do)
         setting = d.ratio_setting
@@ -543,11 +560,20 @@ def build_netlist(source: rec.SiteRecord | Mapping[str, Any]) -> Netlist:
 
     links: list[Link] = []
     for k, link in enumerate(record.links):
-        a = term(link.a, "/links/", k, "/0")
-        b = term(link.b, "/links/", k, "/1")
+        t0, t1 = link.a, link.b
+        a = known(t0) if t0.__class__ is str else None
+        if a is None:
+            a = term(t0, "/links/", k, "/0")
+        b = known(t1) if t1.__class__ is str else None
+        if b is None:
+            b = term(t1, "/links/", k, "/1")
         links.append(Link(k, a, b, (terminals[a], terminals[b])))
 
-    grounds = tuple(dict.fromkeys(term(g, "/grounds/", k) for k, g in enumerate(record.grounds)))
+    ground_list: list[int] = []
+    for k, g in enumerate(record.grounds):
+        a = known(g) if g.__class__ is str else None
+        ground_list.append(term(g, "/grounds/", k) if a is None else a)
+    grounds = tuple(dict.fromkeys(ground_list))
 
     switches: dict[str, Switch] = {}
     n_contacts = 0
@@ -574,14 +600,14 @@ def build_netlist(source: rec.SiteRecord | Mapping[str, Any]) -> Netlist:
                         f"/switches/{k}/contacts/{m}/closed_in: unknown positions {unknown}"
                     )
                 closed_sets[pair] = closed_in
-            contacts.append(
-                Contact(
-                    n_contacts,
-                    term(between[0], "/switches/", k, "/contacts/", m, "/between/0"),
-                    term(between[1], "/switches/", k, "/contacts/", m, "/between/1"),
-                    closed_in,
-                )
-            )
+            t0, t1 = between
+            a = known(t0) if t0.__class__ is str else None
+            if a is None:
+                a = term(t0, "/switches/", k, "/contacts/", m, "/between/0")
+            b = known(t1) if t1.__class__ is str else None
+            if b is None:
+                b = term(t1, "/switches/", k, "/contacts/", m, "/between/1")
+            contacts.append(Contact(n_contacts, a, b, closed_in))
             n_contacts += 1
         switches[code] = Switch(
             code=code,

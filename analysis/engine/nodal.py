@@ -371,16 +371,24 @@ def _solve_normal(nets: list[Netlist]) -> None:
             circ_label_id=label_id,
             burdens={},
         )
-        analysis.burdens = {
-            c.code: CTBurden(
-                ct=c.code,
-                circuit=label_id.get(circ_l[k]),
-                ground_fault=None if open_l[k] else zg_l[c0 + k],
-                phase_fault=None if open_l[k] else zp_l[c0 + k],
-                _analysis=analysis,
-            )
-            for k, c in enumerate(cts)
-        }
+        # (ct, circuit, ground_fault, phase_fault, analysis), positional: a CT each
+        circuit_of = label_id.get
+        if any_open:
+            analysis.burdens = {
+                c.code: CTBurden(
+                    c.code,
+                    circuit_of(circ_l[k]),
+                    None if open_l[k] else zg_l[c0 + k],
+                    None if open_l[k] else zp_l[c0 + k],
+                    analysis,
+                )
+                for k, c in enumerate(cts)
+            }
+        else:
+            analysis.burdens = {
+                c.code: CTBurden(c.code, circuit_of(lab), zg, zp, analysis)
+                for c, lab, zg, zp in zip(cts, circ_l, zg_l[c0:c1], zp_l[c0:c1], strict=True)
+            }
         nl.cache["normal"] = analysis
 
 

@@ -252,15 +252,31 @@ def _evaluate_rows(interpolants: Sequence[Pchip], xq: np.ndarray) -> np.ndarray:
     k = np.minimum(np.maximum(k, 0), (sizes - 2)[:, None]) + offsets[:, None]
     first, last = x[offsets][:, None], x[offsets + sizes - 1][:, None]
     outside = ~((xq >= first) & (xq <= last))
-    hk, d0, d1 = h.take(k), d.take(k), d.take(k + 1)
-    t = (xq - x.take(k)) / hk
-    t2, t3 = t * t, t * t * t
-    val: np.ndarray = (
-        (2 * t3 - 3 * t2 + 1) * y.take(k)
-        + (t3 - 2 * t2 + t) * hk * d0
-        + (-2 * t3 + 3 * t2) * y.take(k + 1)
-        + (t3 - t2) * hk * d1
-    )
+    k1 = k + 1
+    hk = h.take(k)
+    t = xq - x.take(k)
+    t /= hk
+    t2 = t * t
+    t3 = t2 * t  # t * t * t, evaluated left to right
+    # (2 t³ - 3 t² + 1) y_k + (t³ - 2 t² + t) h d_k + (-2 t³ + 3 t²) y_k+1 + (t³ - t²) h d_k+1,
+    # each operation as that expression does it, in the same order, into fewer temporaries
+    val: np.ndarray = 2 * t3
+    val -= 3 * t2
+    val += 1
+    val *= y.take(k)
+    term = t3 - 2 * t2
+    term += t
+    term *= hk
+    term *= d.take(k)
+    val += term
+    np.multiply(-2, t3, out=term)
+    term += 3 * t2
+    term *= y.take(k1)
+    val += term
+    np.subtract(t3, t2, out=term)
+    term *= hk
+    term *= d.take(k1)
+    val += term
     if outside.any():
         val[outside] = np.nan
     return val
