@@ -1,4 +1,5 @@
-"""``gc_paused``: the cyclic garbage collector held off while a block builds many small objects.
+"""``gc_paused``: the cyclic garbage collector held off while a block builds many small objects;
+``gc_frozen``: what a block works on kept out of the collector's passes while it runs.
 
 Reading a site's record (from rows or from a document) and computing a site allocate some
 hundred thousand tuples, frozen dataclasses and small dicts. Each 700 allocations start a young
@@ -14,6 +15,7 @@ from __future__ import annotations
 
 import contextlib
 import gc
+import threading
 from collections.abc import Iterator
 
 
@@ -28,3 +30,31 @@ def gc_paused() -> Iterator[None]:
     finally:
         if was_enabled:
             gc.enable()
+
+
+_frozen_depth = 0
+_frozen_lock = threading.Lock()  # blocks of several threads (a threaded server) count as nested
+
+
+@contextlib.contextmanager
+def gc_frozen() -> Iterator[None]:
+    """Everything alive when the block starts (a chunk's records, read just before, and the
+    rest of the process) moved out of the collector's generations for the block, and back into
+    the oldest one after it (``gc.freeze`` / ``gc.unfreeze``; nested blocks are fine: only the
+    outermost one unfreezes). Computing a chunk of sites leaves each site's results to the
+    collector; each of its passes would otherwise also walk the chunk's records, a few hundred
+    thousand objects that cannot be garbage while the block runs (measured: the engine's compute
+    of the 500 generated sites in one process, records read first, 57 → 46 s CPU). Nothing
+    alive at the start is lost: unfrozen, it is collected as usual."""
+    global _frozen_depth
+    with _frozen_lock:
+        if _frozen_depth == 0:
+            gc.freeze()
+        _frozen_depth += 1
+    try:
+        yield
+    finally:
+        with _frozen_lock:
+            _frozen_depth -= 1
+            if _frozen_depth == 0:
+                gc.unfreeze()

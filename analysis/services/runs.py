@@ -27,6 +27,7 @@ from analysis.services.results import TRANSIENT_DB_ERRORS, results_replace
 from config.beating import beating
 from inventory.models import CurrentTransformer, Site
 from record import SiteRecord
+from record.gcpause import gc_frozen
 
 log = logging.getLogger(__name__)
 
@@ -231,12 +232,13 @@ def _compute(records: Mapping[int, SiteRecord]) -> tuple[dict[int, Any], dict[in
 
     results: dict[int, Any] = {}
     failed: dict[int, str] = {}
-    for sid, record in records.items():
-        try:
-            results.update(compute_sites({sid: record}))
-        except Exception:
-            log.exception("recompute of site %s failed", sid)
-            failed[sid] = _error_text(record)
+    with gc_frozen():  # the chunk's records stay out of the collector's passes
+        for sid, record in records.items():
+            try:
+                results.update(compute_sites({sid: record}))
+            except Exception:
+                log.exception("recompute of site %s failed", sid)
+                failed[sid] = _error_text(record)
     return results, failed
 
 
