@@ -8,6 +8,8 @@ from __future__ import annotations
 import gc
 import weakref
 
+import pytest
+
 from record.gcpause import gc_frozen, gc_paused
 
 
@@ -33,7 +35,19 @@ def test_gc_paused_restores_the_collector_as_it_was_nested_too():
         gc.enable()
 
 
-def test_gc_frozen_keeps_what_was_alive_out_of_the_passes_and_gives_it_back():
+@pytest.fixture
+def nothing_frozen():
+    """The process as a worker starts: nothing frozen (an earlier test, the engine bench,
+    may have frozen the test process; it is frozen again after)."""
+    was = gc.get_freeze_count()
+    gc.unfreeze()
+    yield
+    gc.unfreeze()
+    if was:
+        gc.freeze()
+
+
+def test_gc_frozen_keeps_what_was_alive_out_of_the_passes_and_gives_it_back(nothing_frozen):
     gc.collect()
     assert gc.get_freeze_count() == 0
     before = _Node()
@@ -60,3 +74,12 @@ def test_gc_frozen_keeps_what_was_alive_out_of_the_passes_and_gives_it_back():
     assert gc.get_freeze_count() == 0
     gc.collect()
     assert gone() is None
+
+
+def test_gc_frozen_leaves_a_freeze_made_by_the_process_itself(nothing_frozen):
+    gc.freeze()  # a pre-forking server or a benchmark froze what it had
+    frozen = gc.get_freeze_count()
+    assert frozen > 0
+    with gc_frozen():
+        assert gc.get_freeze_count() == frozen
+    assert gc.get_freeze_count() == frozen  # not unfrozen by the block
