@@ -55,8 +55,8 @@ def test_gc_frozen_keeps_what_was_alive_out_of_the_passes_and_gives_it_back(noth
         frozen = gc.get_freeze_count()
         assert frozen > 0  # what was alive, `before` among it, is out of the generations
         with gc_frozen():
-            assert gc.get_freeze_count() == frozen  # nested: nothing frozen twice
-        assert gc.get_freeze_count() == frozen  # only the outermost block unfreezes
+            assert 0 < gc.get_freeze_count() <= frozen  # nested: nothing frozen twice
+        assert gc.get_freeze_count() > frozen // 2  # only the outermost block unfreezes
         # a cycle made inside the block is collected by the block's own passes
         a, b = _Node(), _Node()
         a.other, b.other = b, a
@@ -80,6 +80,7 @@ def test_gc_frozen_leaves_a_freeze_made_by_the_process_itself(nothing_frozen):
     gc.freeze()  # a pre-forking server or a benchmark froze what it had
     frozen = gc.get_freeze_count()
     assert frozen > 0
+    # frozen objects freed by reference counting leave the count meanwhile: it may only fall
     with gc_frozen():
-        assert gc.get_freeze_count() == frozen
-    assert gc.get_freeze_count() == frozen  # not unfrozen by the block
+        assert 0 < gc.get_freeze_count() <= frozen  # nothing more frozen by the block
+    assert gc.get_freeze_count() > frozen // 2  # not unfrozen by the block
